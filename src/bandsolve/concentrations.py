@@ -1,0 +1,145 @@
+"""Reference concentrations of the analytes, and matching them to spectra by sample id."""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from .errors import DataError, where
+from .spectra import SpectralSet
+
+__all__ = ["ConcentrationTable", "split_unit", "align"]
+
+_UNIT_RE = re.compile(r"^(?P<name>.*?)\s*\[(?P<unit>[^\[\]]*)\]\s*$")
+
+
+def split_unit(label: str) -> tuple[str, str | None]:
+    """Split a column label such as ``"dye A [mg/L]"`` into ``("dye A", "mg/L")``.
+
+    A label without a bracketed unit gives ``(label, None)``.
+    """
+    m = _UNIT_RE.match(label.strip())
+    if m is None:
+        return label.strip(), None
+    return m.group("name").strip(), (m.group("unit").strip() or None)
+
+
+@dataclass(frozen=True, eq=False)
+class ConcentrationTable:
+    """Known analyte concentrations, one row per sample.
+
+    Parameters
+    ----------
+    sample_ids : sequence of str, length n
+        Unique sample identifiers matching the spectra.
+    analytes : sequence of str, length m
+        Column labels exactly as given, unit bracket included (``"dye A [mg/L]"``). Every
+        output column of a model carries these labels, so results join to reference tables.
+    values : array_like, shape (n, m)
+        Concentrations in each analyte's unit.
+    source : str, optional
+        File the table came from, for messages.
+    """
+
+    sample_ids: tuple[str, ...]
+    analytes: tuple[str, ...]
+    values: np.ndarray
+    source: str | None = None
+
+    def __post_init__(self) -> None:
+        ids = tuple(str(s) for s in self.sample_ids)
+        analytes = tuple(str(a) for a in self.analytes)
+        values = np.asarray(self.values, dtype=float)
+        if values.ndim == 1:
+            values = values[:, np.newaxis]
+        if values.shape != (len(ids), len(analytes)):
+            raise DataError(
+                f"{where(self.source)}table has shape {values.shape} but {len(ids)} samples and "
+                f"{len(analytes)} analytes were named"
+            )
+        if not analytes:
+            raise DataError(f"{where(self.source)}no analyte columns after the sample id column")
+        dup = [a for a in set(analytes) if analytes.count(a) > 1]
+        if dup:
+            raise DataError(f"{where(self.source)}analyte column {dup[0]!r} appears twice")
+        seen: dict[str, int] = {}
+        for i, s in enumerate(ids):
+            if s in seen:
+                raise DataError(
+                    f"{where(self.source, row=i + 2)}sample id {s!r} appears twice (rows "
+                    f"{seen[s] + 2} and {i + 2}); each sample needs one row"
+                )
+            seen[s] = i
+        bad = ~np.isfinite(values)
+        if bad.any():
+            i, j = np.argwhere(bad)[0]
+            raise DataError(
+                f"{where(self.source, row=i + 2, sample=ids[i])}concentration of "
+                f"{analytes[j]!r} is missing or not a number; fill it in (0 for absent)"
+            )
+        values.setflags(write=False)
+        object.__setattr__(self, "sample_ids", ids)
+        object.__setattr__(self, "analytes", analytes)
+        object.__setattr__(self, "values", values)
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        """Analyte names without units."""
+        return tuple(split_unit(a)[0] for a in self.analytes)
+
+    @property
+    def units(self) -> tuple[str | None, ...]:
+        """Units from the bracket in each column label (None where absent)."""
+        return tuple(split_unit(a)[1] for a in self.analytes)
+
+    def to_frame(self) -> pd.DataFrame:
+        """Table with the sample id as index and one column per analyte label."""
+        return pd.DataFrame(
+            np.array(self.values), index=pd.Index(self.sample_ids, name="sample"),
+            columns=list(self.analytes),
+        )
+
+    def subset(self, ids: Sequence[str]) -> ConcentrationTable:
+        """Rows for ``ids``, in that order."""
+        pos = {s: i for i, s in enumerate(self.sample_ids)}
+        idx = [pos[s] for s in ids]
+        return ConcentrationTable(tuple(ids), self.analytes, self.values[idx], self.source)
+
+
+def align(
+    spectra: SpectralSet, table: ConcentrationTable
+) -> tuple[SpectralSet, ConcentrationTable]:
+    """Match spectra and concentrations by sample id, in the spectra's order.
+
+    Raises
+    ------
+    DataError
+        When any concentration row has no spectrum or any spectrum has no concentration row;
+        the message names the files and up to five of the unmatched ids.
+    """
+    spec_ids, conc_ids = set(spectra.sample_ids), set(table.sample_ids)
+    no_spec = [s for s in table.sample_ids if s not in spec_ids]
+    no_conc = [s for s in spectra.sample_ids if s not in conc_ids]
+    problems = []
+    if no_spec:
+        problems.append(
+            f"{len(no_spec)} sample(s) in {table.source or 'the concentration table'} have no "
+            f"spectrum in {spectra.source or 'the spectra'}: {_few(no_spec)}"
+        )
+    if no_conc:
+        problems.append(
+            f"{len(no_conc)} spectrum/spectra in {spectra.source or 'the spectra'} have no row in "
+            f"{table.source or 'the concentration table'}: {_few(no_conc)}"
+        )
+    if problems:
+        raise DataError("; ".join(problems) + "; sample ids must match exactly (case included)")
+    return spectra, table.subset(spectra.sample_ids)
+
+
+def _few(ids: Sequence[str]) -> str:
+    shown = ", ".join(repr(s) for s in ids[:5])
+    return shown + (f" and {len(ids) - 5} more" if len(ids) > 5 else "")

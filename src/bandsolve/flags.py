@@ -1,0 +1,54 @@
+"""Result flags: short machine-readable codes in the ``flags`` column of every prediction.
+
+The column is empty when nothing is wrong; otherwise it holds codes separated by ``;``. Codes
+about one analyte carry its name after a colon, e.g. ``above_range:dye B``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+
+__all__ = ["FLAG_CODES", "SEPARATOR", "join_flags", "split_flags"]
+
+SEPARATOR = ";"
+
+#: Every flag code and what it means for the result, in the chemist's terms.
+FLAG_CODES: dict[str, str] = {
+    "residual": (
+        "The spectrum is not explained by the model (spectral residual or Q above its limit): "
+        "something absorbs that the calibration does not know, or the baseline or scatter "
+        "changed. Withhold the result and investigate."
+    ),
+    "t2": (
+        "Hotelling T² above its limit: the sample lies outside the calibrated composition "
+        "space (extrapolation). The result is reported but is less reliable."
+    ),
+    "leverage": (
+        "Leverage above its limit: the sample is far from the calibration centre and has a "
+        "strong influence on its own prediction (extrapolation)."
+    ),
+    "above_range": "The concentration is above the highest calibrated value for that analyte.",
+    "below_range": "The concentration is below the lowest calibrated value for that analyte.",
+    "negative": (
+        "The concentration is significantly below zero (more than 2 standard errors), "
+        "which no real sample can have: check the blank, baseline or model."
+    ),
+    "ceiling": (
+        "Absorbance above the photometric ceiling somewhere in the used range: the "
+        "instrument response may be non-linear there. Dilute and measure again."
+    ),
+    "no_se": (
+        "No standard error could be estimated (no residual degrees of freedom); the "
+        "notes column says why."
+    ),
+}
+
+
+def join_flags(codes: Iterable[str]) -> str:
+    """Join flag codes into the column text, keeping first-seen order without repeats."""
+    return SEPARATOR.join(dict.fromkeys(c for c in codes if c))
+
+
+def split_flags(text: str) -> list[str]:
+    """Split the column text back into codes (empty text gives an empty list)."""
+    return [c for c in str(text).split(SEPARATOR) if c] if text else []
