@@ -1,0 +1,1 @@
+"""Readers and writers for spectra, concentration and absorptivity tables."""
