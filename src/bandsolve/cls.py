@@ -1,0 +1,276 @@
+"""Classical least squares (CLS, K-matrix) calibration.
+
+Beer's law for a mixture, ``a(λ) = b Σ_k ε_k(λ) c_k``, written for many samples as
+``A = C K + E``: the rows of K are the pure-component spectra per unit concentration.
+K is estimated from standards or calibration mixtures, ``K̂ = (CᵀC)⁻¹CᵀA``, and a new spectrum
+is resolved by ``ĉ = (K̂K̂ᵀ)⁻¹K̂a`` (Haaland & Thomas 1988).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import linalg, stats
+from sklearn.base import BaseEstimator, RegressorMixin
+from sklearn.utils.validation import check_is_fitted, validate_data
+
+from .errors import ModelError
+
+__all__ = ["BASELINE_TERMS", "CLSRegressor", "CLSPrediction"]
+
+#: Number of polynomial baseline terms solved with the concentrations at prediction.
+BASELINE_TERMS = {"none": 0, "offset": 1, "linear": 2, "quadratic": 3}
+
+
+@dataclass(frozen=True)
+class CLSPrediction:
+    """Concentrations and per-sample statistics from :meth:`CLSRegressor.predict_detail`.
+
+    Attributes
+    ----------
+    concentrations : ndarray, shape (n, m)
+        Estimated concentrations, in the units of the calibration.
+    standard_errors : ndarray, shape (n, m)
+        Standard error of each estimate; NaN where it cannot be estimated (see ``note``).
+    dof : int
+        Residual degrees of freedom per spectrum, ``p − m − q`` (q baseline terms); the
+        Student t quantile for intervals uses it.
+    residual_ss : ndarray, shape (n,)
+        Sum of squared spectral residuals ``rᵀr`` (AU²).
+    residual_ratio : ndarray, shape (n,)
+        ``F_u / limit``: the sample's residual variance relative to calibration residuals,
+        divided by the limit; above 1 means an unmodelled absorber or baseline change.
+        NaN when the model has no calibration residuals.
+    leverage : ndarray, shape (n,)
+        ``h_c = c̃ᵀ(CᵀC)⁻¹c̃``, the concentration leverage (0 for a model built from
+        absorptivities).
+    baseline : ndarray, shape (n, q)
+        Fitted baseline coefficients (AU; polynomial in the centred, scaled axis).
+    note : str
+        Why standard errors are missing, when they are.
+    """
+
+    concentrations: np.ndarray
+    standard_errors: np.ndarray
+    dof: int
+    residual_ss: np.ndarray
+    residual_ratio: np.ndarray
+    leverage: np.ndarray
+    baseline: np.ndarray
+    note: str = ""
+
+
+class CLSRegressor(RegressorMixin, BaseEstimator):
+    """CLS (K-matrix) calibration with optional background and baseline terms.
+
+    Parameters
+    ----------
+    fit_intercept : bool, default False
+        Estimate a background spectrum (a ones column in C) that every sample shares, for
+        example a solvent or cell absorbance not removed by the blank.
+    baseline : {"none", "offset", "linear", "quadratic"}, default "none"
+        Polynomial baseline solved together with the concentrations at prediction,
+        ``K_aug = [K; 1ᵀ; (λ−λ̄)ᵀ; …]`` (METHODS §1). Needs ``wavelengths`` for linear and
+        quadratic terms on an uneven grid; an even grid is assumed otherwise.
+    wavelengths : array_like of shape (p,), optional
+        Axis of the columns of X, for the baseline polynomial.
+    alpha : float, default 0.01
+        Significance level of the spectral-residual limit.
+
+    Attributes
+    ----------
+    pure_spectra_ : ndarray, shape (m, p)
+        Estimated K: absorbance per unit concentration of each analyte.
+    background_ : ndarray, shape (p,)
+        Background spectrum (zeros without ``fit_intercept``).
+    gram_inv_ : ndarray, shape (m′, m′) or None
+        ``(CᵀC)⁻¹`` of the calibration design (None when built from absorptivities).
+    s2_cal_ : float
+        Calibration residual variance per channel, ``‖A − CK̂‖²_F / (p(n − m′))``, AU².
+    residual_limit_ : float
+        Limit of the F ratio, from leave-one-out calibration residuals (Box 1954 scaled χ²
+        fitted by moments); NaN when no calibration residuals exist.
+    cv_f_ratios_ : ndarray, shape (n,)
+        Leave-one-out F ratios of the calibration samples that set the limit.
+
+    References
+    ----------
+    Haaland, D. M.; Thomas, E. V. Anal. Chem. 1988, 60, 1193–1202.
+    Haaland, D. M.; Melgaard, D. K. Appl. Spectrosc. 2000, 54, 1303–1312.
+    Box, G. E. P. Ann. Math. Stat. 1954, 25, 290–302.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> K = np.array([[1.0, 0.5, 0.1], [0.1, 0.6, 1.0]])
+    >>> C = np.array([[1.0, 0.0], [0.0, 1.0], [1.0, 1.0], [0.5, 2.0]])
+    >>> model = CLSRegressor().fit(C @ K, C)
+    >>> np.round(model.predict(np.array([[0.72, 1.02, 1.26]])), 6)
+    array([[0.6, 1.2]])
+    """
+
+    def __init__(self, fit_intercept: bool = False, baseline: str = "none",
+                 wavelengths=None, alpha: float = 0.01):
+        self.fit_intercept = fit_intercept
+        self.baseline = baseline
+        self.wavelengths = wavelengths
+        self.alpha = alpha
+
+    # ------------------------------------------------------------------ fitting
+    def fit(self, X, y):
+        """Estimate K from spectra X (n × p, AU) and concentrations y (n × m or n,)."""
+        X, y = validate_data(self, X, y, multi_output=True, y_numeric=True)
+        Y = np.asarray(y, dtype=float)
+        self._single_output = Y.ndim == 1
+        Y = Y.reshape(len(Y), -1)
+        C = self._design(Y)
+        n, p = X.shape
+        if n < C.shape[1]:
+            raise ModelError(
+                f"{n} calibration spectra cannot determine {C.shape[1]} model spectra; "
+                "measure at least one standard per analyte (plus a blank with an intercept)"
+            )
+        gram = C.T @ C
+        if np.linalg.matrix_rank(gram) < gram.shape[0]:
+            raise ModelError(
+                "the calibration concentrations are collinear (some analyte varies together "
+                "with another or with the intercept); use a design where each analyte varies "
+                "independently"
+            )
+        self.gram_inv_ = linalg.inv(gram)
+        coef = self.gram_inv_ @ (C.T @ X)
+        self._set_spectra(coef)
+        resid = X - C @ coef
+        dof_cal = p * (n - C.shape[1])
+        self.s2_cal_ = float(np.sum(resid**2) / dof_cal) if dof_cal > 0 else float("nan")
+        self.cv_f_ratios_ = self._loo_f_ratios(X, C) if n > C.shape[1] + 1 else np.array([])
+        self.residual_limit_ = _scaled_chi2_limit(self.cv_f_ratios_, self.alpha)
+        return self
+
+    @classmethod
+    def from_pure_spectra(cls, pure_spectra, *, baseline: str = "none", wavelengths=None,
+                          alpha: float = 0.01) -> CLSRegressor:
+        """A fitted model from known pure spectra (absorptivity × path length), no standards.
+
+        Parameters
+        ----------
+        pure_spectra : array_like, shape (m, p)
+            Absorbance per unit concentration of each analyte in the measuring cell.
+        """
+        model = cls(fit_intercept=False, baseline=baseline, wavelengths=wavelengths, alpha=alpha)
+        K = np.asarray(pure_spectra, dtype=float)
+        if K.ndim != 2 or not np.all(np.isfinite(K)):
+            raise ModelError("pure spectra must be a finite 2-D array (components × points)")
+        model.n_features_in_ = K.shape[1]
+        model._single_output = False
+        model.gram_inv_ = None
+        model._set_spectra(K)
+        model.s2_cal_ = float("nan")
+        model.cv_f_ratios_ = np.array([])
+        model.residual_limit_ = float("nan")
+        return model
+
+    def _design(self, Y: np.ndarray) -> np.ndarray:
+        return np.column_stack([Y, np.ones(len(Y))]) if self.fit_intercept else Y
+
+    def _set_spectra(self, coef: np.ndarray) -> None:
+        m = coef.shape[0] - (1 if self.fit_intercept else 0)
+        self.pure_spectra_ = coef[:m]
+        self.background_ = coef[m] if self.fit_intercept else np.zeros(coef.shape[1])
+        q = BASELINE_TERMS.get(self.baseline)
+        if q is None:
+            raise ModelError(
+                f"baseline must be one of {sorted(BASELINE_TERMS)}, not {self.baseline!r}"
+            )
+        self.n_baseline_terms_ = q
+        aug = np.vstack([self.pure_spectra_, self._baseline_rows(coef.shape[1])])
+        self.augmented_spectra_ = aug
+        if np.linalg.matrix_rank(aug) < aug.shape[0]:
+            raise ModelError(
+                "the pure spectra (with baseline terms) are linearly dependent over this "
+                "wavelength range; widen the range or drop baseline terms"
+            )
+        self.aug_gram_inv_ = linalg.inv(aug @ aug.T)
+
+    def _baseline_rows(self, p: int) -> np.ndarray:
+        q = BASELINE_TERMS[self.baseline]
+        x = np.arange(p, dtype=float) if self.wavelengths is None else np.asarray(
+            self.wavelengths, dtype=float)
+        if x.shape != (p,):
+            raise ModelError(f"wavelengths has {x.size} points but the spectra have {p}")
+        span = (x.max() - x.min()) / 2 or 1.0
+        z = (x - (x.max() + x.min()) / 2) / span
+        return np.vstack([z**k for k in range(q)]) if q else np.empty((0, p))
+
+    def _loo_f_ratios(self, X: np.ndarray, C: np.ndarray) -> np.ndarray:
+        """Leave-one-out F ratios by downdating CᵀC and CᵀA (METHODS §1b)."""
+        gram, cross = C.T @ C, C.T @ X
+        out = np.empty(len(X))
+        for i in range(len(X)):
+            ci = C[i]
+            coef = linalg.solve(gram - np.outer(ci, ci), cross - np.outer(ci, X[i]),
+                                assume_a="pos")
+            m = coef.shape[0] - (1 if self.fit_intercept else 0)
+            K = np.vstack([coef[:m], self._baseline_rows(X.shape[1])])
+            a = X[i] - (coef[m] if self.fit_intercept else 0.0)
+            r = a - K.T @ linalg.solve(K @ K.T, K @ a, assume_a="pos")
+            out[i] = r @ r / max(X.shape[1] - K.shape[0], 1) / self.s2_cal_
+        return out
+
+    # ------------------------------------------------------------------ prediction
+    def predict(self, X):
+        """Concentrations (n, m) — or (n,) when fitted on a 1-D target."""
+        conc = self.predict_detail(X).concentrations
+        return conc[:, 0] if getattr(self, "_single_output", False) else conc
+
+    def predict_detail(self, X) -> CLSPrediction:
+        """Concentrations with standard errors, spectral residuals and leverage.
+
+        ``Cov(ĉ) ≈ s²(1 + h_c)(K̂K̂ᵀ)⁻¹`` with ``s² = rᵀr/(p − m − q)`` from the sample's own
+        residual and ``h_c = c̃ᵀ(CᵀC)⁻¹c̃`` carrying the error in K̂ (METHODS §1).
+        """
+        check_is_fitted(self, "pure_spectra_")
+        X = validate_data(self, X, reset=False)
+        m, q = self.pure_spectra_.shape[0], self.n_baseline_terms_
+        A = X - self.background_
+        coef = A @ self.augmented_spectra_.T @ self.aug_gram_inv_
+        resid = A - coef @ self.augmented_spectra_
+        rss = np.einsum("ij,ij->i", resid, resid)
+        dof = X.shape[1] - m - q
+        conc = coef[:, :m]
+        if self.gram_inv_ is None:
+            lev = np.zeros(len(X))
+        else:
+            ctil = np.column_stack([conc, np.ones(len(X))]) if self.fit_intercept else conc
+            lev = np.einsum("ij,jk,ik->i", ctil, self.gram_inv_, ctil)
+        note = ""
+        if dof > 0:
+            s2 = rss / dof
+            var = s2[:, None] * (1 + lev)[:, None] * np.diag(self.aug_gram_inv_)[:m]
+            se = np.sqrt(var)
+            ratio = (s2 / self.s2_cal_) / self.residual_limit_
+        else:
+            se = np.full_like(conc, np.nan)
+            ratio = np.full(len(X), np.nan)
+            note = (f"no standard error: {X.shape[1]} wavelengths for {m + q} unknowns leave no "
+                    "residual degrees of freedom; use more wavelengths")
+        return CLSPrediction(conc, se, dof, rss, ratio, lev, coef[:, m:], note)
+
+    def __sklearn_tags__(self):
+        tags = super().__sklearn_tags__()
+        tags.target_tags.single_output = False
+        tags.target_tags.multi_output = True
+        return tags
+
+
+def _scaled_chi2_limit(values: np.ndarray, alpha: float) -> float:
+    """Upper (1 − α) limit of g·χ²_h matched to the mean and variance of ``values`` (Box 1954)."""
+    values = np.asarray(values, dtype=float)
+    if values.size < 3 or not np.all(np.isfinite(values)):
+        return float("nan")
+    mean, var = values.mean(), values.var(ddof=1)
+    if var <= 0:
+        return float(mean)
+    g, h = var / (2 * mean), 2 * mean**2 / var
+    return float(g * stats.chi2.ppf(1 - alpha, h))
