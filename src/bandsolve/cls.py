@@ -86,6 +86,8 @@ class CLSRegressor(RegressorMixin, BaseEstimator):
         Background spectrum (zeros without ``fit_intercept``).
     gram_inv_ : ndarray, shape (m′, m′) or None
         ``(CᵀC)⁻¹`` of the calibration design (None when built from absorptivities).
+    n_calibration_ : int
+        Number of calibration spectra (0 when built from absorptivities).
     s2_cal_ : float
         Calibration residual variance per channel, ``‖A − CK̂‖²_F / (p(n − m′))``, AU².
     residual_limit_ : float
@@ -139,6 +141,7 @@ class CLSRegressor(RegressorMixin, BaseEstimator):
                 "independently"
             )
         self.gram_inv_ = linalg.inv(gram)
+        self.n_calibration_ = n
         coef = self.gram_inv_ @ (C.T @ X)
         self._set_spectra(coef)
         resid = X - C @ coef
@@ -165,6 +168,7 @@ class CLSRegressor(RegressorMixin, BaseEstimator):
         model.n_features_in_ = K.shape[1]
         model._single_output = False
         model.gram_inv_ = None
+        model.n_calibration_ = 0
         model._set_spectra(K)
         model.s2_cal_ = float("nan")
         model.cv_f_ratios_ = np.array([])

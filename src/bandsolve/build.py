@@ -1,0 +1,162 @@
+"""Build calibrations from spectra and concentrations (the API behind ``bandsolve build``)."""
+
+from __future__ import annotations
+
+import platform
+from datetime import datetime, timezone
+from typing import Any
+
+import numpy as np
+
+from . import __version__
+from .cls import CLSRegressor
+from .concentrations import ConcentrationTable, align
+from .errors import DataError, ModelError, where
+from .model import Calibration
+from .preprocess import SpectralPreprocessor
+from .spectra import DEFAULT_CEILING_AU, SpectralSet
+
+__all__ = ["build_cls", "build_cls_from_absorptivities", "library_versions", "training_arrays"]
+
+
+def library_versions() -> dict[str, str]:
+    """Versions of bandsolve, Python and the numerical libraries, for provenance records."""
+    import numpy
+    import pandas
+    import scipy
+    import sklearn
+
+    return {
+        "bandsolve": __version__, "python": platform.python_version(),
+        "numpy": numpy.__version__, "scipy": scipy.__version__,
+        "scikit-learn": sklearn.__version__, "pandas": pandas.__version__,
+    }
+
+
+def _provenance(extra: dict[str, Any] | None, n_samples: int) -> dict[str, Any]:
+    record = {
+        "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        "versions": library_versions(),
+        "n_calibration_samples": n_samples,
+    }
+    record.update(extra or {})
+    return record
+
+
+def training_arrays(spectra: SpectralSet, table: ConcentrationTable,
+                    blank: SpectralSet | None = None) -> tuple[SpectralSet, np.ndarray]:
+    """Absorbance spectra matched to the concentration rows, with an optional blank removed."""
+    spectra = spectra.to_absorbance()
+    spectra.check_quantity()
+    if blank is not None:
+        blank = blank.to_absorbance()
+        if blank.axis_unit != spectra.axis_unit:
+            blank = blank.convert_axis(spectra.axis_unit)
+        if not blank.same_grid(spectra.axis):
+            blank = blank.resample(spectra.axis)
+        spectra = spectra.subtract_blank(blank)
+    spectra, table = align(spectra, table)
+    return spectra, np.asarray(table.values)
+
+
+def _ceiling_check(spectra: SpectralSet, mask: np.ndarray, ceiling: float) -> None:
+    over = np.max(spectra.values[:, mask], axis=1) > ceiling
+    if over.any():
+        ids = [s for s, o in zip(spectra.sample_ids, over, strict=True) if o]
+        raise DataError(
+            f"{where(spectra.source)}{len(ids)} calibration spectra exceed the photometric "
+            f"ceiling of {ceiling:g} AU in the used range ({', '.join(ids[:5])}); dilute them, "
+            "narrow the window, or raise the ceiling if your instrument is linear there"
+        )
+
+
+def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: bool = False,
+              baseline: str = "none", window: list[tuple[float, float]] | None = None,
+              blank: SpectralSet | None = None, alpha: float = 0.01,
+              ceiling: float = DEFAULT_CEILING_AU,
+              provenance: dict[str, Any] | None = None) -> Calibration:
+    """Build a CLS calibration from standards or calibration mixtures.
+
+    Parameters
+    ----------
+    spectra : SpectralSet
+        Calibration spectra (absorbance or transmittance; converted to absorbance).
+    table : ConcentrationTable
+        Known concentrations; sample ids must match the spectra exactly. Pure standards are
+        rows with one non-zero concentration; blanks are rows of zeros.
+    intercept : bool
+        Estimate a background spectrum shared by all samples.
+    baseline : {"none", "offset", "linear", "quadratic"}
+        Baseline terms solved with the concentrations at prediction.
+    window : list of (low, high), optional
+        Axis ranges to use.
+    blank : SpectralSet, optional
+        Blank spectra whose mean is subtracted from every calibration spectrum. Routine
+        spectra must then be blank-corrected the same way (record it in the provenance).
+    alpha : float
+        Significance level of the spectral-residual limit.
+    ceiling : float
+        Photometric ceiling in AU; calibration spectra above it are refused.
+    provenance : dict, optional
+        Extra provenance (training-file fingerprints, labels) stored with the model.
+    """
+    spectra, C = training_arrays(spectra, table, blank)
+    pre = SpectralPreprocessor(axis=spectra.axis, window=window).fit(spectra.values)
+    _ceiling_check(spectra, pre.mask_, ceiling)
+    Z = pre.transform(spectra.values)
+    est = CLSRegressor(fit_intercept=intercept, baseline=baseline, wavelengths=pre.axis_out_,
+                       alpha=alpha).fit(Z, C)
+    settings = {"intercept": intercept, "baseline": baseline, "window": window,
+                "alpha": alpha, "blank_subtracted": blank is not None}
+    limits = {"residual": {"method": "Box scaled chi-squared fitted to leave-one-out "
+                                     "calibration F ratios", "alpha": alpha,
+                           "value": est.residual_limit_},
+              "leverage_factor": 3.0}
+    return Calibration(
+        method="cls", analytes=table.analytes, axis=spectra.axis, axis_unit=spectra.axis_unit,
+        preprocessor=pre, estimators=[est],
+        calibrated_range=np.column_stack([C.min(axis=0), C.max(axis=0)]),
+        settings=settings, path_length_cm=spectra.path_length_cm, ceiling=ceiling,
+        limits=limits, provenance=_provenance(provenance, len(C)),
+    )
+
+
+def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: float, *,
+                                  baseline: str = "none",
+                                  window: list[tuple[float, float]] | None = None,
+                                  concentration_range: tuple[float, float] | None = None,
+                                  ceiling: float = DEFAULT_CEILING_AU,
+                                  provenance: dict[str, Any] | None = None) -> Calibration:
+    """Build a CLS model from an absorptivity table and a path length, with no standards.
+
+    ``K = ε·b``: the pure spectrum of each component per unit concentration in a cell of
+    ``path_length_cm``. The component labels become the analyte labels. Without standards
+    there are no calibration residuals, so the spectral-residual limit is unknown and the
+    standard error comes from each spectrum's own residual alone.
+
+    Parameters
+    ----------
+    concentration_range : (low, high), optional
+        Range over which Beer's law is known to hold, used for range flags; by default
+        every non-negative concentration is accepted.
+    """
+    if absorptivities.quantity != "absorptivity":
+        raise ModelError(f"{where(absorptivities.source)}expected an absorptivity table")
+    if not (np.isfinite(path_length_cm) and path_length_cm > 0):
+        raise ModelError("path length must be a positive number of cm")
+    pre = SpectralPreprocessor(axis=absorptivities.axis, window=window).fit(
+        absorptivities.values)
+    K = pre.transform(absorptivities.values) * path_length_cm
+    est = CLSRegressor.from_pure_spectra(K, baseline=baseline, wavelengths=pre.axis_out_)
+    m = K.shape[0]
+    low, high = concentration_range or (0.0, np.inf)
+    return Calibration(
+        method="cls", analytes=absorptivities.sample_ids, axis=absorptivities.axis,
+        axis_unit=absorptivities.axis_unit, preprocessor=pre, estimators=[est],
+        calibrated_range=np.tile([low, high], (m, 1)),
+        settings={"from_absorptivities": True, "baseline": baseline, "window": window,
+                  "path_length_cm": path_length_cm},
+        path_length_cm=path_length_cm, ceiling=ceiling,
+        limits={"residual": {"method": "none (no calibration residuals)", "value": None}},
+        provenance=_provenance(provenance, 0),
+    )
