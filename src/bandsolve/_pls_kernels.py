@@ -1,0 +1,227 @@
+"""Numerical kernels shared by :mod:`bandsolve.pls` and :mod:`bandsolve.crossval`.
+
+Both kernels take *centred* (and, if wanted, scaled) cross-products and return the PLS factors
+for every component count in one pass.  Neither touches the data matrix itself, which is what
+lets the cross-validation engine downdate the cross-products fold by fold instead of refitting.
+
+* :func:`kernel_pls` works on the p×p matrix ``XᵀX`` and p×m matrix ``XᵀY`` (improved kernel
+  algorithm 2 of Dayal & MacGregor 1997).  Cost O(p²A), independent of n.
+* :func:`gram_pls` works on the n×n Gram matrix ``XXᵀ`` and on ``Y`` (the wide kernel form of
+  Lindgren, Geladi & Wold 1993 and Rännar et al. 1994).  Cost O(n²mA), independent of p.
+
+Both take the PLS2 weight as the exact dominant singular vector of the deflated ``XᵀY``
+(from ``numpy.linalg.eigh`` of the small m×m matrix ``(XᵀY)ᵀ(XᵀY)``), never a power iteration.
+
+References
+----------
+.. [1] Dayal, B. S., & MacGregor, J. F. (1997). Improved PLS algorithms. *Journal of
+   Chemometrics*, 11(1), 73-85.
+.. [2] Lindgren, F., Geladi, P., & Wold, S. (1993). The kernel algorithm for PLS. *Journal of
+   Chemometrics*, 7(1), 45-59.
+.. [3] Rännar, S., Lindgren, F., Geladi, P., & Wold, S. (1994). A PLS kernel algorithm for data
+   sets with many variables and fewer objects. Part 1: Theory and algorithm. *Journal of
+   Chemometrics*, 8(2), 111-125.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+#: A component is not extracted when its score sum of squares falls below this fraction of the
+#: total X sum of squares, or when the remaining X-Y covariance falls below this fraction of the
+#: initial one: X (or Y) has no rank left and further directions would be rounding noise.
+RANK_TOL = 1e-12
+
+
+@dataclass
+class KernelFactors:
+    """PLS factors in the feature space (p-dimensional), columns ordered by component.
+
+    ``weights`` W, ``rotations`` R (scores ``T = X_c R``), ``x_loadings`` P (p×A),
+    ``y_loadings`` Q (m×A) and ``tau`` (A,) = ``‖t_a‖²``.  A may be smaller than requested.
+    """
+
+    weights: np.ndarray
+    rotations: np.ndarray
+    x_loadings: np.ndarray
+    y_loadings: np.ndarray
+    tau: np.ndarray
+
+
+@dataclass
+class GramFactors:
+    """PLS factors in the sample space (n-dimensional) of a Gram-matrix fit.
+
+    With ``X_c`` the centred training data: weights ``W = X_cᵀ weight_coords``, rotations
+    ``R = X_cᵀ rotation_coords``, training scores ``scores`` T (n×A), x loadings
+    ``P = X_cᵀ T / tau``; ``y_loadings`` Q (m×A) and ``tau`` (A,) as in :class:`KernelFactors`.
+    """
+
+    weight_coords: np.ndarray
+    rotation_coords: np.ndarray
+    scores: np.ndarray
+    y_loadings: np.ndarray
+    tau: np.ndarray
+
+
+def _dominant_direction(cross_gram: np.ndarray) -> tuple[np.ndarray, float]:
+    """Unit top eigenvector v and top eigenvalue of the symmetric m×m matrix ``SᵀS``.
+
+    ``S v`` is then the dominant left singular direction of ``S``; eigenvalue = ``σ_max(S)²``.
+    """
+    if cross_gram.shape[0] == 1:
+        return np.ones(1), float(cross_gram[0, 0])
+    eigval, eigvec = np.linalg.eigh(cross_gram)
+    return eigvec[:, -1], float(eigval[-1])
+
+
+def kernel_pls(cxx: np.ndarray, cxy: np.ndarray, n_components: int) -> KernelFactors:
+    """Improved kernel PLS (algorithm 2) from centred cross-products.
+
+    Parameters
+    ----------
+    cxx : ndarray of shape (p, p)
+        ``X_cᵀX_c`` of the centred (optionally scaled) training spectra.
+    cxy : ndarray of shape (p, m)
+        ``X_cᵀY_c``.
+    n_components : int
+        Largest number of components wanted.
+
+    Returns
+    -------
+    KernelFactors
+        Factors for the components that could be extracted (see :data:`RANK_TOL`).
+
+    References
+    ----------
+    .. [1] Dayal, B. S., & MacGregor, J. F. (1997). Improved PLS algorithms. *Journal of
+       Chemometrics*, 11(1), 73-85.
+    """
+    p, m = cxy.shape
+    total_ss = float(np.trace(cxx))
+    s = cxy.copy()
+    weights = np.zeros((p, n_components))
+    rotations = np.zeros((p, n_components))
+    x_loadings = np.zeros((p, n_components))
+    y_loadings = np.zeros((m, n_components))
+    tau = np.zeros(n_components)
+    first_sv2 = None
+    a = 0
+    for a in range(n_components):
+        v, sv2 = _dominant_direction(s.T @ s)
+        first_sv2 = sv2 if first_sv2 is None else first_sv2
+        if sv2 <= RANK_TOL**2 * first_sv2 or sv2 <= 0.0:
+            break
+        w = s @ v
+        w /= np.linalg.norm(w)
+        # Deflating only XᵀY needs the rotation r (with t = X_c r), not w: r = w − R Pᵀw.
+        r = w - rotations[:, :a] @ (x_loadings[:, :a].T @ w)
+        cxx_r = cxx @ r
+        tau_a = float(r @ cxx_r)
+        if tau_a <= RANK_TOL * total_ss:
+            break
+        p_a = cxx_r / tau_a
+        q_a = (s.T @ r) / tau_a
+        s -= tau_a * np.outer(p_a, q_a)
+        weights[:, a], rotations[:, a], x_loadings[:, a] = w, r, p_a
+        y_loadings[:, a], tau[a] = q_a, tau_a
+    else:
+        a = n_components
+    return KernelFactors(weights[:, :a], rotations[:, :a], x_loadings[:, :a],
+                         y_loadings[:, :a], tau[:a])
+
+
+def gram_pls(gram: np.ndarray, yc: np.ndarray, n_components: int) -> GramFactors:
+    """Wide-data kernel PLS from the centred Gram matrix ``X_cX_cᵀ``.
+
+    Deflation acts on Y only: with orthogonal scores T, deflating ``XXᵀ`` by ``I − ttᵀ/τ`` is
+    the same as deflating Y, because ``(XᵀY_def)ᵀ(XᵀY_def) = Y_defᵀ(XXᵀ)Y_def``.
+
+    Parameters
+    ----------
+    gram : ndarray of shape (n, n)
+        ``X_cX_cᵀ`` of the centred (optionally scaled) training spectra.
+    yc : ndarray of shape (n, m)
+        Centred training concentrations.
+    n_components : int
+        Largest number of components wanted.
+
+    Returns
+    -------
+    GramFactors
+        Factors for the components that could be extracted (see :data:`RANK_TOL`).
+
+    References
+    ----------
+    .. [1] Lindgren, F., Geladi, P., & Wold, S. (1993). The kernel algorithm for PLS. *Journal
+       of Chemometrics*, 7(1), 45-59.
+    .. [2] Rännar, S., Lindgren, F., Geladi, P., & Wold, S. (1994). A PLS kernel algorithm for
+       data sets with many variables and fewer objects. Part 1. *Journal of Chemometrics*, 8(2),
+       111-125.
+    """
+    n, m = yc.shape
+    total_ss = float(np.trace(gram))
+    y_def = yc.copy()
+    weight_coords = np.zeros((n, n_components))
+    rotation_coords = np.zeros((n, n_components))
+    scores = np.zeros((n, n_components))
+    y_loadings = np.zeros((m, n_components))
+    tau = np.zeros(n_components)
+    first_sv2 = None
+    a = 0
+    for a in range(n_components):
+        gram_y = gram @ y_def
+        v, sv2 = _dominant_direction(y_def.T @ gram_y)
+        first_sv2 = sv2 if first_sv2 is None else first_sv2
+        if sv2 <= RANK_TOL**2 * first_sv2 or sv2 <= 0.0:
+            break
+        # w = X_cᵀg with ‖w‖ = 1; gram_g = X_c w.
+        g = y_def @ v
+        gram_g = gram_y @ v
+        w_norm = np.sqrt(g @ gram_g)
+        g /= w_norm
+        gram_g /= w_norm
+        # r = w − R Pᵀw in sample coordinates; Pᵀw = Tᵀ X_c w / τ.
+        proj = (scores[:, :a].T @ gram_g) / tau[:a]
+        z = g - rotation_coords[:, :a] @ proj
+        t = gram_g - scores[:, :a] @ proj
+        tau_a = float(t @ t)
+        if tau_a <= RANK_TOL * total_ss:
+            break
+        q_a = (y_def.T @ t) / tau_a
+        y_def -= np.outer(t, q_a)
+        weight_coords[:, a], rotation_coords[:, a], scores[:, a] = g, z, t
+        y_loadings[:, a], tau[a] = q_a, tau_a
+    else:
+        a = n_components
+    return GramFactors(weight_coords[:, :a], rotation_coords[:, :a], scores[:, :a],
+                       y_loadings[:, :a], tau[:a])
+
+
+def residual_ss_path(xs: np.ndarray, scores: np.ndarray, x_loadings: np.ndarray) -> np.ndarray:
+    """Sum of squared X residuals of each row after 1..A components, computed exactly.
+
+    Parameters
+    ----------
+    xs : ndarray of shape (n, p)
+        Centred (optionally scaled) spectra.
+    scores : ndarray of shape (n, A)
+        Their scores ``xs @ R``.
+    x_loadings : ndarray of shape (p, A)
+        X loadings P.
+
+    Returns
+    -------
+    ndarray of shape (A, n)
+        Row ``a-1`` is ``‖x − Σ_{j≤a} p_j t_j‖²`` (the Q statistic with a components).  The
+        residual is formed explicitly rather than by the quadratic-form shortcut, which loses
+        digits to cancellation.
+    """
+    resid = xs.copy()
+    out = np.empty((scores.shape[1], xs.shape[0]))
+    for a in range(scores.shape[1]):
+        resid -= np.outer(scores[:, a], x_loadings[:, a])
+        out[a] = np.einsum("ij,ij->i", resid, resid)
+    return out

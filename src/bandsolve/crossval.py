@@ -1,0 +1,347 @@
+"""Cross-validation: splitters, the one-pass PLS engine, and choosing the number of components.
+
+* Splitters follow the scikit-learn interface (``split``, ``get_n_splits``); build one from a
+  command-line string with :func:`make_splitter`.
+* :func:`cross_validate_pls` returns the whole RMSECV curve for 1..A components from one PLS fit
+  per fold (no refit per component count), with cross-validated Q residuals and Hotelling T².
+* :func:`cross_validate_estimator` cross-validates any scikit-learn regressor (e.g. CLS).
+* :func:`select_components` applies the minimum, one-standard-error or randomization rule;
+  :func:`randomization_test` is the paired sign-flip test behind it.
+"""
+
+from __future__ import annotations
+
+import numbers
+import re
+from collections.abc import Iterator
+
+import numpy as np
+from sklearn.base import clone
+from sklearn.model_selection import (
+    BaseCrossValidator,
+    GroupKFold,
+    KFold,
+    LeaveOneGroupOut,
+    LeaveOneOut,
+    RepeatedKFold,
+)
+
+from bandsolve._cv_engine import CVResult, FoldOutput, TallEngine, WideEngine
+from bandsolve._cv_selection import (
+    ComponentSelection,
+    RandomizationResult,
+    randomization_test,
+    select_components,
+)
+from bandsolve.errors import DataError, ModelError
+
+__all__ = [
+    "CVResult",
+    "ComponentSelection",
+    "GroupSplitter",
+    "RandomizationResult",
+    "VenetianBlinds",
+    "cross_validate_estimator",
+    "cross_validate_pls",
+    "make_splitter",
+    "randomization_test",
+    "select_components",
+]
+
+
+class VenetianBlinds(BaseCrossValidator):
+    """Interleaved folds: sample i is held out in fold ``i mod n_splits``.
+
+    Parameters
+    ----------
+    n_splits : int, default=10
+        Number of folds K (2 ≤ K ≤ n).
+    """
+
+    def __init__(self, n_splits: int = 10):
+        self.n_splits = n_splits
+
+    def _iter_test_indices(self, X=None, y=None, groups=None) -> Iterator[np.ndarray]:
+        n = len(X)
+        if not 2 <= self.n_splits <= n:
+            raise ValueError(f"venetian blinds need 2 <= n_splits <= n_samples={n}, got "
+                             f"n_splits={self.n_splits}")
+        for k in range(self.n_splits):
+            yield np.arange(k, n, self.n_splits)
+
+    def get_n_splits(self, X=None, y=None, groups=None) -> int:
+        """Number of folds."""
+        return self.n_splits
+
+
+class GroupSplitter(BaseCrossValidator):
+    """Leave-group-out with the groups fixed at construction.
+
+    Replicate spectra of one physical sample share a group label and are always held out
+    together.  Uses ``LeaveOneGroupOut`` (``n_splits=None``) or ``GroupKFold(n_splits)``.
+
+    Parameters
+    ----------
+    groups : array-like of shape (n,)
+        Group label of each spectrum.
+    n_splits : int, optional
+        Number of folds; ``None`` leaves out one group at a time.
+    """
+
+    def __init__(self, groups, n_splits: int | None = None):
+        self.groups = groups
+        self.n_splits = n_splits
+
+    def _inner(self) -> BaseCrossValidator:
+        return LeaveOneGroupOut() if self.n_splits is None else GroupKFold(self.n_splits)
+
+    def split(self, X, y=None, groups=None) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+        """Yield (train, test) index arrays; the ``groups`` argument is ignored."""
+        return self._inner().split(X, y, np.asarray(self.groups))
+
+    def get_n_splits(self, X=None, y=None, groups=None) -> int:
+        """Number of folds."""
+        return self._inner().get_n_splits(X, y, np.asarray(self.groups))
+
+    def _iter_test_indices(self, X=None, y=None, groups=None):  # pragma: no cover - unused
+        raise NotImplementedError
+
+
+_SPEC = re.compile(r"^(blocks|blinds|random|groups):(\d+)(?:x(\d+))?$|^(loo|groups)$")
+
+
+def make_splitter(spec: str, groups=None, random_state: int = 0,
+                  n_samples: int | None = None) -> BaseCrossValidator:
+    """Build a splitter from a command-line string.
+
+    Parameters
+    ----------
+    spec : str
+        ``"blocks:K"`` (K contiguous blocks), ``"blinds:K"`` (venetian blinds),
+        ``"random:K"`` (shuffled K-fold), ``"random:KxR"`` (K-fold repeated R times with new
+        shuffles), ``"loo"`` (leave one out), ``"groups"`` (leave one group out) or
+        ``"groups:K"`` (K folds of whole groups).
+    groups : array-like of shape (n,), optional
+        Group labels; required by ``"groups"`` specs.
+    random_state : int, default=0
+        Seed of the shuffled splitters.
+    n_samples : int, optional
+        Number of samples, to check K against it now rather than at split time.
+
+    Returns
+    -------
+    splitter
+        A scikit-learn compatible cross-validator.
+
+    Raises
+    ------
+    ModelError
+        For an unknown spec, K < 2, R < 1, K > n_samples, or a ``groups`` spec without groups.
+    """
+    match = _SPEC.match(spec.strip().lower()) if isinstance(spec, str) else None
+    if match is None:
+        raise ModelError(f"cross-validation spec {spec!r} is not understood; use one of "
+                         "'blocks:K', 'blinds:K', 'random:K', 'random:KxR', 'loo', 'groups' "
+                         "or 'groups:K' (for example 'blinds:10').")
+    kind = match.group(1) or match.group(4)
+    k = int(match.group(2)) if match.group(2) else None
+    repeats = int(match.group(3)) if match.group(3) else None
+    if repeats is not None and kind != "random":
+        raise ModelError(f"cross-validation spec {spec!r}: only 'random:KxR' takes repeats.")
+    if k is not None and k < 2:
+        raise ModelError(f"cross-validation spec {spec!r}: the number of folds must be at "
+                         "least 2.")
+    if repeats is not None and repeats < 1:
+        raise ModelError(f"cross-validation spec {spec!r}: the number of repeats must be at "
+                         "least 1.")
+    if k is not None and n_samples is not None and k > n_samples:
+        raise ModelError(f"cross-validation spec {spec!r} asks for {k} folds but there are "
+                         f"only {n_samples} samples; use at most {n_samples} folds or 'loo'.")
+    if kind == "groups":
+        if groups is None:
+            raise ModelError(f"cross-validation spec {spec!r} needs a group label for every "
+                             "spectrum (e.g. a sample-id column); supply groups or use "
+                             "'blinds:K'.")
+        n_groups = np.unique(np.asarray(groups)).size
+        if k is not None and k > n_groups:
+            raise ModelError(f"cross-validation spec {spec!r} asks for {k} folds but there "
+                             f"are only {n_groups} groups; use at most {n_groups}.")
+        return GroupSplitter(groups, k)
+    if kind == "loo":
+        return LeaveOneOut()
+    if kind == "blocks":
+        return KFold(k)
+    if kind == "blinds":
+        return VenetianBlinds(k)
+    if repeats is not None:
+        return RepeatedKFold(n_splits=k, n_repeats=repeats, random_state=random_state)
+    return KFold(k, shuffle=True, random_state=random_state)
+
+
+def _as_xy(X, Y) -> tuple[np.ndarray, np.ndarray]:
+    X = np.asarray(X, dtype=np.float64)
+    Y = np.asarray(Y, dtype=np.float64)
+    if X.ndim != 2:
+        raise DataError(f"spectra must be a 2-D array (samples × wavelengths), got shape "
+                        f"{X.shape}.")
+    Y2 = Y.reshape(-1, 1) if Y.ndim == 1 else Y
+    if Y2.ndim != 2 or Y2.shape[0] != X.shape[0]:
+        raise DataError(f"concentrations have shape {Y.shape} but there are {X.shape[0]} "
+                        "spectra; give one row of concentrations per spectrum.")
+    for name, arr in (("spectra", X), ("concentrations", Y2)):
+        bad = np.flatnonzero(~np.isfinite(arr).all(axis=1))
+        if bad.size:
+            raise DataError(f"{name}: sample(s) at row index {bad[:5].tolist()} contain NaN "
+                            "or infinite values; remove or fix them before cross-validation.")
+    return X, Y2
+
+
+def _splits(cv, X, Y, groups) -> list[tuple[np.ndarray, np.ndarray]]:
+    splitter = make_splitter(cv, groups, n_samples=X.shape[0]) if isinstance(cv, str) else cv
+    try:
+        splits = list(splitter.split(X, Y, groups))
+    except ValueError as exc:
+        raise ModelError(f"cross-validation {splitter!r} cannot split {X.shape[0]} samples: "
+                         f"{exc}. Use fewer folds or supply the groups it needs.") from exc
+    held_out = np.zeros(X.shape[0], dtype=int)
+    for train, test in splits:
+        if train.size < 2:
+            raise ModelError(f"cross-validation {splitter!r} leaves fewer than 2 training "
+                             "samples in a fold; use fewer folds.")
+        held_out[test] += 1
+    never = np.flatnonzero(held_out == 0)
+    if never.size:
+        raise ModelError(f"cross-validation {splitter!r} never holds out sample(s) at row "
+                         f"index {never[:5].tolist()}; use a splitter that covers all samples.")
+    return splits
+
+
+def _run(splits, Y: np.ndarray, settings: tuple, setting_name: str, fold_fn) -> CVResult:
+    """Accumulate fold outputs; samples held out several times (repeats) are averaged."""
+    n, m = Y.shape
+    n_set = len(settings)
+    sum_pred = np.zeros((n_set, n, m))
+    sum_sq = np.zeros((n_set, n, m))
+    sum_q = np.zeros((n_set, n))
+    sum_t2 = np.zeros((n_set, n))
+    count = np.zeros(n)
+    fold_index = np.full(n, -1)
+    fold_mse = np.empty((n_set, len(splits), m))
+    has_diag = True
+    for k, (train, test) in enumerate(splits):
+        out = fold_fn(train, test)
+        sq = (out.predictions - Y[test]) ** 2
+        sum_pred[:, test] += out.predictions
+        sum_sq[:, test] += sq
+        fold_mse[:, k] = sq.mean(axis=1)
+        if out.q_residuals is None:
+            has_diag = False
+        else:
+            sum_q[:, test] += out.q_residuals
+            sum_t2[:, test] += out.hotelling_t2
+        count[test] += 1
+        first = test[fold_index[test] < 0]
+        fold_index[first] = k
+    predictions = sum_pred / count[:, None]
+    squared_errors = sum_sq / count[:, None]
+    mse = squared_errors.mean(axis=1)
+    return CVResult(
+        settings=settings, setting_name=setting_name, reference=Y, predictions=predictions,
+        errors=predictions - Y, squared_errors=squared_errors, rmsecv=np.sqrt(mse),
+        rmsecv_total=np.sqrt(mse.mean(axis=1)), fold_mse=fold_mse, fold_index=fold_index,
+        n_held_out=count.astype(int),
+        q_residuals=sum_q / count if has_diag else None,
+        hotelling_t2=sum_t2 / count if has_diag else None)
+
+
+def cross_validate_pls(X, Y, max_components: int, cv="blinds:10", scale: bool = False,
+                       algorithm: str = "auto", groups=None) -> CVResult:
+    """Cross-validate PLS for every component count 1..``max_components`` in one pass.
+
+    Each fold fits one PLS model with ``max_components`` components on its training samples,
+    from cross-products downdated from those of the whole set (tall data, n ≥ p) or from the
+    training block of the Gram matrix (wide data, p > n).  Because PLS models are nested, the
+    predictions for every smaller count come from the same fit.  Centring (and scaling) uses
+    the training fold only, so no validation information leaks into the model.
+
+    Parameters
+    ----------
+    X : array-like of shape (n, p)
+        Calibration spectra (absorbance), already preprocessed by row-wise transforms.
+    Y : array-like of shape (n,) or (n, m)
+        Reference concentrations.
+    max_components : int
+        Largest component count A_max.  Counts beyond the rank of a training fold repeat the
+        last model that could be fitted.
+    cv : str or splitter, default="blinds:10"
+        A :func:`make_splitter` spec or any scikit-learn splitter.
+    scale : bool, default=False
+        Autoscale X columns with each training fold's SD (ddof=1).
+    algorithm : {"auto", "kernel", "wide"}, default="auto"
+        ``"kernel"`` = downdated XᵀX form, ``"wide"`` = Gram-matrix form; ``"auto"`` picks
+        ``"kernel"`` when n ≥ p.
+    groups : array-like of shape (n,), optional
+        Group labels passed to the splitter's ``split``.
+
+    Returns
+    -------
+    CVResult
+        ``settings = (1, ..., A_max)``, with cross-validated Q residuals (squared X residual of
+        each held-out spectrum, centred/scaled with its training fold) and Hotelling T² of
+        the held-out scores relative to the fold's training scores.
+
+    References
+    ----------
+    .. [1] Engstrøm, O.-C. G., & Jensen, M. H. (2024). Fast partition-based cross-validation
+       with centering and scaling for XᵀX and XᵀY. arXiv:2401.13185.
+    .. [2] Liland, K. H., Stefansson, P., & Indahl, U. G. (2020). Much faster cross-validation
+       in PLSR-modelling by avoiding redundant calculations. *J. Chemometrics*, 34, e3201.
+    .. [3] Dayal, B. S., & MacGregor, J. F. (1997). Improved PLS algorithms. *Journal of
+       Chemometrics*, 11(1), 73-85.
+    """
+    X, Y2 = _as_xy(X, Y)
+    if (not isinstance(max_components, numbers.Integral) or isinstance(max_components, bool)
+            or max_components < 1):
+        raise ModelError(f"max_components must be a positive integer, got {max_components!r}.")
+    if algorithm not in ("auto", "kernel", "wide"):
+        raise ModelError(f"algorithm must be 'auto', 'kernel' or 'wide', got {algorithm!r}.")
+    splits = _splits(cv, X, Y2, groups)
+    n, p = X.shape
+    tall = algorithm == "kernel" or (algorithm == "auto" and n >= p)
+    engine = (TallEngine if tall else WideEngine)(X, Y2, scale)
+    settings = tuple(range(1, int(max_components) + 1))
+    return _run(splits, Y2, settings, "n_components",
+                lambda train, test: engine.fold(train, test, len(settings)))
+
+
+def cross_validate_estimator(estimator, X, Y, cv="blinds:10", groups=None) -> CVResult:
+    """Cross-validate any scikit-learn regressor (one setting; cloned and refitted per fold).
+
+    Parameters
+    ----------
+    estimator : regressor
+        Unfitted scikit-learn compatible regressor (e.g. a CLS model or a ``Pipeline``).
+    X : array-like of shape (n, p)
+        Spectra.
+    Y : array-like of shape (n,) or (n, m)
+        Reference concentrations; passed to ``fit`` with the given dimensionality.
+    cv : str or splitter, default="blinds:10"
+        A :func:`make_splitter` spec or any scikit-learn splitter.
+    groups : array-like of shape (n,), optional
+        Group labels passed to the splitter's ``split``.
+
+    Returns
+    -------
+    CVResult
+        One setting, labelled with the estimator's class name; no Q residuals or T².
+    """
+    X, Y2 = _as_xy(X, Y)
+    y_fit = np.asarray(Y, dtype=np.float64)
+    splits = _splits(cv, X, Y2, groups)
+
+    def fold(train, test):
+        model = clone(estimator).fit(X[train], y_fit[train])
+        pred = np.asarray(model.predict(X[test]), dtype=np.float64).reshape(test.size, -1)
+        return FoldOutput(pred[None], None, None)
+
+    return _run(splits, Y2, (type(estimator).__name__,), "estimator", fold)
