@@ -175,7 +175,8 @@ def d_optimal_design(
     coefficients. Starting from random candidate subsets, the exchange repeatedly replaces the
     design point and candidate whose swap raises the determinant most (by the factor
     ``1 + Δ``), until no swap helps; the best of ``n_starts`` starts is returned. Points may
-    repeat (replicate mixtures).
+    repeat (replicate mixtures). For this model the optimum uses only the extreme levels, so
+    the design cannot reveal curvature; prefer the cyclic design when nonlinearity matters.
 
     Parameters
     ----------

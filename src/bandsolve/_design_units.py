@@ -22,11 +22,12 @@ __all__ = [
 ]
 
 _NUMBER = r"(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?"
+_UNIT = r"(?P<unit>[^\d\s.,+\-–].*?)"  # a unit never starts with a digit or sign
 _RANGE_RE = re.compile(
     rf"^\s*(?P<name>[^=]*?)\s*=\s*(?P<low>{_NUMBER})\s*(?:-|–|\bto\b)\s*(?P<high>{_NUMBER})"
-    r"\s*(?P<unit>\S.*?)\s*$"
+    rf"\s*{_UNIT}\s*$"
 )
-_AMOUNT_RE = re.compile(rf"^\s*(?P<name>[^=]*?)\s*=\s*(?P<value>{_NUMBER})\s*(?P<unit>\S.*?)\s*$")
+_AMOUNT_RE = re.compile(rf"^\s*(?P<name>[^=]*?)\s*=\s*(?P<value>{_NUMBER})\s*{_UNIT}\s*$")
 _VOLUME_RE = re.compile(rf"^\s*(?P<value>{_NUMBER})\s*(?P<unit>\S+)\s*$")
 
 # Factor to the base unit of each kind: g/L for mass concentration, mol/L for molar concentration.

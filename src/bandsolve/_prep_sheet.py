@@ -2,14 +2,11 @@
 
 from __future__ import annotations
 
-import contextlib
 import html
 import math
 import os
-import tempfile
 from collections.abc import Mapping
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -17,6 +14,7 @@ import pandas as pd
 from bandsolve._design_plan import CalibrationPlan
 from bandsolve._design_units import Amount, concentration_factor
 from bandsolve.errors import DataError, where
+from bandsolve.io.atomic import atomic_write
 
 __all__ = [
     "PipetteFlag",
@@ -200,32 +198,22 @@ def preparation_sheet(
                             float(min_pipette_ml), flags)
 
 
+_FLOAT = "%.10g"  # ten significant figures: exact for prepared values, free of binary noise
+
+
 def _write_atomic(path: str | os.PathLike[str], text: str) -> None:
-    """Write text to a temporary file beside ``path``, then move it into place in one step."""
-    target = Path(path)
-    mode = target.stat().st_mode & 0o777 if target.exists() else 0o644
-    fd, tmp = tempfile.mkstemp(dir=target.parent, prefix=f".{target.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as handle:
-            handle.write(text)
-            handle.flush()
-            os.fsync(handle.fileno())
-        os.chmod(tmp, mode)
-        os.replace(tmp, target)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
-            os.unlink(tmp)
-        raise
+    with atomic_write(path, newline="") as handle:
+        handle.write(text)
 
 
 def write_plan_csv(plan: CalibrationPlan, path: str | os.PathLike[str]) -> None:
     """Write the plan's concentration table (``sample`` + one column per analyte) as CSV."""
-    _write_atomic(path, plan.concentrations.to_csv())
+    _write_atomic(path, plan.concentrations.to_csv(float_format=_FLOAT))
 
 
 def write_preparation_csv(sheet: PreparationSheet, path: str | os.PathLike[str]) -> None:
     """Write the preparation sheet (targets, volumes in mL, notes) as CSV."""
-    _write_atomic(path, sheet.to_frame().to_csv())
+    _write_atomic(path, sheet.to_frame().to_csv(float_format=_FLOAT))
 
 
 _CSS = """
