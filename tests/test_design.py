@@ -326,6 +326,7 @@ def test_writers_round_trip_and_html(tmp_path):
     page = preparation_html(sheet)
     assert "<b>dye</b>" not in page and "&lt;b&gt;dye&lt;/b&gt;" in page
     assert "@media print" in page and "validated" in page and "safety" in page
+    assert "25 mL volumetric flask" in page and "pipetting volume: 0.1 mL" in page
     assert all(sample in page for sample in plan.concentrations.index)
 
 

@@ -266,7 +266,7 @@ def preparation_html(sheet: PreparationSheet) -> str:
         "<h1>Preparation sheet</h1>",
         f"<p>Each mixture: pipette the stock volumes into a {sheet.final_volume_ml:g} mL "
         f"volumetric flask and make up to the mark with solvent (the solvent column gives "
-        "the nominal volume). Smallest accurate pipetting volume: {sheet.min_pipette_ml:g} mL; "
+        f"the nominal volume). Smallest accurate pipetting volume: {sheet.min_pipette_ml:g} mL; "
         "highlighted volumes are below it (see notes).</p>",
         f"<h2>Stock solutions</h2><ul>{stocks}</ul>",
         "<table><thead><tr>" + "".join(f"<th>{esc(h)}</th>" for h in head) + "</tr></thead>",
