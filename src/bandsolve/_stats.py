@@ -1,7 +1,7 @@
 """Private helpers shared by :mod:`bandsolve.diagnostics` and :mod:`bandsolve.merit`.
 
-Input checking at the public boundary, and the statistics of predicted against reference
-values (:func:`regression_statistics`) together with the single-wavelength baseline
+Input checking at the public boundary; noise estimates, the statistics of predicted against
+reference values (:func:`regression_statistics`) and the single-wavelength baseline
 (:func:`univariate_calibration`), which :mod:`bandsolve.merit` re-exports.
 """
 
@@ -15,10 +15,13 @@ from scipy import stats
 from bandsolve.errors import DataError
 
 __all__ = [
+    "NoiseEstimate",
     "RegressionStatistics",
     "UnivariateCalibration",
     "as_float_array",
     "check_alpha",
+    "noise_from_blanks",
+    "noise_from_residuals",
     "regression_statistics",
     "univariate_calibration",
 ]
@@ -52,6 +55,65 @@ def check_alpha(alpha: float) -> float:
     if not 0.0 < alpha < 1.0:
         raise DataError(f"alpha = {alpha!r} is not a probability; use a value such as 0.05.")
     return float(alpha)
+
+
+@dataclass(frozen=True)
+class NoiseEstimate:
+    """Spectral noise standard deviation σx with where it came from.
+
+    Attributes
+    ----------
+    sigma : float
+        Per-channel noise SD (AU).
+    origin : str
+        ``"blank replicates"`` or ``"residuals"``.
+    dof : int
+        Degrees of freedom behind the estimate.
+    """
+
+    sigma: float
+    origin: str
+    dof: int
+
+    def __float__(self) -> float:
+        return self.sigma
+
+
+def noise_from_blanks(blank_spectra: object) -> NoiseEstimate:
+    """σx from replicate blank spectra: per-channel SD (ddof=1), combined as RMS over channels.
+
+    Parameters
+    ----------
+    blank_spectra : array_like, shape (r, p)
+        ``r >= 2`` repeated blank spectra (AU).
+
+    References
+    ----------
+    Olivieri, A. C. et al. (2006). Uncertainty estimation and figures of merit for multivariate
+    calibration. Pure Appl. Chem. 78, 633-661.
+    """
+    blanks = as_float_array(blank_spectra, "blank_spectra", 2)
+    r, p = blanks.shape
+    if r < 2:
+        raise DataError(f"blank_spectra has {r} spectrum; measure at least 2 blank replicates.")
+    variance = np.var(blanks, axis=0, ddof=1)
+    return NoiseEstimate(float(np.sqrt(variance.mean())), "blank replicates", (r - 1) * p)
+
+
+def noise_from_residuals(residuals: object, dof: int) -> NoiseEstimate:
+    """σx = sqrt(‖E‖²_F / dof) from model residuals.
+
+    Parameters
+    ----------
+    residuals : array_like, shape (n, p)
+        Spectral residuals (AU).
+    dof : int
+        Total residual degrees of freedom of the matrix, e.g. ``p (n - m')`` for CLS.
+    """
+    e = as_float_array(residuals, "residuals", 2)
+    if dof < 1:
+        raise DataError(f"dof = {dof} must be a positive number of degrees of freedom.")
+    return NoiseEstimate(float(np.sqrt(np.sum(e**2) / dof)), "residuals", int(dof))
 
 
 @dataclass(frozen=True)

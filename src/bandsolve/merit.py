@@ -20,9 +20,12 @@ import pandas as pd
 from scipy.linalg import solve_triangular
 
 from bandsolve._stats import (
+    NoiseEstimate,
     RegressionStatistics,
     UnivariateCalibration,
     as_float_array,
+    noise_from_blanks,
+    noise_from_residuals,
     regression_statistics,
     univariate_calibration,
 )
@@ -49,64 +52,6 @@ __all__ = [
 #: 3.3 = 2 × 1.645: false-positive and false-negative rates of 5 % each (IUPAC).
 LOD_FACTOR = 3.3
 LOQ_FACTOR = 10.0
-
-
-@dataclass(frozen=True)
-class NoiseEstimate:
-    """Spectral noise standard deviation σx with where it came from.
-
-    Attributes
-    ----------
-    sigma : float
-        Per-channel noise SD (AU).
-    origin : str
-        ``"blank replicates"`` or ``"residuals"``.
-    dof : int
-        Degrees of freedom behind the estimate.
-    """
-
-    sigma: float
-    origin: str
-    dof: int
-
-    def __float__(self) -> float:
-        return self.sigma
-
-
-def noise_from_blanks(blank_spectra: object) -> NoiseEstimate:
-    """σx from replicate blank spectra: per-channel SD (ddof=1), combined as RMS over channels.
-
-    Parameters
-    ----------
-    blank_spectra : array_like, shape (r, p)
-        ``r >= 2`` repeated blank spectra (AU).
-
-    References
-    ----------
-    Olivieri, A. C. et al. (2006). Pure Appl. Chem. 78, 633-661.
-    """
-    blanks = as_float_array(blank_spectra, "blank_spectra", 2)
-    r, p = blanks.shape
-    if r < 2:
-        raise DataError(f"blank_spectra has {r} spectrum; measure at least 2 blank replicates.")
-    variance = np.var(blanks, axis=0, ddof=1)
-    return NoiseEstimate(float(np.sqrt(variance.mean())), "blank replicates", (r - 1) * p)
-
-
-def noise_from_residuals(residuals: object, dof: int) -> NoiseEstimate:
-    """σx = sqrt(‖E‖²_F / dof) from model residuals.
-
-    Parameters
-    ----------
-    residuals : array_like, shape (n, p)
-        Spectral residuals (AU).
-    dof : int
-        Total residual degrees of freedom of the matrix, e.g. ``p (n - m')`` for CLS.
-    """
-    e = as_float_array(residuals, "residuals", 2)
-    if dof < 1:
-        raise DataError(f"dof = {dof} must be a positive number of degrees of freedom.")
-    return NoiseEstimate(float(np.sqrt(np.sum(e**2) / dof)), "residuals", int(dof))
 
 
 def _sigma(sigma_x: float | NoiseEstimate) -> tuple[float, str]:
@@ -417,15 +362,16 @@ class FiguresOfMerit:
         ]
         heads = [f"{_HEADERS[n][0]} [{_HEADERS[n][1].format(s=self.signal_unit, u=u)}]"
                  for n in present]
-        width = max(12, *(len(h) for h in heads))
+        widths = [max(10, len(h)) for h in heads]
         name_w = max(7, *(len(row.analyte) for row in self.analytes))
         lines = [f"Figures of merit ({self.method} model)"]
         if self.condition_number is not None:
             lines.append(f"condition number of K: {self.condition_number:.4g}")
-        lines.append(f"{'analyte':<{name_w}}" + "".join(f" {h:>{width}}" for h in heads))
+        pairs = zip(heads, widths, strict=True)
+        lines.append(f"{'analyte':<{name_w}}" + "".join(f"  {h:>{w}}" for h, w in pairs))
         for row in self.analytes:
-            cells = [getattr(row, n) for n in present]
-            text = "".join(f" {'-' if v is None else format(v, '.4g'):>{width}}" for v in cells)
+            cells = ["-" if (v := getattr(row, n)) is None else format(v, ".4g") for n in present]
+            text = "".join(f"  {c:>{w}}" for c, w in zip(cells, widths, strict=True))
             lines.append(f"{row.analyte:<{name_w}}{text}")
         origins = sorted({row.sigma_x_origin for row in self.analytes})
         lines.append(f"σx from: {', '.join(origins)}")
