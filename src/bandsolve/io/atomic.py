@@ -33,7 +33,10 @@ def atomic_write(path: str | os.PathLike[str], mode: str = "w", **open_kwargs) -
     if "b" not in mode:
         open_kwargs.setdefault("encoding", "utf-8")
     fd, tmp = tempfile.mkstemp(prefix=f".{final.name}.", suffix=".part", dir=final.parent)
+    umask = os.umask(0)
+    os.umask(umask)
     try:
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; give the usual permissions
         with os.fdopen(fd, mode, **open_kwargs) as handle:
             yield handle
             handle.flush()

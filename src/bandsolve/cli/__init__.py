@@ -1,0 +1,87 @@
+"""The ``bandsolve`` command: argument parsing only; every number comes from the API.
+
+Exit codes: 0 success; 1 internal error (a bug: please report it); 2 bad input or usage;
+3 some inputs of a batch could not be read (the others were predicted); 4 results were
+flagged and ``--fail-on-flags`` was given; 130 interrupted.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import traceback
+import warnings
+from collections.abc import Sequence
+
+from .. import __version__
+from ..errors import BandsolveError, BandsolveWarning
+
+__all__ = ["main", "EXIT_OK", "EXIT_INTERNAL", "EXIT_INPUT", "EXIT_PARTIAL", "EXIT_FLAGGED"]
+
+EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_PARTIAL, EXIT_FLAGGED = 0, 1, 2, 3, 4
+
+
+def _command_modules():
+    from . import build_cmd, demo_cmd, design_cmd, inspect_cmd, predict_cmd
+
+    return [demo_cmd, build_cmd, predict_cmd, inspect_cmd, design_cmd]
+
+
+class _Parser(argparse.ArgumentParser):
+    """Usage errors as one line with the exit code for bad input."""
+
+    def error(self, message: str):  # type: ignore[override]
+        self.exit(EXIT_INPUT, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The full argument parser, with one subcommand per module in :mod:`bandsolve.cli`."""
+    parser = _Parser(
+        prog="bandsolve",
+        description="Resolve overlapping UV-Vis absorption bands into concentrations: plan "
+                    "standards, build CLS or PLS calibrations, validate them, and predict "
+                    "routine samples with uncertainties and flags.",
+        epilog="Start with:  bandsolve demo --out demo-output",
+    )
+    parser.add_argument("--version", action="version", version=f"bandsolve {__version__}")
+    sub = parser.add_subparsers(title="commands", metavar="COMMAND", parser_class=_Parser)
+    for module in _command_modules():
+        module.register(sub)
+    return parser
+
+
+def _one_line_warning(message, category, filename, lineno, file=None, line=None):
+    prefix = "warning" if issubclass(category, BandsolveWarning) else category.__name__
+    print(f"bandsolve: {prefix}: {message}", file=sys.stderr)
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line; returns the exit code (see module docstring)."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not hasattr(args, "func"):
+        parser.print_help()
+        return EXIT_INPUT
+    warnings.showwarning = _one_line_warning
+    try:
+        return int(args.func(args) or 0)
+    except BandsolveError as exc:
+        print(f"bandsolve: error: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except (FileNotFoundError, IsADirectoryError, PermissionError) as exc:
+        print(f"bandsolve: error: {exc.filename}: {exc.strerror}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("bandsolve: interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # a bug: one line by default, the traceback on request
+        if os.environ.get("BANDSOLVE_DEBUG"):
+            traceback.print_exc()
+        print(f"bandsolve: internal error: {type(exc).__name__}: {exc} (set BANDSOLVE_DEBUG=1 "
+              "for details and please report it)", file=sys.stderr)
+        return EXIT_INTERNAL
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

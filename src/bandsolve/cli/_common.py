@@ -1,0 +1,46 @@
+"""Options and helpers shared by several subcommands."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+import pandas as pd
+
+from ..io.atomic import atomic_write
+
+
+def add_input_options(parser: argparse.ArgumentParser) -> None:
+    """Options that say how to read spectra files."""
+    g = parser.add_argument_group("reading spectra")
+    g.add_argument("--layout", choices=["auto", "wide", "transposed", "long"], default="auto",
+                   help="CSV layout (default: detect)")
+    g.add_argument("--axis-unit", choices=["nm", "um", "cm-1"], default=None,
+                   help="unit of the spectral axis (default: from the file or its range)")
+    g.add_argument("--quantity", default="absorbance",
+                   choices=["absorbance", "transmittance", "percent_transmittance"],
+                   help="what the values are (default: absorbance)")
+    g.add_argument("--path-length", type=float, default=None, metavar="CM",
+                   help="cell path length in cm, checked against the model")
+    g.add_argument("--replicates", choices=["error", "average"], default="error",
+                   help="spectra sharing an id: refuse (default) or average them")
+
+
+def read_options(args: argparse.Namespace) -> dict:
+    """Keyword arguments for :func:`bandsolve.io.read_spectra` from parsed options."""
+    return {"layout": args.layout, "axis_unit": args.axis_unit, "quantity": args.quantity,
+            "path_length_cm": args.path_length, "replicates": args.replicates}
+
+
+def write_table(frame: pd.DataFrame, out: str | None) -> None:
+    """CSV to ``out`` atomically, or to standard output when ``out`` is None or ``-``."""
+    if out in (None, "-"):
+        frame.to_csv(sys.stdout, index=False)
+    else:
+        with atomic_write(out, "w", newline="") as handle:
+            frame.to_csv(handle, index=False)
+
+
+def eprint(*parts: object) -> None:
+    """Print to standard error (progress and summaries that must not mix with CSV output)."""
+    print(*parts, file=sys.stderr)

@@ -1,0 +1,178 @@
+"""``bandsolve build``: fit a CLS or PLS calibration and save it as a model file."""
+
+from __future__ import annotations
+
+import argparse
+import re
+from pathlib import Path
+
+import numpy as np
+
+from ..build import build_cls, build_cls_from_absorptivities
+from ..bundle import save_model, sha256_file
+from ..concentrations import ConcentrationTable
+from ..errors import BandsolveError
+from ..io import read_absorptivities, read_concentrations, read_spectra
+from ..model import Calibration
+from ..preprocess import parse_window
+from ._common import add_input_options, eprint, read_options
+
+EXAMPLES = """\
+examples:
+  # CLS from standards or calibration mixtures, with a background term
+  bandsolve build --method cls --spectra cal_spectra.csv --concentrations cal_conc.csv \\
+      --intercept --window 400-700 --out models/rinse-cls.bsm
+
+  # CLS from an absorptivity table (no standards), 1 cm cell
+  bandsolve build --method cls --absorptivity eps.csv --path-length 1.0 --out eps.bsm
+
+  # PLS with the number of components chosen by cross-validation
+  bandsolve build --method pls --spectra cal_spectra.csv --concentrations cal_conc.csv \\
+      --cv blinds:5 --select randomization --out models/rinse-pls.bsm
+"""
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("build", help="build a CLS or PLS calibration model",
+                       description="Build a calibration and save it as a model file.",
+                       epilog=EXAMPLES, formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("--method", choices=["cls", "pls"], default="cls")
+    p.add_argument("--spectra", metavar="FILE", help="calibration spectra (file or folder)")
+    p.add_argument("--concentrations", metavar="FILE", help="known concentrations (CSV)")
+    p.add_argument("--absorptivity", metavar="FILE",
+                   help="CLS only: absorptivity table instead of standards (needs --path-length)")
+    p.add_argument("--out", metavar="MODEL", required=True, help="model file to write")
+    p.add_argument("--window", metavar="RANGES", help="axis ranges to use, e.g. 400-700")
+    p.add_argument("--blank", metavar="FILE", help="blank spectra subtracted from calibration")
+    p.add_argument("--ceiling", type=float, default=2.0, metavar="AU",
+                   help="photometric ceiling in absorbance units (default 2.0)")
+    c = p.add_argument_group("CLS options")
+    c.add_argument("--intercept", action="store_true", help="estimate a background spectrum")
+    c.add_argument("--baseline", choices=["none", "offset", "linear", "quadratic"],
+                   default="none", help="baseline terms solved at prediction (default none)")
+    c.add_argument("--alpha", type=float, default=0.01,
+                   help="significance level of the residual limit (default 0.01)")
+    s = p.add_argument_group("PLS options")
+    s.add_argument("--components", default="auto", help="auto (by cross-validation) or N")
+    s.add_argument("--max-components", type=int, default=15, metavar="N")
+    s.add_argument("--cv", default="blinds:10",
+                   help="blocks:K | blinds:K | random:K | random:KxR | loo | groups:COLUMN | "
+                        "groups:~REGEX (group by sample id)  (default blinds:10)")
+    s.add_argument("--select", choices=["randomization", "one-se", "min"],
+                   default="randomization", help="component selection rule")
+    s.add_argument("--select-alpha", type=float, default=0.05, metavar="ALPHA")
+    mode = s.add_mutually_exclusive_group()
+    mode.add_argument("--pls1", dest="mode", action="store_const", const="pls1",
+                      help="one model per analyte")
+    mode.add_argument("--pls2", dest="mode", action="store_const", const="pls2",
+                      help="one model for all analytes (default)")
+    s.add_argument("--scale", action="store_true", help="autoscale wavelengths")
+    s.add_argument("--savgol-window", type=int, metavar="POINTS",
+                   help="Savitzky–Golay window (odd number of points)")
+    s.add_argument("--derivative", type=int, choices=[0, 1, 2], default=0)
+    s.add_argument("--offset", action="store_true", help="remove each spectrum's mean offset")
+    add_input_options(p)
+    p.set_defaults(func=run, mode="pls2")
+
+
+def _fingerprints(args: argparse.Namespace) -> dict:
+    files = []
+    for role in ("spectra", "concentrations", "absorptivity", "blank"):
+        path = getattr(args, role)
+        if path and Path(path).is_file():
+            files.append({"role": role, "name": Path(path).name, "sha256": sha256_file(path)})
+    return {"training_files": files}
+
+
+def split_groups(
+    table: ConcentrationTable, cv: str
+) -> tuple[ConcentrationTable, np.ndarray | None]:
+    """Group labels for ``groups:COLUMN`` (a table column) or ``groups:~REGEX`` (sample ids)."""
+    if not cv.startswith("groups:"):
+        return table, None
+    key = cv[len("groups:"):]
+    if key.startswith("~"):
+        rx = re.compile(key[1:])
+        labels = []
+        for s in table.sample_ids:
+            m = rx.search(s)
+            if m is None:
+                raise BandsolveError(
+                    f"sample id {s!r} does not match the group pattern {key[1:]!r}"
+                )
+            labels.append(m.group(1) if m.groups() else m.group(0))
+        return table, np.asarray(labels)
+    if key not in table.analytes:
+        raise BandsolveError(f"group column {key!r} is not in the concentration table "
+                             f"(columns: {', '.join(table.analytes)})")
+    j = table.analytes.index(key)
+    keep = [i for i in range(len(table.analytes)) if i != j]
+    rest = ConcentrationTable(table.sample_ids, [table.analytes[i] for i in keep],
+                              table.values[:, keep], table.source)
+    return rest, np.asarray(table.values[:, j])
+
+
+def build_from_args(args: argparse.Namespace) -> Calibration:
+    """The calibration the options describe (no file written)."""
+    window = parse_window(args.window) if args.window else None
+    prov = _fingerprints(args)
+    if args.absorptivity:
+        if args.path_length is None:
+            raise BandsolveError("--absorptivity needs --path-length CM (the cell path length)")
+        eps = read_absorptivities(args.absorptivity, axis_unit=args.axis_unit)
+        return build_cls_from_absorptivities(eps, args.path_length, baseline=args.baseline,
+                                             window=window, ceiling=args.ceiling,
+                                             provenance=prov)
+    if not (args.spectra and args.concentrations):
+        raise BandsolveError("give --spectra and --concentrations (or --absorptivity for CLS)")
+    spectra = read_spectra(args.spectra, **read_options(args))
+    table = read_concentrations(args.concentrations)
+    blank = read_spectra(args.blank, **read_options(args)) if args.blank else None
+    if args.method == "cls":
+        return build_cls(spectra, table, intercept=args.intercept, baseline=args.baseline,
+                         window=window, blank=blank, alpha=args.alpha, ceiling=args.ceiling,
+                         provenance=prov)
+    from ..build_pls import build_pls
+
+    table, groups = split_groups(table, args.cv)
+    components = "auto" if args.components == "auto" else int(args.components)
+    return build_pls(spectra, table, components=components, max_components=args.max_components,
+                     cv=args.cv if groups is None else "groups", groups=groups,
+                     select=args.select, alpha=args.select_alpha, mode=args.mode,
+                     scale=args.scale, window=window, savgol_window=args.savgol_window,
+                     derivative=args.derivative, offset=args.offset, blank=blank,
+                     ceiling=args.ceiling, provenance=prov)
+
+
+def selection_table(cal: Calibration) -> str:
+    """The RMSECV curve as a compact text table with the chosen point marked."""
+    sel = cal.selection or {}
+    counts = sel.get("settings") or []
+    if not counts:
+        return ""
+    rms = np.asarray(sel["rmsecv"], dtype=float)
+    pvals = sel.get("pvalues")
+    header = "  A  " + "  ".join(f"{a[:14]:>14}" for a in cal.analytes) + "   total"
+    header += "   p-value" if pvals else ""
+    lines = [f"RMSECV by number of components ({sel.get('rule')}, chosen: "
+             f"{sel.get('n_components')})", header]
+    for i, a in enumerate(counts):
+        mark = "*" if a == sel.get("n_components") else " "
+        row = f"{mark}{a:>2}  " + "  ".join(f"{v:>14.4g}" for v in rms[i])
+        row += f"  {sel['rmsecv_total'][i]:>6.4g}"
+        if pvals:
+            pv = pvals[i]
+            row += f"   {pv:>7.3f}" if pv is not None and np.isfinite(pv) else "         -"
+        lines.append(row)
+    return "\n".join(lines)
+
+
+def run(args: argparse.Namespace) -> int:
+    cal = build_from_args(args)
+    checksum = save_model(cal, args.out)
+    table = selection_table(cal)
+    if table:
+        eprint(table)
+    eprint(f"{cal.method.upper()} model for {len(cal.analytes)} analytes "
+           f"({', '.join(cal.analytes)}) written to {args.out} (checksum {checksum[:12]})")
+    return 0

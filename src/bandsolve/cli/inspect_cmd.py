@@ -1,0 +1,56 @@
+"""``bandsolve inspect``: what a model file holds."""
+
+from __future__ import annotations
+
+import argparse
+import json
+
+from ..bundle import load_model
+from ..model import Calibration
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("inspect", help="show what a model file holds",
+                       description="Summarise a model file: method, analytes and ranges, axis, "
+                                   "preprocessing, limits, figures of merit and provenance.",
+                       epilog="example:\n  bandsolve inspect models/rinse-cls.bsm --json",
+                       formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("model", metavar="MODEL")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+    p.set_defaults(func=run)
+
+
+def summary_text(cal: Calibration) -> str:
+    """A readable multi-line summary of a model."""
+    d = cal.describe()
+    prov = d["provenance"]
+    lines = [
+        f"method:          {d['method'].upper()}",
+        f"axis:            {d['axis']['first']:g}-{d['axis']['last']:g} {d['axis']['unit']} "
+        f"({d['axis']['points']} points)",
+        f"preprocessing:   {d['preprocessing']}",
+        f"path length:     {d['path_length_cm'] if d['path_length_cm'] else 'not recorded'}",
+        f"ceiling:         {d['ceiling_AU']:g} AU",
+        "analytes (calibrated range):",
+    ]
+    lines += [f"  {a['label']}: {a['calibrated_min']:g} to {a['calibrated_max']:g}"
+              for a in d["analytes"]]
+    sel = d.get("selection") or {}
+    if sel:
+        lines.append(f"components:      {sel.get('n_components')} (rule: {sel.get('rule')})")
+    lines.append(f"created:         {prov.get('created')}")
+    lines.append(f"model checksum:  {prov.get('model_checksum', 'not saved yet')}")
+    for f in prov.get("training_files", []):
+        lines.append(f"trained on:      {f['role']} {f['name']} sha256 {f['sha256']}")
+    if prov.get("data_label"):
+        lines.append(f"data:            {prov['data_label']}")
+    return "\n".join(lines)
+
+
+def run(args: argparse.Namespace) -> int:
+    cal = load_model(args.model)
+    if args.json:
+        print(json.dumps(cal.describe(), indent=2, default=str))
+    else:
+        print(summary_text(cal))
+    return 0

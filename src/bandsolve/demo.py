@@ -1,0 +1,176 @@
+"""The bundled demo: an invented dye-house rinse-water monitor.
+
+Everything here is INVENTED for demonstration: three fictitious dyes (dye A, dye B, dye C)
+with broad, heavily overlapping visible bands built from Gaussian shapes, calibration
+mixtures from a 5-level cyclic design, a validation set, blank replicates, and two routine
+batches, the second of which carries a fourth absorber the calibration has never seen. The
+data are generated with a fixed random state so the files are the same on every machine.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .io.atomic import atomic_write
+
+__all__ = ["DEMO_LABEL", "DemoFiles", "write_demo_data", "demo_pure_spectra"]
+
+DEMO_LABEL = ("INVENTED demo data (bandsolve dye-house rinse-water scenario, generated with a "
+              "fixed random state); not measurements of any real substance")
+RANDOM_STATE = 20261201
+WAVELENGTHS = np.arange(380.0, 722.0, 2.0)  # nm
+NOISE_AU = 0.002
+PATH_LENGTH_CM = 1.0
+#: (name, unit, low, high, bands as (centre nm, width nm, peak AU per unit concentration))
+DYES = (
+    ("dye A", "mg/L", 0.0, 12.0, ((432.0, 38.0, 0.050), (478.0, 30.0, 0.018))),
+    ("dye B", "mg/L", 0.0, 10.0, ((508.0, 42.0, 0.060), (548.0, 30.0, 0.025))),
+    ("dye C", "mg/L", 0.0, 8.0, ((590.0, 45.0, 0.070), (632.0, 32.0, 0.030))),
+)
+#: The unexpected absorber in routine batch 2 (also invented): a band the model never saw.
+INTRUDER = ((655.0, 28.0, 0.25), (450.0, 60.0, 0.05))
+
+
+@dataclass
+class DemoFiles:
+    """Paths of the generated demo files."""
+
+    folder: Path
+    calibration_spectra: Path
+    calibration_concentrations: Path
+    validation_spectra: Path
+    validation_concentrations: Path
+    blanks: Path
+    routine: list[Path] = field(default_factory=list)
+
+
+def _bands(spec: tuple[tuple[float, float, float], ...]) -> np.ndarray:
+    return sum(h * np.exp(-0.5 * ((WAVELENGTHS - c) / w) ** 2) for c, w, h in spec)
+
+
+def demo_pure_spectra() -> np.ndarray:
+    """The invented pure-component spectra, absorbance per mg/L in a 1 cm cell, (3, p)."""
+    return np.vstack([_bands(d[4]) for d in DYES])
+
+
+def analyte_labels() -> list[str]:
+    """Analyte column labels of the demo, with units."""
+    return [f"{name} [{unit}]" for name, unit, *_ in DYES]
+
+
+def _measure(conc: np.ndarray, rng: np.random.Generator, intruder: np.ndarray | None = None
+             ) -> np.ndarray:
+    """Absorbance = Beer's law mixture + small cell offset + white noise (all invented)."""
+    A = conc @ demo_pure_spectra()
+    A += rng.normal(0.0, 0.001, (len(conc), 1))  # cell positioning offset
+    A += rng.normal(0.0, NOISE_AU, A.shape)
+    if intruder is not None:
+        A += intruder[:, None] * _bands(INTRUDER)[None, :]
+    return A
+
+
+def _write_spectra(path: Path, ids: list[str], A: np.ndarray, note: str) -> None:
+    frame = pd.DataFrame(np.round(A, 5), columns=[f"{w:g}" for w in WAVELENGTHS])
+    frame.insert(0, "sample", ids)
+    with atomic_write(path, "w", newline="") as handle:
+        handle.write(f"# {DEMO_LABEL}\n# {note}\n# quantity: absorbance\n# axis_unit: nm\n"
+                     f"# path_length_cm: {PATH_LENGTH_CM:g}\n")
+        frame.to_csv(handle, index=False)
+
+
+def _write_conc(path: Path, frame: pd.DataFrame) -> None:
+    with atomic_write(path, "w", newline="") as handle:
+        handle.write(f"# {DEMO_LABEL}\n")
+        frame.round(4).to_csv(handle, index_label="sample")
+
+
+def write_demo_data(folder: str | Path) -> DemoFiles:
+    """Generate the invented demo files into ``folder`` (same content on every run)."""
+    from .design import calibration_plan, parse_analyte_range
+
+    folder = Path(folder)
+    rng = np.random.default_rng(RANDOM_STATE)
+    ranges = [parse_analyte_range(f"{n}={lo:g}-{hi:g} {u}") for n, u, lo, hi, _ in DYES]
+    plan = calibration_plan(ranges, levels=5, n_validation=8, validation_decimals=2,
+                            random_state=RANDOM_STATE)
+    conc = plan.concentrations
+    cal = conc[conc.index.str.startswith("cal")]
+    val = conc[conc.index.str.startswith("val")]
+    files = DemoFiles(
+        folder=folder,
+        calibration_spectra=folder / "calibration_spectra.csv",
+        calibration_concentrations=folder / "calibration_concentrations.csv",
+        validation_spectra=folder / "validation_spectra.csv",
+        validation_concentrations=folder / "validation_concentrations.csv",
+        blanks=folder / "blank_spectra.csv",
+    )
+    _write_spectra(files.calibration_spectra, list(cal.index), _measure(cal.to_numpy(), rng),
+                   "calibration mixtures of a 5-level cyclic design")
+    _write_conc(files.calibration_concentrations, cal)
+    _write_spectra(files.validation_spectra, list(val.index), _measure(val.to_numpy(), rng),
+                   "independent validation mixtures")
+    _write_conc(files.validation_concentrations, val)
+    _write_spectra(files.blanks, [f"blank-{i:02d}" for i in range(1, 11)],
+                   _measure(np.zeros((10, 3)), rng), "replicate blanks (rinse water, no dye)")
+    lows = np.array([d[2] for d in DYES])
+    highs = np.array([d[3] for d in DYES])
+    batch1 = lows + rng.uniform(0.1, 0.9, (6, 3)) * (highs - lows)
+    batch2 = lows + rng.uniform(0.1, 0.9, (5, 3)) * (highs - lows)
+    intruder = np.array([0.0, 0.0, 1.0, 0.0, 0.6])
+    for name, c, extra, note in (
+        ("batch-1", batch1, None, "routine rinse samples"),
+        ("batch-2", batch2, intruder,
+         "routine rinse samples; two carry an unexpected fourth absorber"),
+    ):
+        path = folder / "routine" / f"{name}.csv"
+        ids = [f"{name}-{i:02d}" for i in range(1, len(c) + 1)]
+        _write_spectra(path, ids, _measure(c, rng, extra), note)
+        files.routine.append(path)
+    truth = pd.DataFrame(np.vstack([batch1, batch2]), columns=analyte_labels(),
+                         index=[f"batch-1-{i:02d}" for i in range(1, 7)]
+                         + [f"batch-2-{i:02d}" for i in range(1, 6)])
+    _write_conc(folder / "routine_true_concentrations.csv", truth)
+    return files
+
+
+@dataclass
+class DemoRun:
+    """What :func:`run_demo` produced."""
+
+    files: DemoFiles
+    model_path: Path
+    results_path: Path
+    results: pd.DataFrame
+    outputs: dict[str, Path] = field(default_factory=dict)
+
+
+def run_demo(folder: str | Path) -> DemoRun:
+    """Generate the invented data, build a CLS model, predict both routine batches.
+
+    Files go under ``folder``: the data, ``models/rinse-cls.bsm`` and ``results.csv``.
+    """
+    from .build import build_cls
+    from .bundle import save_model, sha256_file
+    from .io import read_concentrations, read_spectra
+    from .predict import predict_inputs
+
+    folder = Path(folder)
+    files = write_demo_data(folder)
+    spectra = read_spectra(files.calibration_spectra)
+    table = read_concentrations(files.calibration_concentrations)
+    prov = {"data_label": DEMO_LABEL, "training_files": [
+        {"role": role, "name": p.name, "sha256": sha256_file(p)}
+        for role, p in (("spectra", files.calibration_spectra),
+                        ("concentrations", files.calibration_concentrations))]}
+    model = build_cls(spectra, table, provenance=prov)
+    model_path = folder / "models" / "rinse-cls.bsm"
+    save_model(model, model_path)
+    batch = predict_inputs(model, [str(p) for p in files.routine])
+    results_path = folder / "results.csv"
+    with atomic_write(results_path, "w", newline="") as handle:
+        batch.table.to_csv(handle, index=False)
+    return DemoRun(files, model_path, results_path, batch.table)
