@@ -53,7 +53,10 @@ class ConcentrationTable:
     def __post_init__(self) -> None:
         ids = tuple(str(s) for s in self.sample_ids)
         analytes = tuple(str(a) for a in self.analytes)
-        values = np.asarray(self.values, dtype=float)
+        try:  # a copy, so freezing it never makes the caller's array read-only
+            values = np.array(self.values, dtype=float)
+        except (TypeError, ValueError) as exc:
+            raise DataError(f"{where(self.source)}concentrations must be numbers ({exc})") from None
         if values.ndim == 1:
             values = values[:, np.newaxis]
         if values.shape != (len(ids), len(analytes)):
@@ -106,6 +109,11 @@ class ConcentrationTable:
     def subset(self, ids: Sequence[str]) -> ConcentrationTable:
         """Rows for ``ids``, in that order."""
         pos = {s: i for i, s in enumerate(self.sample_ids)}
+        missing = [s for s in ids if s not in pos]
+        if missing:
+            raise DataError(
+                f"{where(self.source)}no concentration row for sample(s) {_few(missing)}"
+            )
         idx = [pos[s] for s in ids]
         return ConcentrationTable(tuple(ids), self.analytes, self.values[idx], self.source)
 

@@ -18,7 +18,10 @@ import pandas as pd
 from .errors import BandsolveWarning, DataError, where
 from .units import convert_axis_values, guess_axis_unit, normalise_unit
 
-__all__ = ["QUANTITIES", "DEFAULT_CEILING_AU", "SpectralSet", "concat"]
+__all__ = [
+    "QUANTITIES", "DEFAULT_CEILING_AU", "SpectralSet", "concat", "window_mask",
+    "warn_if_ambiguous_unit",
+]
 
 #: Photometric quantities a set may hold. ``absorptivity`` is a pure-component spectrum
 #: per unit concentration and unit path length (for example ε in L mol⁻¹ cm⁻¹).
@@ -65,8 +68,12 @@ class SpectralSet:
 
     def __post_init__(self) -> None:
         src = self.source
-        axis = np.asarray(self.axis, dtype=float)
-        values = np.asarray(self.values, dtype=float)
+        # Copies: freezing below must never make the caller's own arrays read-only.
+        try:
+            axis = np.array(self.axis, dtype=float)
+            values = np.array(self.values, dtype=float)
+        except (TypeError, ValueError) as exc:
+            raise DataError(f"{where(src)}axis and values must be numbers ({exc})") from None
         ids = tuple(str(s) for s in self.sample_ids)
         if axis.ndim != 1 or axis.size < 1:
             raise DataError(f"{where(src)}the axis must be a non-empty 1-D list of values")
@@ -173,9 +180,9 @@ class SpectralSet:
 
     def check_quantity(self) -> None:
         """Warn when declared absorbance looks like percent transmittance (values 5-100)."""
-        if self.quantity != "absorbance":
-            return
         v = self.values
+        if self.quantity != "absorbance" or v.size == 0:
+            return
         if np.median(v) > 5 and np.max(v) <= 100.5 and np.min(v) >= -0.5:
             warnings.warn(
                 f"{where(self.source)}values between {v.min():.3g} and {v.max():.3g} look like "
@@ -219,6 +226,9 @@ class SpectralSet:
             uncovered range. Extrapolation is never done.
         """
         target = np.asarray(axis, dtype=float)
+        if target.ndim != 1 or target.size == 0:
+            raise DataError(f"{where(self.source)}the target axis must be a non-empty 1-D list")
+        _check_axis(target, self.source)
         lo, hi = self.axis[0], self.axis[-1]
         slack = tolerance * max(abs(lo), abs(hi), 1.0)
         if target.min() < lo - slack or target.max() > hi + slack:
@@ -251,6 +261,11 @@ class SpectralSet:
         sel = np.asarray(list(ids_or_mask) if not isinstance(ids_or_mask, np.ndarray)
                          else ids_or_mask)
         if sel.dtype == bool:
+            if sel.shape != (self.n_samples,):
+                raise DataError(
+                    f"{where(self.source)}a selection mask needs one entry per spectrum "
+                    f"({self.n_samples}), got shape {sel.shape}"
+                )
             idx = np.flatnonzero(sel)
         else:
             pos = {s: i for i, s in enumerate(self.sample_ids)}
@@ -269,7 +284,8 @@ class SpectralSet:
         if len(labels) != self.n_samples:
             raise DataError("average_by needs one label per spectrum")
         order = list(dict.fromkeys(labels))
-        codes = np.array([order.index(s) for s in labels])
+        position = {s: k for k, s in enumerate(order)}
+        codes = np.array([position[s] for s in labels], dtype=int)
         counts = np.bincount(codes, minlength=len(order))
         sums = np.zeros((len(order), self.n_points))
         np.add.at(sums, codes, self.values)
@@ -280,7 +296,7 @@ class SpectralSet:
         """Subtract a blank spectrum (the mean of ``blank``'s spectra) measured on the same grid."""
         if blank.quantity != "absorbance" or self.quantity != "absorbance":
             raise DataError("blank subtraction works on absorbance; convert both sets first")
-        if not self.same_grid(blank.axis):
+        if blank.axis_unit != self.axis_unit or not self.same_grid(blank.axis):
             raise DataError(
                 f"{where(blank.source)}blank is on another axis grid than {self.source or 'the'} "
                 "spectra; resample it first or measure it with the same settings"
@@ -317,6 +333,12 @@ def concat(sets: Sequence[SpectralSet]) -> SpectralSet:
                 f"differs from {first.source or 'the first set'} ({first.n_points} points, "
                 f"{first.axis[0]:g}-{first.axis[-1]:g}); resample to one grid first"
             )
+        if s.path_length_cm != first.path_length_cm:
+            raise DataError(
+                f"{where(s.source)}path length {s.path_length_cm} cm differs from "
+                f"{first.path_length_cm} cm in {first.source or 'the first set'}; spectra from "
+                "different cells must be scaled to one path length before they are combined"
+            )
     return SpectralSet(
         axis=first.axis,
         values=np.vstack([s.values for s in sets]),
@@ -352,7 +374,8 @@ def _check_ids(ids: tuple[str, ...], src: str | None) -> None:
     seen: dict[str, int] = {}
     for i, s in enumerate(ids):
         if not s.strip():
-            raise DataError(f"{where(src, row=i + 1)}empty sample id; give every spectrum an id")
+            raise DataError(f"{where(src)}spectrum {i + 1} has an empty sample id; give every "
+                            "spectrum an id")
         if s in seen:
             raise DataError(
                 f"{where(src)}sample id {s!r} appears twice (spectra {seen[s] + 1} and {i + 1}); "

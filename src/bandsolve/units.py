@@ -101,12 +101,15 @@ def convert_axis_values(values: np.ndarray, from_unit: str, to_unit: str) -> np.
 def guess_axis_unit(axis: np.ndarray) -> str | None:
     """Guess the unit of a spectral axis from its range, or return None when ambiguous.
 
-    Ranges (common practice for UV-Vis-NIR work): wavelengths in nm lie within 100-3300,
-    in µm within 0.1-3.3; wavenumbers in cm⁻¹ above 3000. Axes between 3000 and 3300 and
-    wholly inside 100-3300 are read as nm only when they do not also fit cm⁻¹ (< 400 or a
-    span typical of UV-Vis); otherwise the caller should ask the user to state the unit.
+    Ranges (common practice for UV-Vis-NIR work): an axis inside 0.1-3.3 is read as µm; inside
+    100-1100 as nm (UV-Vis); starting at or above 3300 as cm⁻¹ (no UV-Vis-NIR wavelength is that
+    long); starting below 400 and ending at or below 3300 as nm (UV-Vis-NIR, since wavenumbers
+    below 400 cm⁻¹ are far infrared). Anything else (for example 1100-3300 or 400-4000) could
+    be either, and None tells the caller to ask the user to state the unit.
     """
     arr = np.asarray(axis, dtype=float)
+    if arr.size == 0 or not np.all(np.isfinite(arr)):
+        return None
     lo, hi = float(np.min(arr)), float(np.max(arr))
     if 0.1 <= lo and hi <= 3.3:
         return "um"
@@ -114,6 +117,8 @@ def guess_axis_unit(axis: np.ndarray) -> str | None:
         return "nm"
     if lo >= 3300:
         return "cm-1"
+    if 100 <= lo < 400 and hi <= 3300:
+        return "nm"
     return None
 
 

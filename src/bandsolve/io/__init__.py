@@ -1,1 +1,90 @@
-"""Readers and writers for spectra, concentration and absorptivity tables."""
+"""Readers and writers for spectra, concentration and absorptivity tables.
+
+:func:`read_spectra` is the one entry point for spectra: a folder is read as one spectrum per
+file, a ``.jdx``/``.dx``/``.jcm``/``.jcamp`` file as JCAMP-DX, anything else as delimited text
+(wide, transposed, long or single-spectrum layout; delimiter and decimal mark sniffed).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from pathlib import Path
+
+from ..spectra import SpectralSet
+from .csv_spectra import iter_spectra_chunks as _iter_csv_chunks
+from .csv_spectra import read_spectra_text, write_spectra_csv
+from .jcamp import JCAMP_SUFFIXES, read_jcamp
+from .single import read_file, read_folder
+from .tables import read_absorptivities, read_concentrations, write_concentrations_csv
+
+__all__ = [
+    "read_spectra",
+    "read_spectra_text",
+    "iter_spectra_chunks",
+    "read_jcamp",
+    "read_concentrations",
+    "read_absorptivities",
+    "write_spectra_csv",
+    "write_concentrations_csv",
+]
+
+
+def read_spectra(path: str | Path, *, layout: str = "auto", axis_unit: str | None = None,
+                 quantity: str | None = None, path_length_cm: float | None = None,
+                 replicates: str = "error", pattern: str = "*",
+                 recursive: bool = False) -> SpectralSet:
+    """Read spectra from a text file, a JCAMP-DX file or a folder of one-spectrum files.
+
+    Parameters
+    ----------
+    path : path-like
+        File or folder.
+    layout : {"auto", "wide", "transposed", "long", "single"}
+        Layout of text files (see :mod:`bandsolve.io.csv_spectra`).
+    axis_unit : str, optional
+        ``nm``, ``um`` or ``cm-1``. Default: what the file states (``# axis_unit:`` line or
+        ``##XUNITS``), else a guess from the range (nm when unclear, with a warning).
+    quantity : str, optional
+        ``absorbance`` (default), ``transmittance`` or ``percent_transmittance``; kept as
+        read (convert with :meth:`SpectralSet.to_absorbance`). Default: what the file states.
+    path_length_cm : float, optional
+        Cell path length in cm.
+    replicates : {"error", "average"}
+        Spectra sharing an id are an error (naming the rows) or are averaged.
+    pattern : str
+        File pattern inside a folder (for example ``"*.csv"``).
+    recursive : bool
+        Also read sub-folders.
+
+    Returns
+    -------
+    SpectralSet
+        Spectra of shape (n, p) on an ascending axis.
+
+    Raises
+    ------
+    FormatError, DataError
+        With the file, line and/or sample, what is wrong and how to fix it.
+
+    Examples
+    --------
+    >>> spectra = read_spectra("standards.csv")  # doctest: +SKIP
+    """
+    options = dict(axis_unit=axis_unit, quantity=quantity, path_length_cm=path_length_cm,
+                   replicates=replicates)
+    if Path(path).is_dir():
+        return read_folder(path, pattern=pattern, recursive=recursive, layout=layout, **options)
+    return read_file(path, layout=layout, **options)
+
+
+def iter_spectra_chunks(path: str | Path, chunk_size: int, **options) -> Iterator[SpectralSet]:
+    """Yield the spectra of ``path`` in sets of at most ``chunk_size``.
+
+    Wide text files are streamed line by line (memory bounded whatever the file length; the
+    options are ``axis_unit``, ``quantity``, ``path_length_cm``); other inputs (JCAMP-DX files,
+    folders) are read whole with :func:`read_spectra` and yielded as one set.
+    """
+    if Path(path).is_dir() or Path(path).suffix.lower() in JCAMP_SUFFIXES:
+        yield read_spectra(path, **options)
+        return
+    yield from _iter_csv_chunks(path, chunk_size, **options)
