@@ -109,6 +109,9 @@ def noise_from_residuals(residuals: object, dof: int) -> NoiseEstimate:
         Spectral residuals (AU).
     dof : int
         Total residual degrees of freedom of the matrix, e.g. ``p (n - m')`` for CLS.
+    References
+    ----------
+    Haaland, D. M. & Thomas, E. V. (1988). Anal. Chem. 60, 1193-1202.
     """
     e = as_float_array(residuals, "residuals", 2)
     if dof < 1:

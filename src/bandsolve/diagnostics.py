@@ -194,7 +194,12 @@ def leverage_limit(n_components: int, n_calibration: int, factor: float = 3.0) -
 
 
 def q_residuals(residuals: object) -> np.ndarray:
-    """Q (squared prediction error) ``‖e_u‖²`` per row of a residual matrix (AU²)."""
+    """Q (squared prediction error) ``‖e_u‖²`` per row of a residual matrix (AU²).
+
+    References
+    ----------
+    Jackson, J. E. & Mudholkar, G. S. (1979). Technometrics 21, 341-349.
+    """
     e = as_float_array(residuals, "residuals", (1, 2))
     return np.einsum("...j,...j->...", e, e)
 
@@ -213,6 +218,9 @@ def residual_eigenvalues(residuals: object) -> np.ndarray:
     -------
     ndarray, shape (min(n, p),)
         Eigenvalues (AU²).
+    References
+    ----------
+    Jackson, J. E. & Mudholkar, G. S. (1979). Technometrics 21, 341-349.
     """
     e = as_float_array(residuals, "residuals", 2)
     n, p = e.shape
