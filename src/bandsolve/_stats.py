@@ -109,6 +109,7 @@ def noise_from_residuals(residuals: object, dof: int) -> NoiseEstimate:
         Spectral residuals (AU).
     dof : int
         Total residual degrees of freedom of the matrix, e.g. ``p (n - m')`` for CLS.
+
     References
     ----------
     Haaland, D. M. & Thomas, E. V. (1988). Anal. Chem. 60, 1193-1202.

@@ -218,6 +218,7 @@ def residual_eigenvalues(residuals: object) -> np.ndarray:
     -------
     ndarray, shape (min(n, p),)
         Eigenvalues (AU²).
+
     References
     ----------
     Jackson, J. E. & Mudholkar, G. S. (1979). Technometrics 21, 341-349.

@@ -105,6 +105,7 @@ def blank_leverage(calibration_design: object, blank_composition: object) -> flo
         Calibration concentrations, with the ones column if the model has an intercept.
     blank_composition : array_like, shape (m',)
         The blank in the same columns (zeros, and 1 for the intercept).
+
     References
     ----------
     Olivieri, A. C. et al. (2006). Pure Appl. Chem. 78, 633-661.
