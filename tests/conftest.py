@@ -1,0 +1,30 @@
+"""Shared test helpers: simulated overlapping bands and the path to the shared datasets."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+DATASETS = Path(__file__).resolve().parents[1].parent / "shared" / "datasets"
+
+
+def gaussian_bands(axis: np.ndarray, centres, widths) -> np.ndarray:
+    """Unit-height Gaussian bands, one row per (centre, width): broad overlapping UV-Vis bands."""
+    return np.vstack([np.exp(-0.5 * ((axis - c) / w) ** 2) for c, w in zip(centres, widths)])
+
+
+@pytest.fixture
+def three_bands():
+    """Axis (nm) and pure spectra (3 × p, AU per unit concentration) with heavy overlap."""
+    axis = np.linspace(400.0, 700.0, 151)
+    return axis, gaussian_bands(axis, (480, 530, 590), (40, 45, 40))
+
+
+def dataset(name: str) -> Path:
+    """Folder of a shared dataset, or skip the test when the datasets are not present."""
+    folder = DATASETS / name
+    if not folder.is_dir():
+        pytest.skip(f"shared dataset {name} not available at {folder}")
+    return folder
