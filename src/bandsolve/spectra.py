@@ -269,7 +269,7 @@ class SpectralSet:
             idx = np.flatnonzero(sel)
         else:
             pos = {s: i for i, s in enumerate(self.sample_ids)}
-            missing = [s for s in sel if s not in pos]
+            missing = [str(s) for s in sel if s not in pos]
             if missing:
                 raise DataError(f"{where(self.source)}no spectrum for sample(s) {missing[:5]}")
             idx = np.array([pos[s] for s in sel], dtype=int)
