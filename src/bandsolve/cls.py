@@ -11,10 +11,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg, stats
+from scipy import linalg
 from sklearn.base import BaseEstimator, RegressorMixin
 from sklearn.utils.validation import check_is_fitted, validate_data
 
+from .diagnostics import f_limit_from_values
 from .errors import ModelError
 
 __all__ = ["BASELINE_TERMS", "CLSRegressor", "CLSPrediction"]
@@ -148,7 +149,7 @@ class CLSRegressor(RegressorMixin, BaseEstimator):
         dof_cal = p * (n - C.shape[1])
         self.s2_cal_ = float(np.sum(resid**2) / dof_cal) if dof_cal > 0 else float("nan")
         self.cv_f_ratios_ = self._loo_f_ratios(X, C) if n > C.shape[1] + 1 else np.array([])
-        self.residual_limit_ = _scaled_chi2_limit(self.cv_f_ratios_, self.alpha)
+        self.residual_limit_ = _residual_limit(self.cv_f_ratios_, self.alpha)
         return self
 
     @classmethod
@@ -268,13 +269,9 @@ class CLSRegressor(RegressorMixin, BaseEstimator):
         return tags
 
 
-def _scaled_chi2_limit(values: np.ndarray, alpha: float) -> float:
-    """Upper (1 − α) limit of g·χ²_h matched to the mean and variance of ``values`` (Box 1954)."""
-    values = np.asarray(values, dtype=float)
-    if values.size < 3 or not np.all(np.isfinite(values)):
+
+def _residual_limit(f_ratios: np.ndarray, alpha: float) -> float:
+    """Box scaled-χ² limit of the leave-one-out F ratios; NaN with fewer than 3 of them."""
+    if f_ratios.size < 3:
         return float("nan")
-    mean, var = values.mean(), values.var(ddof=1)
-    if var <= 0:
-        return float(mean)
-    g, h = var / (2 * mean), 2 * mean**2 / var
-    return float(g * stats.chi2.ppf(1 - alpha, h))
+    return f_limit_from_values(f_ratios, alpha, method="box").value
