@@ -113,7 +113,7 @@ def sniff(lines: Sequence[str], source: str) -> Dialect:
         width = len(rows[0])
         if width < 2:
             continue
-        cells = [c.strip() for r in rows for c in r[1:]]
+        cells = [c.strip() for r in rows for c in r]
         decimal = _decimal_mark(cells, delim)
         consistent = sum(len(r) == width for r in rows) / len(rows)
         numeric = sum(_is_number(c, decimal) for c in cells) / max(len(cells), 1)

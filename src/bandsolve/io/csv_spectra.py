@@ -121,9 +121,11 @@ def _detect(rows: list[Row], dialect: Dialect, source: str) -> str:
         len(rows) > 1 or header_numeric
     ):
         return "single"
-    if width == 3 and len(first_col) > len(set(first_col)) and all(
-        _numeric(r.cells[1:], dialect) for r in rows[1:]
-    ):
+    # Long: ids repeat down the first column; the first line is a text header or itself a
+    # data line whose id recurs (a wide header's first cell does not reappear as an id).
+    if width == 3 and len(first_col) > len(set(first_col)) and (
+        not header_numeric or rows[0].cells[0] in first_col
+    ) and all(_numeric(r.cells[1:], dialect) for r in rows[1:]):
         return "long"
     first_col_axis = len(first_col) > 1 and _monotonic(first_col, dialect)
     if header_numeric and not first_col_axis:
