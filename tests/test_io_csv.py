@@ -188,7 +188,8 @@ _IDS = st.text(string.ascii_letters + string.digits + "-_ .", min_size=1, max_si
     lambda s: s == s.strip())
 
 
-@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(max_examples=40, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(
     st.integers(1, 6).flatmap(lambda n: st.tuples(
         st.lists(_IDS, min_size=n, max_size=n, unique=True),
