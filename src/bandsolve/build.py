@@ -16,7 +16,8 @@ from .model import Calibration
 from .preprocess import SpectralPreprocessor
 from .spectra import DEFAULT_CEILING_AU, SpectralSet
 
-__all__ = ["build_cls", "build_cls_from_absorptivities", "library_versions", "training_arrays"]
+__all__ = ["build_cls", "build_cls_from_absorptivities", "check_ceiling", "library_versions",
+           "provenance_record", "training_arrays"]
 
 
 def library_versions() -> dict[str, str]:
@@ -33,7 +34,8 @@ def library_versions() -> dict[str, str]:
     }
 
 
-def _provenance(extra: dict[str, Any] | None, n_samples: int) -> dict[str, Any]:
+def provenance_record(extra: dict[str, Any] | None, n_samples: int) -> dict[str, Any]:
+    """Creation time, library versions and sample count, plus ``extra`` (file fingerprints)."""
     record = {
         "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
         "versions": library_versions(),
@@ -59,7 +61,8 @@ def training_arrays(spectra: SpectralSet, table: ConcentrationTable,
     return spectra, np.asarray(table.values)
 
 
-def _ceiling_check(spectra: SpectralSet, mask: np.ndarray, ceiling: float) -> None:
+def check_ceiling(spectra: SpectralSet, mask: np.ndarray, ceiling: float) -> None:
+    """Refuse calibration spectra above the photometric ceiling inside the used range."""
     over = np.max(spectra.values[:, mask], axis=1) > ceiling
     if over.any():
         ids = [s for s, o in zip(spectra.sample_ids, over, strict=True) if o]
@@ -102,7 +105,7 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
     """
     spectra, C = training_arrays(spectra, table, blank)
     pre = SpectralPreprocessor(axis=spectra.axis, window=window).fit(spectra.values)
-    _ceiling_check(spectra, pre.mask_, ceiling)
+    check_ceiling(spectra, pre.mask_, ceiling)
     Z = pre.transform(spectra.values)
     est = CLSRegressor(fit_intercept=intercept, baseline=baseline, wavelengths=pre.axis_out_,
                        alpha=alpha).fit(Z, C)
@@ -117,7 +120,7 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
         preprocessor=pre, estimators=[est],
         calibrated_range=np.column_stack([C.min(axis=0), C.max(axis=0)]),
         settings=settings, path_length_cm=spectra.path_length_cm, ceiling=ceiling,
-        limits=limits, provenance=_provenance(provenance, len(C)),
+        limits=limits, provenance=provenance_record(provenance, len(C)),
     )
 
 
@@ -158,5 +161,5 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
                   "path_length_cm": path_length_cm},
         path_length_cm=path_length_cm, ceiling=ceiling,
         limits={"residual": {"method": "none (no calibration residuals)", "value": None}},
-        provenance=_provenance(provenance, 0),
+        provenance=provenance_record(provenance, 0),
     )

@@ -145,26 +145,25 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
 
 
 def selection_table(cal: Calibration) -> str:
-    """The RMSECV curve as a compact text table with the chosen point marked."""
-    sel = cal.selection or {}
-    counts = sel.get("settings") or []
-    if not counts:
-        return ""
-    rms = np.asarray(sel["rmsecv"], dtype=float)
-    pvals = sel.get("pvalues")
-    header = "  A  " + "  ".join(f"{a[:14]:>14}" for a in cal.analytes) + "   total"
-    header += "   p-value" if pvals else ""
-    lines = [f"RMSECV by number of components ({sel.get('rule')}, chosen: "
-             f"{sel.get('n_components')})", header]
-    for i, a in enumerate(counts):
-        mark = "*" if a == sel.get("n_components") else " "
-        row = f"{mark}{a:>2}  " + "  ".join(f"{v:>14.4g}" for v in rms[i])
-        row += f"  {sel['rmsecv_total'][i]:>6.4g}"
-        if pvals:
-            pv = pvals[i]
-            row += f"   {pv:>7.3f}" if pv is not None and np.isfinite(pv) else "         -"
-        lines.append(row)
-    return "\n".join(lines)
+    """The RMSECV curve of each PLS model as a compact text table, chosen count marked ``*``."""
+    models = (cal.selection or {}).get("models") or []
+    blocks = []
+    for i, ev in enumerate(models):
+        names = list(cal.analytes) if len(models) == 1 else [cal.analytes[i]]
+        rms = np.asarray(ev["rmsecv"], dtype=float)
+        pvals = ev.get("pvalues")
+        lines = [f"RMSECV by number of components ({ev['rule']}, chosen: {ev['n_components']})",
+                 "   A " + "".join(f"{a[:16]:>18}" for a in names)
+                 + ("   p-value" if pvals else "")]
+        for j, a in enumerate(ev["settings"]):
+            mark = "*" if a == ev["n_components"] else " "
+            row = f" {mark}{a:>2} " + "".join(f"{v:>18.4g}" for v in rms[j])
+            if pvals:
+                pv = pvals[j]
+                row += f"   {pv:>7.3f}" if pv is not None else "         -"
+            lines.append(row)
+        blocks.append("\n".join(lines))
+    return "\n\n".join(blocks)
 
 
 def run(args: argparse.Namespace) -> int:

@@ -20,6 +20,10 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(func=run)
 
 
+def _path(value: float | None) -> str:
+    return f"{value:g} cm" if value else "not recorded"
+
+
 def summary_text(cal: Calibration) -> str:
     """A readable multi-line summary of a model."""
     d = cal.describe()
@@ -29,15 +33,16 @@ def summary_text(cal: Calibration) -> str:
         f"axis:            {d['axis']['first']:g}-{d['axis']['last']:g} {d['axis']['unit']} "
         f"({d['axis']['points']} points)",
         f"preprocessing:   {d['preprocessing']}",
-        f"path length:     {d['path_length_cm'] if d['path_length_cm'] else 'not recorded'}",
+        f"path length:     {_path(d['path_length_cm'])}",
         f"ceiling:         {d['ceiling_AU']:g} AU",
         "analytes (calibrated range):",
     ]
     lines += [f"  {a['label']}: {a['calibrated_min']:g} to {a['calibrated_max']:g}"
               for a in d["analytes"]]
-    sel = d.get("selection") or {}
-    if sel:
-        lines.append(f"components:      {sel.get('n_components')} (rule: {sel.get('rule')})")
+    for i, ev in enumerate((d.get("selection") or {}).get("models", [])):
+        label = f"model {i + 1}" if len(d["selection"]["models"]) > 1 else "components"
+        lines.append(f"{label + ':':<17}{ev['n_components']} components (rule: {ev['rule']}, "
+                     f"cross-validation {ev.get('cv')})")
     lines.append(f"created:         {prov.get('created')}")
     lines.append(f"model checksum:  {prov.get('model_checksum', 'not saved yet')}")
     for f in prov.get("training_files", []):
