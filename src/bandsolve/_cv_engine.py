@@ -148,21 +148,24 @@ class WideEngine:
         self.y_offset = Y.mean(axis=0)
         self.y0 = Y - self.y_offset
         self.scale = scale
+        self.sx = self.x0.sum(axis=0)
         self.gram = None if scale else self.x0 @ self.x0.T
 
     def fold(self, train: np.ndarray, test: np.ndarray, n_settings: int) -> FoldOutput:
         """Results for held-out ``test`` of the model fitted to ``train`` (index arrays)."""
         n_train = train.size
-        xt = self.x0[train]
-        x_mean = xt.mean(axis=0)
-        xt_c = xt - x_mean
-        sd = _fold_scale(np.einsum("ij,ij->j", xt_c, xt_c), n_train, self.scale)
-        x_val = (self.x0[test] - x_mean) / sd
+        xv = self.x0[test]
+        x_mean = (self.sx - xv.sum(axis=0)) / n_train
         if self.scale:
+            xt_c = self.x0[train] - x_mean
+            sd = _fold_scale(np.einsum("ij,ij->j", xt_c, xt_c), n_train, True)
             xt_c /= sd
+            x_val = (xv - x_mean) / sd
             gram_tt = xt_c @ xt_c.T
             gram_vt = x_val @ xt_c.T
         else:
+            sd = np.ones(xv.shape[1])
+            x_val = xv - x_mean
             # Double-centre the stored Gram block with the training mean only.
             k_tt = self.gram[np.ix_(train, train)]
             k_mean = k_tt.mean(axis=0)
@@ -172,7 +175,14 @@ class WideEngine:
         yt = self.y0[train]
         y_mean = yt.mean(axis=0)
         f = gram_pls(gram_tt, yt - y_mean, n_settings)
-        x_loadings = (xt_c.T @ f.scores) / f.tau
+        if self.scale:
+            x_loadings = (xt_c.T @ f.scores) / f.tau
+        else:
+            # Training scores sum to zero, so X_tcᵀT = X_tᵀT (any centring); zero rows for
+            # held-out samples avoid copying the training block.
+            scores = np.zeros((self.x0.shape[0], f.tau.size))
+            scores[train] = f.scores
+            x_loadings = (self.x0.T @ scores) / f.tau
         return _fold_output(x_val, self.y_offset + y_mean, gram_vt @ f.rotation_coords,
                             x_loadings, f.y_loadings, f.tau, n_train, n_settings)
 

@@ -25,6 +25,7 @@ from sklearn.model_selection import (
     LeaveOneOut,
     RepeatedKFold,
 )
+from threadpoolctl import threadpool_limits
 
 from bandsolve._cv_engine import CVResult, FoldOutput, TallEngine, WideEngine
 from bandsolve._cv_selection import (
@@ -310,8 +311,10 @@ def cross_validate_pls(X, Y, max_components: int, cv="blinds:10", scale: bool = 
     tall = algorithm == "kernel" or (algorithm == "auto" and n >= p)
     engine = (TallEngine if tall else WideEngine)(X, Y2, scale)
     settings = tuple(range(1, int(max_components) + 1))
-    return _run(splits, Y2, settings, "n_components",
-                lambda train, test: engine.fold(train, test, len(settings)))
+    # Folds make many small BLAS calls, which stall with several threads (METHODS §9).
+    with threadpool_limits(limits=1, user_api="blas"):
+        return _run(splits, Y2, settings, "n_components",
+                    lambda train, test: engine.fold(train, test, len(settings)))
 
 
 def cross_validate_estimator(estimator, X, Y, cv="blinds:10", groups=None) -> CVResult:
