@@ -12,7 +12,8 @@ DATASETS = Path(__file__).resolve().parents[1].parent / "shared" / "datasets"
 
 def gaussian_bands(axis: np.ndarray, centres, widths) -> np.ndarray:
     """Unit-height Gaussian bands, one row per (centre, width): broad overlapping UV-Vis bands."""
-    return np.vstack([np.exp(-0.5 * ((axis - c) / w) ** 2) for c, w in zip(centres, widths)])
+    pairs = zip(centres, widths, strict=True)
+    return np.vstack([np.exp(-0.5 * ((axis - c) / w) ** 2) for c, w in pairs])
 
 
 @pytest.fixture

@@ -8,9 +8,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
+from bandsolve.build import build_cls
 from bandsolve.cls import CLSRegressor
 from bandsolve.concentrations import ConcentrationTable
-from bandsolve.build import build_cls
 from bandsolve.errors import ModelError
 from bandsolve.spectra import SpectralSet
 
@@ -94,7 +94,7 @@ def test_prediction_intervals_cover_truth(three_bands):
     rng = np.random.default_rng(11)
     sigma, hits, total = 0.004, 0, 0
     labels = ["a [mg/L]", "b [mg/L]", "c [mg/L]"]
-    for rep in range(120):
+    for _ in range(120):
         C = rng.uniform(0, 1, (15, 3))
         A = C @ K + rng.normal(0, sigma, (15, axis.size))
         ids = [f"s{i}" for i in range(15)]
