@@ -114,6 +114,8 @@ def test_bad_cells_are_named_by_line_and_column(tmp_path):
         read_spectra(_write(tmp_path, "bad.csv", text))
     with pytest.raises(FormatError, match=r"row 4.*column '410' is empty"):
         read_spectra(_write(tmp_path, "bad.csv", "# c\nsample,400,410\nA,0.1,0.2\nB,0.3,\n"))
+    with pytest.raises(FormatError, match=r"row 3: axis value \(cell 1\) 'x' is not a finite"):
+        read_spectra(_write(tmp_path, "bad.csv", "nm,A\n400,0.1\nx,0.2\n"), layout="transposed")
     with pytest.raises(FormatError, match=r"row 3: 2 cells where the table has 3"):
         read_spectra(_write(tmp_path, "bad.csv", "sample,400,410\nA,0.1,0.2\nB,0.3\n"))
 

@@ -169,8 +169,10 @@ def _wide(rows: list[Row], dialect: Dialect, source: str):
 def _transposed(rows: list[Row], dialect: Dialect, source: str):
     _need_data(rows, source, "transposed")
     ids = rows[0].cells[1:]
-    axis = to_numbers([r.cells[0] for r in rows[1:]], dialect, source=source, line=None,
-                      what="first column (axis)")
+    axis = np.concatenate([
+        to_numbers(r.cells[:1], dialect, source=source, line=r.line, what="axis value")
+        for r in rows[1:]
+    ])
     values = np.vstack([
         to_numbers(r.cells[1:], dialect, source=source, line=r.line, names=ids)
         for r in rows[1:]
