@@ -149,11 +149,13 @@ class DemoRun:
 
 
 def run_demo(folder: str | Path) -> DemoRun:
-    """Generate the invented data, build a CLS model, predict both routine batches.
+    """Generate the invented data, build CLS and PLS models, predict both routine batches.
 
-    Files go under ``folder``: the data, ``models/rinse-cls.bsm`` and ``results.csv``.
+    Files go under ``folder``: the data, ``models/rinse-cls.bsm``, ``models/rinse-pls.bsm``,
+    ``results.csv`` (CLS) and ``results-pls.csv``.
     """
     from .build import build_cls
+    from .build_pls import build_pls
     from .bundle import save_model, sha256_file
     from .io import read_concentrations, read_spectra
     from .predict import predict_inputs
@@ -166,11 +168,18 @@ def run_demo(folder: str | Path) -> DemoRun:
         {"role": role, "name": p.name, "sha256": sha256_file(p)}
         for role, p in (("spectra", files.calibration_spectra),
                         ("concentrations", files.calibration_concentrations))]}
-    model = build_cls(spectra, table, provenance=prov)
-    model_path = folder / "models" / "rinse-cls.bsm"
-    save_model(model, model_path)
-    batch = predict_inputs(model, [str(p) for p in files.routine])
-    results_path = folder / "results.csv"
-    with atomic_write(results_path, "w", newline="") as handle:
-        batch.table.to_csv(handle, index=False)
-    return DemoRun(files, model_path, results_path, batch.table)
+    models = {"cls": build_cls(spectra, table, provenance=prov),
+              "pls": build_pls(spectra, table, cv="blinds:5", max_components=8,
+                               provenance=prov)}
+    outputs: dict[str, Path] = {}
+    tables = {}
+    for name, model in models.items():
+        path = folder / "models" / f"rinse-{name}.bsm"
+        save_model(model, path)
+        outputs[f"{name.upper()} model"] = path
+        tables[name] = predict_inputs(model, [str(p) for p in files.routine]).table
+        out = folder / ("results.csv" if name == "cls" else f"results-{name}.csv")
+        with atomic_write(out, "w", newline="") as handle:
+            tables[name].to_csv(handle, index=False)
+        outputs[f"{name.upper()} results"] = out
+    return DemoRun(files, outputs["CLS model"], outputs["CLS results"], tables["cls"], outputs)

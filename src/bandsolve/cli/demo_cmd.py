@@ -26,15 +26,14 @@ def run(args: argparse.Namespace) -> int:
     eprint(f"Data: {DEMO_LABEL}.")
     eprint(f"Calibration: {demo.files.calibration_spectra} with "
            f"{demo.files.calibration_concentrations}")
-    eprint(f"Model: {demo.model_path}")
     analytes = [c for c in table.columns if c.endswith("]") and " SE" not in c][:3]
     shown = table[["sample", *analytes, "residual_ratio", "flags"]].copy()
     for col in [*analytes, "residual_ratio"]:
         shown[col] = shown[col].map(lambda v: f"{v:.3g}")
     print(shown.to_string(index=False))
     flagged = (table["flags"] != "").sum()
-    eprint(f"\n{len(table)} routine spectra predicted, {flagged} flagged. Results with standard "
-           f"errors and 95 % prediction intervals: {demo.results_path}")
+    eprint(f"\n{len(table)} routine spectra predicted with the CLS model, {flagged} flagged "
+           "(results carry standard errors and 95 % prediction intervals).")
     for name, path in demo.outputs.items():
         eprint(f"{name}: {path}")
     eprint("Flags are explained in the README. Results from a real method count only after it "
