@@ -17,9 +17,9 @@ def add_input_options(parser: argparse.ArgumentParser) -> None:
                    help="CSV layout (default: detect)")
     g.add_argument("--axis-unit", choices=["nm", "um", "cm-1"], default=None,
                    help="unit of the spectral axis (default: from the file or its range)")
-    g.add_argument("--quantity", default="absorbance",
+    g.add_argument("--quantity", default=None,
                    choices=["absorbance", "transmittance", "percent_transmittance"],
-                   help="what the values are (default: absorbance)")
+                   help="what the values are (default: the file's # quantity: line, else absorbance)")
     g.add_argument("--path-length", type=float, default=None, metavar="CM",
                    help="cell path length in cm, checked against the model")
     g.add_argument("--replicates", choices=["error", "average"], default="error",
