@@ -1,0 +1,283 @@
+"""Figures of merit of a built :class:`~bandsolve.model.Calibration`, stored in the model file.
+
+:func:`calibration_merit` turns a fitted CLS or PLS calibration and its training data into a
+:class:`~bandsolve.merit.FiguresOfMerit` table (SEN, SEL, γ, LOD, LOQ, RMSEC, RMSECV and the
+single-wavelength baseline per analyte); :func:`attach_merit` stores it in ``cal.merit`` so the
+model file carries it.
+
+Conventions (stated in the table's documentation and checked by the tests):
+
+* All spectral quantities (SEN, σx) live in the space the estimator sees, i.e. after the model's
+  preprocessing (window, filter, derivative, offset). Their unit is AU, or AU per axis unit
+  to the power of the derivative order.
+* σx comes from replicate blank spectra when given (per-channel SD, ddof = 1, RMS over
+  channels), otherwise from calibration residuals, and is labelled accordingly.
+  CLS residual degrees of freedom: ``p (n − m′)``; PLS: ``(n − 1 − A)(p − A)`` (a rank-A fit
+  of centred data, common practice).
+* Blank leverage h0: CLS ``c0ᵀ(CᵀC)⁻¹c0`` with ``c0`` zeros (and 1 for the intercept), 0 for a
+  model built from absorptivities; PLS ``1/n + t0ᵀ(TᵀT)⁻¹t0`` with ``t0`` the scores of the
+  mean blank replicate when blanks are given, else of the all-zero spectrum after preprocessing
+  (the blank of a blank-subtracted calibration).
+* RMSEC: ``√(Σe²/(n − m′))`` for CLS, ``√(Σe²/(n − A − 1))`` for PLS. RMSECV: ``√(PRESS/n)``;
+  CLS is cross-validated on the splitter ``cv``; PLS takes the curve stored at build time at the
+  chosen component count.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+from sklearn.base import clone
+
+from .concentrations import ConcentrationTable, align, split_unit
+from .crossval import cross_validate_estimator
+from .diagnostics import leverage
+from .errors import DataError, ModelError
+from .merit import (
+    FiguresOfMerit,
+    NoiseEstimate,
+    SignalFigures,
+    blank_leverage,
+    cls_figures,
+    figures_of_merit,
+    inverse_figures,
+    noise_from_blanks,
+    noise_from_residuals,
+    regression_statistics,
+    univariate_calibration,
+)
+from .model import Calibration
+from .spectra import SpectralSet
+
+__all__ = ["attach_merit", "calibration_merit", "signal_unit"]
+
+
+def signal_unit(cal: Calibration) -> str:
+    """Unit of the preprocessed spectra: ``AU``, or ``AU/nm``, ``AU/nm^2`` for derivatives."""
+    pre = cal.preprocessor
+    order = int(pre.derivative) if pre.savgol_window is not None else 0
+    if order == 0:
+        return "AU"
+    return f"AU/{cal.axis_unit}" + ("" if order == 1 else f"^{order}")
+
+
+def _training(cal: Calibration, spectra: SpectralSet,
+              table: ConcentrationTable) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Absorbance on the model grid (X), preprocessed (Z) and concentrations in model order."""
+    spectra, table = align(spectra, table)
+    missing = [a for a in cal.analytes if a not in table.analytes]
+    if missing:
+        raise DataError(
+            f"{table.source or 'the concentration table'} has no column for {', '.join(missing)}"
+            f"; give the table the model was built from (columns {', '.join(cal.analytes)})"
+        )
+    X, _ = cal.prepare(spectra)
+    C = np.asarray(table.values)[:, [table.analytes.index(a) for a in cal.analytes]]
+    return X, cal.preprocessor.transform(X), C
+
+
+def _blank_arrays(cal: Calibration, blanks: SpectralSet | None) -> np.ndarray | None:
+    if blanks is None:
+        return None
+    if blanks.n_samples < 2:
+        raise DataError(f"{blanks.source or 'blank spectra'}: {blanks.n_samples} blank spectrum; "
+                        "measure at least 2 replicate blanks for the noise estimate")
+    return cal.prepare(blanks)[0]
+
+
+def _predict(cal: Calibration, Z: np.ndarray) -> np.ndarray:
+    return np.hstack([np.asarray(e.predict(Z)).reshape(len(Z), -1) for e in cal.estimators])
+
+
+def _n_terms(est: Any, C: np.ndarray) -> int:
+    """m′: concentration columns plus the intercept column of a CLS design."""
+    return C.shape[1] + int(bool(est.fit_intercept))
+
+
+def _cls_signal(cal: Calibration, Z: np.ndarray | None, C: np.ndarray | None,
+                blank_z: np.ndarray | None) -> SignalFigures:
+    est = cal.estimators[0]
+    if blank_z is not None:
+        noise = noise_from_blanks(blank_z)
+    elif Z is not None:
+        resid = Z - C @ est.pure_spectra_ - est.background_
+        noise = noise_from_residuals(resid, Z.shape[1] * (len(Z) - _n_terms(est, C)))
+    else:
+        raise DataError("a CLS model built from absorptivities has no calibration residuals; "
+                        "give replicate blank spectra to estimate the noise")
+    if est.gram_inv_ is None:
+        h0 = 0.0
+    else:
+        ones = np.ones((len(C), 1))
+        design = np.hstack([C, ones]) if est.fit_intercept else C
+        c0 = np.r_[np.zeros(C.shape[1]), np.ones(design.shape[1] - C.shape[1])]
+        h0 = blank_leverage(design, c0)
+    return cls_figures(est.augmented_spectra_, cal.n_analytes, noise, h0=h0)
+
+
+def _pls_noise(cal: Calibration, Z: np.ndarray) -> NoiseEstimate:
+    # PLS1: the model with the most components leaves the least structure in its residuals.
+    est = max(cal.estimators, key=lambda e: e.n_components_)
+    if est.scale:
+        raise ModelError("σx from residuals is not defined for autoscaled PLS (the residuals "
+                         "are unit-free); give replicate blank spectra")
+    n, p = Z.shape
+    a = est.n_components_
+    # One column holding each sample's residual norm has the same ‖E‖²_F as the residuals.
+    norms = np.sqrt(est.x_residual_ss(Z))[:, None]
+    return noise_from_residuals(norms, (n - 1 - a) * (p - a))
+
+
+def _pls_signal(cal: Calibration, Z: np.ndarray, C: np.ndarray, blank_z: np.ndarray | None,
+                reference_variance: float | Sequence[float] | None) -> SignalFigures:
+    noise = noise_from_blanks(blank_z) if blank_z is not None else _pls_noise(cal, Z)
+    blank = np.zeros(Z.shape[1]) if blank_z is None else blank_z.mean(axis=0)
+    coef, h0 = [], []
+    for est in cal.estimators:
+        b = np.asarray(est.coef_)
+        coef.append(b.T)
+        h = leverage(est.transform(blank[None, :]), est.x_scores_)[0]
+        h0.extend([h] * b.shape[0])
+    var_y = np.broadcast_to(np.asarray(0.0 if reference_variance is None
+                                       else reference_variance, dtype=float), (C.shape[1],))
+    if np.any(var_y < 0):
+        raise DataError("reference_variance must be a non-negative variance per analyte "
+                        "(concentration units squared)")
+    b_all = np.hstack(coef)
+    parts = [inverse_figures(b_all[:, k], noise, h0=h0[k], sigma_y=float(np.sqrt(var_y[k])),
+                             X_calibration=Z, y_calibration=C[:, k])
+             for k in range(C.shape[1])]
+    return dataclasses.replace(parts[0], **{
+        f: np.concatenate([getattr(s, f) for s in parts])
+        for f in ("sensitivity", "selectivity", "analytical_sensitivity", "lod", "loq", "h0")})
+
+
+def _rmsecv(cal: Calibration, Z: np.ndarray, C: np.ndarray, cv: Any) -> np.ndarray | None:
+    if cal.method == "pls":
+        values = []
+        for ev in (cal.selection or {}).get("models", []):
+            values.extend(np.asarray(ev["rmsecv"], dtype=float)[ev["n_components"] - 1])
+        return np.asarray(values) if len(values) == C.shape[1] else None
+    try:
+        res = cross_validate_estimator(clone(cal.estimators[0]), Z, C,
+                                       cv=f"blinds:{min(10, len(Z))}" if cv is None else cv)
+    except ModelError:  # e.g. a fold removes every standard of one analyte
+        return None
+    return res.rmsecv[0]
+
+
+def _rmsec(cal: Calibration, Z: np.ndarray, C: np.ndarray) -> list[Any] | None:
+    if cal.method == "cls":
+        n_par = [_n_terms(cal.estimators[0], C)] * C.shape[1]
+    else:
+        n_par = [e.n_components_ + 1 for e in cal.estimators
+                 for _ in range(np.asarray(e.coef_).shape[0])]
+    fitted = _predict(cal, Z)
+    try:
+        return [regression_statistics(C[:, k], fitted[:, k], n_parameters=n_par[k])
+                for k in range(C.shape[1])]
+    except DataError:  # too few samples or a constant column: no calibration statistics
+        return None
+
+
+def calibration_merit(cal: Calibration, spectra: SpectralSet | None,
+                      table: ConcentrationTable | None, blanks: SpectralSet | None = None,
+                      cv: Any = None,
+                      reference_variance: float | Sequence[float] | None = None
+                      ) -> FiguresOfMerit:
+    """Figures of merit of a built calibration, one row per analyte.
+
+    Parameters
+    ----------
+    cal : Calibration
+        A CLS or PLS calibration from :mod:`bandsolve.build` / :mod:`bandsolve.build_pls`.
+    spectra : SpectralSet or None
+        The calibration spectra exactly as the model was fitted to them (blank-subtracted if
+        the model was built with a blank), n spectra; None only for a CLS model built from
+        absorptivities.
+    table : ConcentrationTable or None
+        Their known concentrations (must contain every analyte column of the model).
+    blanks : SpectralSet, optional
+        r ≥ 2 replicate blank spectra (absorbance) for σx and, for PLS, the blank's scores.
+    cv : str or splitter, optional
+        Cross-validation for the CLS RMSECV (default ``blinds:K`` with K = min(10, n)). PLS
+        uses the curve stored at build time.
+    reference_variance : float or sequence of float, optional
+        Variance of the reference concentrations σy² per analyte (concentration units²), used
+        in the PLS detection limit; the CLS limit has no σy term (METHODS §5).
+
+    Returns
+    -------
+    FiguresOfMerit
+        Method ``"CLS"`` (with the condition number of ``K_aug``) or ``"inverse"``.
+
+    References
+    ----------
+    Olivieri, A. C. et al. (2006). Uncertainty estimation and figures of merit for multivariate
+    calibration. Pure Appl. Chem. 78, 633-661.
+    Lorber, A., Faber, K. & Kowalski, B. R. (1997). Net analyte signal calculation in
+    multivariate calibration. Anal. Chem. 69, 1620-1626.
+    Faber, N. M. (1998). Efficient computation of net analyte signal vector in inverse
+    multivariate calibration models. Anal. Chem. 70, 5108-5110.
+    Haaland, D. M. & Thomas, E. V. (1988). Anal. Chem. 60, 1193-1202.
+    """
+    raw_blank = _blank_arrays(cal, blanks)
+    blank_z = None if raw_blank is None else cal.preprocessor.transform(raw_blank)
+    names = [split_unit(a)[0] for a in cal.analytes]
+    units = [split_unit(a)[1] or "unit" for a in cal.analytes]
+    if spectra is None or table is None:
+        if cal.method != "cls" or cal.estimators[0].gram_inv_ is not None:
+            raise DataError("give the calibration spectra and concentrations the model was "
+                            "built from")
+        signal = _cls_signal(cal, None, None, blank_z)
+        return figures_of_merit(signal, names, units, signal_unit=signal_unit(cal))
+    X, Z, C = _training(cal, spectra, table)
+    if cal.method == "cls":
+        signal = _cls_signal(cal, Z, C, blank_z)
+    elif cal.method == "pls":
+        signal = _pls_signal(cal, Z, C, blank_z, reference_variance)
+    else:
+        raise ModelError(f"unknown method {cal.method!r} in the model")
+    uni_sigma = None if raw_blank is None else noise_from_blanks(
+        raw_blank[:, cal.preprocessor.mask_]).sigma
+    pure = cal.estimators[0].pure_spectra_ if cal.method == "cls" and Z.shape[1] == int(
+        cal.preprocessor.mask_.sum()) else None
+    try:
+        univariate = univariate_calibration(cal.axis[cal.preprocessor.mask_],
+                                            X[:, cal.preprocessor.mask_], C,
+                                            sigma_x=uni_sigma, pure_spectra=pure)
+    except DataError:  # fewer than 3 samples or a constant concentration column
+        univariate = None
+    fom = figures_of_merit(signal, names, units, calibration=_rmsec(cal, Z, C),
+                           univariate=univariate, signal_unit=signal_unit(cal))
+    rmsecv = _rmsecv(cal, Z, C, cv)
+    if rmsecv is None:
+        return fom
+    rows = tuple(dataclasses.replace(row, rmsecv=float(v))
+                 for row, v in zip(fom.analytes, rmsecv, strict=True))
+    return dataclasses.replace(fom, analytes=rows)
+
+
+def attach_merit(cal: Calibration, spectra: SpectralSet | None,
+                 table: ConcentrationTable | None,
+                 blanks: SpectralSet | None = None) -> Calibration:
+    """Return a copy of ``cal`` whose ``merit`` holds :func:`calibration_merit` as a dict.
+
+    The dict is :meth:`FiguresOfMerit.to_dict` output (JSON-serialisable), so
+    :func:`bandsolve.bundle.save_model` stores it and
+    ``FiguresOfMerit.from_dict(cal.merit)`` rebuilds the table.
+
+    Parameters
+    ----------
+    cal, spectra, table, blanks
+        As for :func:`calibration_merit`.
+
+    Returns
+    -------
+    Calibration
+    """
+    fom = calibration_merit(cal, spectra, table, blanks=blanks)
+    return dataclasses.replace(cal, merit=fom.to_dict())
