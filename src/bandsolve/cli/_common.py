@@ -19,7 +19,8 @@ def add_input_options(parser: argparse.ArgumentParser) -> None:
                    help="unit of the spectral axis (default: from the file or its range)")
     g.add_argument("--quantity", default=None,
                    choices=["absorbance", "transmittance", "percent_transmittance"],
-                   help="what the values are (default: the file's # quantity: line, else absorbance)")
+                   help="what the values are (default: the file's # quantity: line, "
+                        "else absorbance)")
     g.add_argument("--path-length", type=float, default=None, metavar="CM",
                    help="cell path length in cm, checked against the model")
     g.add_argument("--replicates", choices=["error", "average"], default="error",
