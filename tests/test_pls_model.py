@@ -1,0 +1,112 @@
+"""PLS calibrations end to end: diagnostics flags, standard errors, the command line."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from bandsolve.build_pls import build_pls
+from bandsolve.bundle import load_model, save_model
+from bandsolve.cli import main
+from bandsolve.concentrations import ConcentrationTable
+from bandsolve.spectra import SpectralSet
+
+LABELS = ["a [mg/L]", "b [mg/L]", "c [mg/L]"]
+
+
+def _simulate(rng, K, n, sigma=0.003, low=0.0, high=1.0):
+    C = rng.uniform(low, high, (n, K.shape[0]))
+    return C, C @ K + rng.normal(0, sigma, (n, K.shape[1]))
+
+
+@pytest.fixture(scope="module")
+def calibration():
+    from .conftest import gaussian_bands
+
+    axis = np.linspace(400.0, 700.0, 121)
+    K = gaussian_bands(axis, (480, 530, 590), (40, 45, 40))
+    rng = np.random.default_rng(42)
+    C, A = _simulate(rng, K, 40)
+    ids = [f"cal{i}" for i in range(40)]
+    cal = build_pls(SpectralSet(axis, A, ids), ConcentrationTable(ids, LABELS, C), cv="blinds:8")
+    return axis, K, rng, cal
+
+
+def test_chosen_components_match_the_number_of_absorbers(calibration):
+    # Three absorbers and white noise: rank-3 signal, so 3 components (Beer's law mixtures).
+    *_, cal = calibration
+    assert cal.selection["models"][0]["n_components"] == 3
+
+
+def test_in_model_samples_rarely_flagged_foreign_band_always(calibration):
+    axis, K, rng, cal = calibration
+    C, A = _simulate(rng, K, 400, low=0.1, high=0.9)
+    ids = [f"u{i}" for i in range(400)]
+    clean = cal.predict(SpectralSet(axis, A, ids))
+    foreign = A + 0.05 * np.exp(-0.5 * ((axis - 650) / 15) ** 2)
+    bad = cal.predict(SpectralSet(axis, foreign, ids))
+    # Limits at α = 0.01 (Box 1954 / Tracy, Young & Mason 1992): about 1 % false alarms.
+    assert clean["flags"].str.contains("residual").mean() <= 0.04
+    assert clean["flags"].str.contains("t2").mean() <= 0.04
+    assert bad["flags"].str.contains("residual").all()
+
+
+def test_extrapolation_flagged_by_t2(calibration):
+    axis, K, rng, cal = calibration
+    C = np.array([[3.0, 3.0, 3.0], [2.5, 0.0, 2.5]])  # far outside the 0–1 calibration box
+    res = cal.predict(SpectralSet(axis, C @ K, ["far1", "far2"]))
+    assert res["flags"].str.contains("t2").all()
+    assert res["flags"].str.contains("above_range").all()
+
+
+def test_faber_bro_intervals_cover_truth(calibration):
+    # Faber & Bro (2002) MSEC-based SE with a t quantile: pooled over 25 independent
+    # calibrations (one calibration's MSEC varies by ~±12 % with n = 40), the 95 % intervals
+    # should cover the truth 95 % ± 2.5 % of the time (approximate method, so a wider band).
+    axis, K, _, _ = calibration
+    rng = np.random.default_rng(2024)
+    hits = total = 0
+    for rep in range(25):
+        C, A = _simulate(rng, K, 40)
+        ids = [f"cal{i}" for i in range(40)]
+        cal = build_pls(SpectralSet(axis, A, ids), ConcentrationTable(ids, LABELS, C),
+                        components=3, cv="blinds:5")
+        Ct, At = _simulate(rng, K, 100, low=0.1, high=0.9)
+        res = cal.predict(SpectralSet(axis, At, [f"u{rep}-{i}" for i in range(100)]))
+        for k, lab in enumerate(LABELS):
+            inside = (res[f"{lab} low95"] <= Ct[:, k]) & (Ct[:, k] <= res[f"{lab} high95"])
+            hits += int(inside.sum())
+            total += inside.size
+    assert abs(hits / total - 0.95) <= 0.025, hits / total
+
+
+def test_save_load_gives_identical_predictions(calibration, tmp_path):
+    axis, K, rng, cal = calibration
+    _, A = _simulate(rng, K, 5)
+    spectra = SpectralSet(axis, A, [f"u{i}" for i in range(5)])
+    save_model(cal, tmp_path / "m.bsm")
+    again = load_model(tmp_path / "m.bsm").predict(spectra)
+    pd.testing.assert_frame_equal(cal.predict(spectra), again, check_exact=True)
+
+
+def test_pls_build_and_predict_from_cli(calibration, tmp_path, capsys):
+    axis, K, rng, _ = calibration
+    C, A = _simulate(rng, K, 30)
+    ids = [f"m{i:02d}" for i in range(30)]
+    spectra = pd.DataFrame(A, columns=[f"{w:g}" for w in axis])
+    spectra.insert(0, "sample", ids)
+    spectra.to_csv(tmp_path / "s.csv", index=False)
+    conc = pd.DataFrame(C, columns=LABELS)
+    conc.insert(0, "sample", ids)
+    conc.to_csv(tmp_path / "c.csv", index=False)
+    model = str(tmp_path / "pls.bsm")
+    assert main(["build", "--method", "pls", "--spectra", str(tmp_path / "s.csv"),
+                 "--concentrations", str(tmp_path / "c.csv"), "--cv", "random:5",
+                 "--max-components", "6", "--out", model]) == 0
+    err = capsys.readouterr().err
+    assert "RMSECV" in err and " *" in err  # the curve with the chosen count marked
+    assert main(["predict", model, str(tmp_path / "s.csv"), "--out",
+                 str(tmp_path / "r.csv")]) == 0
+    res = pd.read_csv(tmp_path / "r.csv")
+    assert np.max(np.abs(res[LABELS].to_numpy() - C)) < 0.05
