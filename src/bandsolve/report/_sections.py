@@ -1,0 +1,226 @@
+"""HTML fragments of the report's sections (text and tables; figures are added by html.py)."""
+
+from __future__ import annotations
+
+import base64
+import io
+from html import escape
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from matplotlib.figure import Figure
+
+from ..flags import FLAG_CODES
+from ..merit import FiguresOfMerit
+from ..model import Calibration, result_columns
+from ..units import axis_label
+from ._views import ReportFigure
+
+#: Resolution of the embedded PNG figures (dots per inch).
+DPI = 110
+
+CAUTIONS = (
+    "A calibration model is only fit for purpose once the method has been validated for its "
+    "intended use under the applicable guidelines and local regulations (for example ICH "
+    "Q2(R2) where it applies); this report documents the model, it does not replace that "
+    "validation.",
+    "Results outside the calibrated range, or flagged by the residual, T² or leverage "
+    "limits, must not be reported without investigation.",
+    "Hazardous reference chemicals used to check or calibrate photometers (such as "
+    "dichromate standards) are handled, stored and disposed of under local safety rules.",
+    "Keep sample and calibration measurements under the same conditions: cell, path length, "
+    "temperature, solvent and instrument settings.",
+)
+
+STYLE = """
+:root { --ink:#1b1b1b; --muted:#555; --rule:#c8c8c8; --accent:#0072B2; --warn:#D55E00; }
+body { font-family: system-ui, -apple-system, "Segoe UI", Roboto, "Helvetica Neue", Arial,
+       sans-serif; color:var(--ink); max-width:1100px; margin:1.5rem auto; padding:0 1rem;
+       line-height:1.45; }
+h1 { font-size:1.6rem; margin-bottom:.2rem; }
+h2 { font-size:1.25rem; border-bottom:2px solid var(--accent); padding-bottom:.2rem;
+     margin-top:2.2rem; }
+h3 { font-size:1.05rem; margin-top:1.4rem; }
+.meta { color:var(--muted); font-size:.9rem; }
+table { border-collapse:collapse; margin:.6rem 0; font-size:.85rem; }
+th, td { border:1px solid var(--rule); padding:.25rem .5rem; text-align:left;
+         font-variant-numeric:tabular-nums; }
+th { background:#eef3f8; }
+pre { background:#f6f6f6; border:1px solid var(--rule); padding:.6rem; overflow-x:auto;
+      font-size:.8rem; }
+figure { margin:1rem 0; } figure img { max-width:100%; height:auto; border:1px solid #eee; }
+figcaption { font-size:.85rem; color:var(--muted); }
+.banner { border:2px solid var(--warn); background:#fff4ec; padding:.6rem .9rem;
+          font-weight:600; }
+.note { color:var(--muted); font-style:italic; }
+dt { font-family:ui-monospace, "DejaVu Sans Mono", monospace; font-weight:600; }
+dd { margin:0 0 .5rem 1.5rem; }
+@media print {
+  body { max-width:none; margin:0; font-size:10pt; }
+  @page { size:A4; margin:14mm; }
+  section { break-before:page; }
+  section:first-of-type, section.banner-section { break-before:auto; }
+  figure, table, pre { break-inside:avoid; }
+  h2, h3 { break-after:avoid; }
+  a { color:inherit; text-decoration:none; }
+}
+"""
+
+
+def png_data_uri(fig: Figure) -> str:
+    """The figure as an inline ``data:image/png;base64,…`` URI."""
+    buffer = io.BytesIO()
+    fig.savefig(buffer, format="png", dpi=DPI)
+    return "data:image/png;base64," + base64.b64encode(buffer.getvalue()).decode("ascii")
+
+
+def figure_html(item: ReportFigure) -> str:
+    return (f'<figure id="{escape(item.key)}"><img alt="{escape(item.title)}" '
+            f'src="{png_data_uri(item.figure)}"><figcaption><strong>{escape(item.title)}.'
+            f"</strong> {escape(item.caption)}</figcaption></figure>")
+
+
+def _fmt(value: Any) -> str:
+    if value is None or (isinstance(value, float) and not np.isfinite(value)):
+        return "–"
+    if isinstance(value, float | np.floating):
+        return f"{value:.4g}"
+    if isinstance(value, list | tuple):
+        return ", ".join(_fmt(v) for v in value)
+    return str(value)
+
+
+def kv_table(rows: list[tuple[str, Any]]) -> str:
+    body = "".join(f"<tr><th>{escape(k)}</th><td>{escape(_fmt(v))}</td></tr>" for k, v in rows)
+    return f'<table class="kv">{body}</table>'
+
+
+def frame_table(frame: pd.DataFrame, index: bool = False) -> str:
+    return frame.to_html(index=index, escape=True, border=0, na_rep="–",
+                         float_format=lambda v: f"{v:.4g}")
+
+
+def pre(text: str) -> str:
+    return f"<pre>{escape(text)}</pre>"
+
+
+def note(text: str) -> str:
+    return f'<p class="note">{escape(text)}</p>'
+
+
+def _component_rule(cal: Calibration) -> str:
+    if cal.method == "cls":
+        est = cal.estimators[0]
+        extra = []
+        if est.fit_intercept:
+            extra.append("a background spectrum")
+        if est.n_baseline_terms_:
+            extra.append(f"{est.n_baseline_terms_} baseline term(s) ({est.baseline})")
+        return (f"{cal.n_analytes} pure-component spectra"
+                + (f" plus {' and '.join(extra)}" if extra else "")
+                + "; the number of components is the number of analytes")
+    models = (cal.selection or {}).get("models") or []
+    parts = [f"{ev['n_components']} component(s) by the {ev['rule']} rule"
+             + (f" (α = {ev['alpha']:g})" if ev.get("alpha") is not None else "")
+             + f", cross-validation {ev.get('cv', '?')}" for ev in models]
+    return "; ".join(parts) or "not recorded"
+
+
+def model_section(cal: Calibration) -> str:
+    lo_hi = ", ".join(f"{a}: {lo:g} to {hi:g}"
+                      for a, (lo, hi) in zip(cal.analytes, cal.calibrated_range, strict=True))
+    used = cal.preprocessor.axis_out_
+    rows = [
+        ("method", {"cls": "classical least squares (CLS, K-matrix)",
+                    "pls": "partial least squares (PLS)"}.get(cal.method, cal.method)),
+        ("analytes (calibrated range)", lo_hi),
+        ("input axis", f"{cal.axis[0]:g} to {cal.axis[-1]:g} {cal.axis_unit}, "
+                       f"{cal.axis.size} points"),
+        ("used range", f"{used[0]:g} to {used[-1]:g} {cal.axis_unit}, {used.size} points"),
+        ("preprocessing", cal.preprocessor.describe()),
+        ("components and rule", _component_rule(cal)),
+        ("path length", f"{cal.path_length_cm:g} cm" if cal.path_length_cm else "not recorded"),
+        ("photometric ceiling", f"{cal.ceiling:g} AU"),
+    ]
+    rows += [(f"setting: {k}", v) for k, v in cal.settings.items()]
+    return f"<h3>Definition</h3>{kv_table(rows)}" + _limits_html(cal)
+
+
+def _limits_html(cal: Calibration) -> str:
+    if cal.method == "pls":
+        frame = pd.DataFrame([{"model": i + 1, "T² limit": m.get("t2_limit"),
+                               "Q limit [AU²]": m.get("q_limit"),
+                               "leverage limit": m.get("leverage_limit"),
+                               "α": m.get("alpha")}
+                              for i, m in enumerate(cal.limits.get("models", []))])
+        return "<h3>Diagnostic limits</h3>" + frame_table(frame)
+    res = cal.limits.get("residual", {})
+    return "<h3>Diagnostic limits</h3>" + kv_table([
+        ("residual F-ratio limit", res.get("value")), ("how it was set", res.get("method")),
+        ("α", res.get("alpha")), ("leverage limit factor", cal.limits.get("leverage_factor"))])
+
+
+def data_section(cal: Calibration, n_given: int | None) -> str:
+    prov = cal.provenance
+    rows = [("calibration samples", prov.get("n_calibration_samples")),
+            ("model created", prov.get("created"))]
+    if n_given is not None:
+        rows.append(("calibration spectra given for this report", n_given))
+    ranges = pd.DataFrame({"analyte": cal.analytes,
+                           "lowest calibrated": cal.calibrated_range[:, 0],
+                           "highest calibrated": cal.calibrated_range[:, 1]})
+    files = prov.get("training_files") or []
+    files_html = (frame_table(pd.DataFrame(files)) if files
+                  else note("No training-file fingerprints are recorded in this model."))
+    versions = prov.get("versions") or {}
+    return (kv_table(rows) + "<h3>Calibrated ranges</h3>" + frame_table(ranges)
+            + "<h3>Training files (SHA-256 fingerprints)</h3>" + files_html
+            + "<h3>Software</h3>" + kv_table(list(versions.items())))
+
+
+def merit_section(merit: FiguresOfMerit | None, origin: str) -> str:
+    if merit is None:
+        return note("No figures of merit are stored in this model and no blank spectra were "
+                    "given, so none are reported. Give replicate blank spectra (--blanks) to "
+                    "compute sensitivity, selectivity and detection limits.")
+    return f"<p>{escape(origin)}</p>" + pre(merit.summary())
+
+
+def result_section(result: Any, what: str, how: str) -> str:
+    """Summary text and table of an assessment or comparison object (duck-typed)."""
+    if result is None:
+        return note(f"No {what} was requested for this report ({how}).")
+    return pre(result.summary()) + frame_table(result.to_frame(), index=True)
+
+
+def batch_section(cal: Calibration, table: pd.DataFrame | None) -> str:
+    if table is None:
+        return note("No prediction batch was included in this report.")
+    keep = ["sample"]
+    for a in cal.analytes:
+        name, se, lo, hi = result_columns(a)
+        keep += [name, se, lo, hi]
+    keep.append("flags")
+    n_flag = int((table["flags"].fillna("") != "").sum())
+    return (f"<p>{len(table)} spectra predicted, {n_flag} flagged.</p>"
+            + frame_table(table[keep]))
+
+
+def flags_section() -> str:
+    items = "".join(f"<dt>{escape(code)}</dt><dd>{escape(text)}</dd>"
+                    for code, text in FLAG_CODES.items())
+    return ("<p>Codes in the <code>flags</code> column of every results table; codes about one "
+            "analyte carry its name after a colon (<code>above_range:dye B</code>).</p>"
+            f"<dl>{items}</dl>")
+
+
+def cautions_section() -> str:
+    return "<ul>" + "".join(f"<li>{escape(c)}</li>" for c in CAUTIONS) + "</ul>"
+
+
+def header_html(cal: Calibration, title: str, generated: str, version: str) -> str:
+    return (f"<header><h1>{escape(title)}</h1><p class=\"meta\">{escape(cal.method.upper())} "
+            f"calibration for {escape(', '.join(cal.analytes))}; axis "
+            f"{escape(axis_label(cal.axis_unit))}. Report generated {escape(generated)} by "
+            f"bandsolve {escape(version)}.</p></header>")

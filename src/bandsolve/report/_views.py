@@ -1,0 +1,282 @@
+"""From a Calibration and optional sample sets to the arrays and figures of the report.
+
+The numbers come from the model's own methods and from :mod:`bandsolve.merit` and
+:mod:`bandsolve.diagnostics`; this module only arranges them for :mod:`.figures`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from matplotlib.figure import Figure
+
+from ..concentrations import ConcentrationTable, align, split_unit
+from ..diagnostics import leverage
+from ..errors import DataError, where
+from ..flags import split_flags
+from ..merit import (
+    FiguresOfMerit,
+    blank_leverage,
+    cls_figures,
+    cls_net_analyte_signal,
+    figures_of_merit,
+    inverse_figures,
+    noise_from_blanks,
+)
+from ..model import Calibration, result_columns
+from ..spectra import SpectralSet
+from . import figures as F
+
+
+@dataclass(frozen=True)
+class SampleSet:
+    """Spectra of one role (calibration, validation, batch) on the model grid.
+
+    Attributes
+    ----------
+    name : str
+    sample_ids : tuple of str
+    X : ndarray, shape (n, p)
+        Absorbance on the model's axis (before preprocessing).
+    reference : ndarray, shape (n, m) or None
+        Known concentrations in the model's analyte order.
+    """
+
+    name: str
+    sample_ids: tuple[str, ...]
+    X: np.ndarray
+    reference: np.ndarray | None = None
+
+
+@dataclass(frozen=True)
+class ReportFigure:
+    """One figure of the report with its section, title and caption."""
+
+    key: str
+    section: str
+    title: str
+    caption: str
+    figure: Figure
+
+
+def sample_set(cal: Calibration, name: str, spectra: SpectralSet,
+               table: ConcentrationTable | None = None) -> SampleSet:
+    """Put spectra (and, matched by sample id, their concentrations) onto the model grid."""
+    reference = None
+    if table is not None:
+        spectra, table = align(spectra, table)
+        missing = [a for a in cal.analytes if a not in table.analytes]
+        if missing:
+            raise DataError(f"{where(table.source)}no column for {', '.join(missing)}; the "
+                            f"table needs the model's analyte labels exactly "
+                            f"({', '.join(cal.analytes)})")
+        cols = [table.analytes.index(a) for a in cal.analytes]
+        reference = np.asarray(table.values)[:, cols]
+    X, _ = cal.prepare(spectra)
+    return SampleSet(name, tuple(spectra.sample_ids), X, reference)
+
+
+def _unit_label(cal: Calibration) -> str:
+    units = {split_unit(a)[1] for a in cal.analytes}
+    unit = units.pop() if len(units) == 1 else None
+    return unit or "concentration unit"
+
+
+def _regression_vectors(cal: Calibration) -> np.ndarray:
+    """PLS regression vectors, one row per analyte (concentration units per AU)."""
+    return np.vstack([np.atleast_2d(est.coef_) for est in cal.estimators])
+
+
+def component_figure(cal: Calibration) -> ReportFigure:
+    """CLS pure spectra, or PLS regression vectors."""
+    axis = cal.preprocessor.axis_out_
+    names = [split_unit(a)[0] for a in cal.analytes]
+    if cal.method == "cls":
+        u = _unit_label(cal)
+        fig = F.component_spectra_figure(
+            axis, cal.estimators[0].pure_spectra_, names, axis_unit=cal.axis_unit,
+            ylabel=f"absorbance per {u} [AU/({u})]", title="Pure-component spectra (CLS K)")
+        return ReportFigure("fig-components", "model", "Pure-component spectra",
+                            "Rows of K: the absorbance of each analyte at unit concentration "
+                            "in the calibration cell, after preprocessing.", fig)
+    fig = F.component_spectra_figure(
+        axis, _regression_vectors(cal), names, axis_unit=cal.axis_unit,
+        ylabel=f"regression coefficient [{_unit_label(cal)} per AU]",
+        title="PLS regression vectors")
+    return ReportFigure("fig-components", "model", "Regression vectors",
+                        "Regression vector b of each analyte: the predicted concentration "
+                        "is the intercept plus bᵀx.", fig)
+
+
+def rmsecv_figures(cal: Calibration) -> list[ReportFigure]:
+    """The cross-validation curve of each PLS model, with the chosen count and p-values."""
+    models = (cal.selection or {}).get("models") or []
+    out = []
+    for i, ev in enumerate(models):
+        names = list(cal.analytes) if len(models) == 1 else [cal.analytes[i]]
+        fig = F.rmsecv_figure(ev["settings"], np.asarray(ev["rmsecv"], dtype=float), names,
+                              chosen=int(ev["n_components"]), rule=str(ev["rule"]),
+                              pvalues=ev.get("pvalues"), alpha=ev.get("alpha"))
+        out.append(ReportFigure(
+            f"fig-rmsecv-{i + 1}", "model", "Cross-validation curve",
+            f"RMSECV ({ev.get('cv', 'cross-validation')}) by number of components; ringed: "
+            f"the count chosen by the {ev['rule']} rule. p-values: randomization test of "
+            "each smaller count against the minimum (van der Voet 1994).", fig))
+    return out
+
+
+def overlay_figure(cal: Calibration, cal_set: SampleSet) -> ReportFigure:
+    """Calibration spectra coloured by the first analyte's concentration."""
+    fig = F.spectra_overlay_figure(cal.axis, cal_set.X, cal_set.reference[:, 0],
+                                   cal.analytes[0], axis_unit=cal.axis_unit)
+    return ReportFigure("fig-overlay", "data", "Calibration spectra",
+                        f"{len(cal_set.sample_ids)} calibration spectra as absorbance on the "
+                        f"model grid, coloured by {cal.analytes[0]}.", fig)
+
+
+def net_signal(cal: Calibration, cal_set: SampleSet | None) -> tuple[np.ndarray, np.ndarray]:
+    """NAS vectors at unit concentration (m, p') and selectivities (m,)."""
+    if cal.method == "cls":
+        aug = cal.estimators[0].augmented_spectra_
+        m = cal.n_analytes
+        nas = np.vstack([cls_net_analyte_signal(aug.T, k) for k in range(m)])
+        return nas, cls_figures(aug, m, 1.0).selectivity
+    b = _regression_vectors(cal)
+    nas = b / np.sum(b**2, axis=1, keepdims=True)  # x* = b/‖b‖² at unit concentration
+    if cal_set is None:
+        return nas, np.full(cal.n_analytes, np.nan)
+    Z = cal.preprocessor.transform(cal_set.X)
+    sel = inverse_figures(b.T, 1.0, X_calibration=Z, y_calibration=cal_set.reference)
+    return nas, sel.selectivity
+
+
+def nas_figure(cal: Calibration, cal_set: SampleSet | None) -> ReportFigure:
+    nas, sel = net_signal(cal, cal_set)
+    fig = F.nas_selectivity_figure(cal.preprocessor.axis_out_, nas, sel, cal.analytes,
+                                   axis_unit=cal.axis_unit)
+    how = ("the part of each pure spectrum orthogonal to all other columns of K (Lorber 1986)"
+           if cal.method == "cls" else "b/‖b‖² (Faber 1998); selectivity needs the "
+           "calibration data (s ≈ Xᶜᵀyᶜ/yᶜᵀyᶜ)")
+    return ReportFigure("fig-nas", "merit", "Net analyte signal and selectivity",
+                        f"Net analyte signal at unit concentration: {how}. Selectivity "
+                        "SEL = ‖NAS‖/‖pure spectrum‖; 1 means no overlap.", fig)
+
+
+def merit_from_blanks(cal: Calibration, blanks: SpectralSet,
+                      cal_set: SampleSet | None) -> FiguresOfMerit:
+    """Figures of merit with σx from replicate blank spectra (Olivieri et al. 2006)."""
+    Xb, _ = cal.prepare(blanks)
+    Zb = cal.preprocessor.transform(Xb)
+    sigma = noise_from_blanks(Zb)
+    units = [split_unit(a)[1] or "" for a in cal.analytes]
+    if cal.method == "cls":
+        est = cal.estimators[0]
+        h0 = 0.0
+        if cal_set is not None and est.fit_intercept:
+            design = np.column_stack([cal_set.reference, np.ones(len(cal_set.X))])
+            h0 = blank_leverage(design, np.r_[np.zeros(cal.n_analytes), 1.0])
+        signal = cls_figures(est.augmented_spectra_, cal.n_analytes, sigma, h0)
+    else:
+        zb = Zb.mean(axis=0, keepdims=True)
+        h0 = np.concatenate([np.repeat(leverage(est.transform(zb), est.x_scores_),
+                                       np.atleast_2d(est.coef_).shape[0])
+                             for est in cal.estimators])
+        kwargs = {} if cal_set is None else {
+            "X_calibration": cal.preprocessor.transform(cal_set.X),
+            "y_calibration": cal_set.reference}
+        signal = inverse_figures(_regression_vectors(cal).T, sigma, h0, **kwargs)
+    return figures_of_merit(signal, cal.analytes, units)
+
+
+def residual_spectra(cal: Calibration, X: np.ndarray) -> np.ndarray:
+    """Measured minus modelled spectra after preprocessing (PLS: first model, centred)."""
+    Z = cal.preprocessor.transform(X)
+    est = cal.estimators[0]
+    if cal.method == "cls":
+        d = est.predict_detail(Z)
+        coef = np.hstack([d.concentrations, d.baseline])
+        return Z - est.background_ - coef @ est.augmented_spectra_
+    centred = (Z - est.x_mean_) / est.x_scale_
+    return centred - est.transform(Z) @ est.x_loadings_.T
+
+
+def _over(cal: Calibration, X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    d = cal.detail(X)
+    x = d.t2_ratio if cal.method == "pls" else d.leverage_ratio
+    flagged = (np.nan_to_num(x) > 1) | (np.nan_to_num(d.residual_ratio) > 1)
+    return x, d.residual_ratio, flagged
+
+
+def assessment_figures(cal: Calibration, sset: SampleSet,
+                       merit: FiguresOfMerit | None) -> list[ReportFigure]:
+    """Predicted against reference, residual spectra and the outlier map of one set."""
+    out = []
+    if sset.reference is not None:
+        pred = cal.detail(sset.X).concentrations
+        lod = loq = None
+        if merit is not None:
+            lod = [row.lod for row in merit.analytes]
+            loq = [row.loq for row in merit.analytes]
+        out.append(ReportFigure(
+            f"fig-pred-{sset.name}", "validation", f"Predicted against reference ({sset.name})",
+            f"{len(sset.sample_ids)} {sset.name} samples; grey line: identity"
+            + ("; dashed and dotted: LOD and LOQ." if lod is not None else "."),
+            F.predicted_reference_figure(sset.reference, pred, cal.analytes, lod=lod, loq=loq,
+                                         title=f"Predicted against reference, {sset.name}")))
+    _, _, flagged = _over(cal, sset.X)
+    scaled = cal.method == "pls" and cal.settings.get("scale")
+    fig = F.residual_spectra_figure(
+        cal.preprocessor.axis_out_, residual_spectra(cal, sset.X), axis_unit=cal.axis_unit,
+        highlight=flagged, title=f"Residual spectra, {sset.name}",
+        ylabel="scaled residual [dimensionless]" if scaled else "spectral residual [AU]")
+    out.append(ReportFigure(f"fig-resid-{sset.name}", "validation",
+                            f"Residual spectra ({sset.name})",
+                            "Measured minus modelled absorbance; structure instead of noise "
+                            "points to an absorber or baseline the model does not know.", fig))
+    return out
+
+
+def set_ratios(cal: Calibration, sset: SampleSet) -> tuple[np.ndarray, np.ndarray]:
+    """T² (PLS) or leverage (CLS) ratio and residual ratio of a sample set."""
+    x, y, _ = _over(cal, sset.X)
+    return x, y
+
+
+def table_ratios(cal: Calibration, table: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """The same two ratios read from a prediction table."""
+    x = table["t2_ratio" if cal.method == "pls" else "leverage_ratio"].to_numpy(float)
+    return x, table["residual_ratio"].to_numpy(float)
+
+
+def outlier_figure(cal: Calibration, points: list[tuple[str, list[str], np.ndarray, np.ndarray]],
+                   section: str) -> ReportFigure | None:
+    """Residual ratio against T² (PLS) or leverage (CLS) ratio; ``points``: (set, ids, x, y)."""
+    groups = [name for name, ids, _, _ in points for _ in ids]
+    ids = [i for _, set_ids, _, _ in points for i in set_ids]
+    x = np.concatenate([p[2] for p in points])
+    y = np.concatenate([p[3] for p in points])
+    if not np.isfinite(y).any():
+        return None
+    xl = ("Hotelling T² / limit [ratio]" if cal.method == "pls"
+          else "leverage / limit [ratio]")
+    yl = "Q residual / limit [ratio]" if cal.method == "pls" else "residual F / limit [ratio]"
+    fig = F.outlier_map_figure(x, y, groups=groups, sample_ids=ids, x_label=xl, y_label=yl)
+    return ReportFigure(f"fig-outliers-{section}", section, "Outlier map",
+                        "Each diagnostic divided by its limit: points at or beyond the dashed "
+                        "lines (ratio 1) are flagged and named.", fig)
+
+
+def batch_view(cal: Calibration, table: pd.DataFrame) -> ReportFigure:
+    """Concentrations per sample of a prediction table, with intervals and flags."""
+    cols = [result_columns(a) for a in cal.analytes]
+    est = table[[c[0] for c in cols]].to_numpy(float)
+    low = table[[c[2] for c in cols]].to_numpy(float)
+    high = table[[c[3] for c in cols]].to_numpy(float)
+    flagged = [bool(split_flags(f)) for f in table["flags"].fillna("")]
+    fig = F.batch_figure(list(table["sample"].astype(str)), est, low, high, cal.analytes,
+                         flagged)
+    return ReportFigure("fig-batch", "batch", "Prediction batch",
+                        "Estimate and 95 % prediction interval per sample; crosses: samples "
+                        "with at least one flag (see the flags legend).", fig)
