@@ -1,22 +1,54 @@
-"""Batch prediction over many input files: every good file predicted, every bad one reported."""
+"""Batch prediction over many input files: every good file predicted, every bad one reported.
+
+How a batch runs
+----------------
+Inputs are read one after another; wide CSV files are streamed ``chunk_size`` spectra at a
+time (:func:`bandsolve.io.iter_spectra_chunks`), other files are read whole. Spectra are
+regrouped into tasks of whole *evaluation blocks* of :data:`EVAL_ROWS` rows counted from the
+first spectrum of each input, and tasks are predicted in parallel with joblib (threads,
+processes, or a ``dask.distributed`` cluster). Because every spectrum is always evaluated in
+the same block, the numbers are bit-identical whatever the chunk size, the number of jobs or
+the engine (matrix products give last-digit differences when the row grouping changes).
+
+Results leave in input order through *sinks* (an output file, a results ledger, an in-memory
+table). Each sink keeps an input's rows aside until the whole input has been predicted, so a
+file that fails half-way (a NaN in row 20 000) contributes no rows at all: a file is either
+fully predicted or listed as a failure with its reason.
+"""
 
 from __future__ import annotations
 
+import contextlib
 import os
-from collections.abc import Sequence
+from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Protocol
 
+import numpy as np
 import pandas as pd
 
-from .errors import BandsolveError, DataError
-from .model import Calibration
+from .errors import BandsolveError, DataError, FormatError
+from .model import Calibration, result_columns
+from .spectra import SpectralSet
 
-__all__ = ["BatchFailure", "BatchResult", "expand_inputs", "predict_inputs"]
+__all__ = ["EVAL_ROWS", "BatchFailure", "BatchResult", "BatchSummary", "expand_inputs",
+           "predict_inputs", "predict_sets", "run_batch", "result_table_columns", "iter_array_sets",
+           "evaluate_set"]
 
 #: File endings read from folders when no pattern is given.
 SPECTRA_SUFFIXES = (".csv", ".txt", ".tsv", ".dat", ".prn", ".jdx", ".dx", ".jcamp", ".jcm")
+
+#: Rows per evaluation block: spectra are always predicted in these fixed blocks (counted from
+#: each input's first spectrum) so results do not depend on chunking. 1024 × 300 float64 is
+#: 2.4 MB, near the cache sizes where blockwise products run fastest (METHODS §9).
+EVAL_ROWS = 1024
+
+#: Text files at least this large, in the automatic layout, are streamed when their first
+#: lines read as a wide table; smaller files are read whole.
+STREAM_BYTES = 4 << 20
+
+DEFAULT_CHUNK = 10_000
 
 
 @dataclass(frozen=True)
@@ -25,6 +57,16 @@ class BatchFailure:
 
     input: str
     reason: str
+
+
+@dataclass
+class BatchSummary:
+    """What a batch did: inputs in order, failures with reasons, counts of result rows."""
+
+    inputs: list[str]
+    failures: list[BatchFailure] = field(default_factory=list)
+    n_predicted: int = 0
+    n_flagged: int = 0
 
 
 @dataclass
@@ -39,6 +81,23 @@ class BatchResult:
     def n_flagged(self) -> int:
         """Number of result rows with at least one flag."""
         return int((self.table["flags"].astype(str) != "").sum()) if len(self.table) else 0
+
+
+class Sink(Protocol):
+    """Receives result rows input by input; an input's rows count only once committed."""
+
+    def begin_input(self, position: int, item: str) -> None: ...
+    def write(self, frame: pd.DataFrame) -> None: ...
+    def discard_input(self) -> None: ...
+    def commit_input(self) -> None: ...
+
+
+def result_table_columns(model: Calibration) -> list[str]:
+    """Column names of every results table of ``model``, in order."""
+    cols = ["sample", "source"]
+    for label in model.analytes:
+        cols.extend(result_columns(label))
+    return [*cols, "residual_ratio", "t2_ratio", "leverage_ratio", "flags", "notes"]
 
 
 def expand_inputs(inputs: Sequence[str], pattern: str | None = None) -> list[str]:
@@ -67,20 +126,264 @@ def expand_inputs(inputs: Sequence[str], pattern: str | None = None) -> list[str
     return files
 
 
-def _read(item: str, read_options: dict[str, Any], stdin_text: str | None):
-    from .io import read_spectra, read_spectra_text
+# ---------------------------------------------------------------------- reading
+def _streamable(item: str, options: dict[str, Any]) -> bool:
+    """True when ``item`` can be streamed as a wide table with the same result as reading it."""
+    from .io import read_spectra_text
+    from .io.jcamp import JCAMP_SUFFIXES
+
+    path = Path(item)
+    if path.suffix.lower() in JCAMP_SUFFIXES or options.get("replicates") == "average":
+        return False
+    layout = options.get("layout", "auto")
+    if layout == "wide":
+        return True
+    if layout != "auto" or path.stat().st_size < STREAM_BYTES:
+        return False
+    with open(path, encoding="utf-8-sig", errors="replace") as handle:
+        head = "".join(line for _, line in zip(range(64), handle, strict=False))
+    read = {k: v for k, v in options.items() if k not in ("layout", "replicates")}
+    try:
+        auto = read_spectra_text(head, layout="auto", **read)
+        wide = read_spectra_text(head, layout="wide", **read)
+    except BandsolveError:
+        return False
+    return auto.sample_ids == wide.sample_ids and np.array_equal(auto.axis, wide.axis)
+
+
+def _read_sets(item: str, options: dict[str, Any], stdin_text: str | None,
+               chunk_size: int) -> Iterator[SpectralSet]:
+    from .io import iter_spectra_chunks, read_spectra, read_spectra_text
 
     if item == "-":
-        return read_spectra_text(stdin_text or "", source="<stdin>", **read_options)
+        yield read_spectra_text(stdin_text or "", source="<stdin>", **options)
+        return
     if not os.path.exists(item):
-        raise DataError(f"{item}: no such file")
-    return read_spectra(item, **read_options)
+        raise DataError(f"{item}: no such file; check the path")
+    if not os.path.isdir(item) and _streamable(item, options):
+        stream = {k: options.get(k) for k in ("axis_unit", "quantity", "path_length_cm")}
+        yield from iter_spectra_chunks(item, chunk_size, **stream)
+    else:
+        yield read_spectra(item, **options)
+
+
+def _rows(s: SpectralSet, start: int, stop: int) -> SpectralSet:
+    if start == 0 and stop >= s.n_samples:
+        return s
+    return SpectralSet(axis=s.axis, values=s.values[start:stop],
+                       sample_ids=s.sample_ids[start:stop], axis_unit=s.axis_unit,
+                       quantity=s.quantity, path_length_cm=s.path_length_cm, source=s.source,
+                       metadata=s.metadata)
+
+
+def _regroup(sets: Iterable[SpectralSet], task_rows: int) -> Iterator[SpectralSet]:
+    """Re-cut consecutive sets into sets of exactly ``task_rows`` rows (the last may be short)."""
+    from .spectra import concat
+
+    pending: list[SpectralSet] = []
+    held = 0
+    for s in sets:
+        pending.append(s)
+        held += s.n_samples
+        while held >= task_rows:
+            joined = pending[0] if len(pending) == 1 else concat(pending)
+            yield _rows(joined, 0, task_rows)
+            rest = _rows(joined, task_rows, joined.n_samples) if held > task_rows else None
+            pending, held = ([rest], rest.n_samples) if rest is not None else ([], 0)
+    if held:
+        yield pending[0] if len(pending) == 1 else concat(pending)
+
+
+def evaluate_set(model: Calibration, spectra: SpectralSet) -> pd.DataFrame:
+    """Results table of ``spectra``, evaluated in blocks of :data:`EVAL_ROWS` rows.
+
+    The first row of ``spectra`` must be the first row of an evaluation block (a task start).
+    """
+    frames = [model.predict(_rows(spectra, i, i + EVAL_ROWS))
+              for i in range(0, spectra.n_samples, EVAL_ROWS)]
+    return frames[0] if len(frames) == 1 else pd.concat(frames, ignore_index=True)
+
+
+def _task(model: Calibration, position: int, payload: SpectralSet | BatchFailure):
+    if isinstance(payload, BatchFailure):
+        return position, payload
+    try:
+        return position, evaluate_set(model, payload)
+    except BandsolveError as exc:
+        return position, BatchFailure(payload.source or "", str(exc))
+
+
+def iter_array_sets(values: np.ndarray, axis: np.ndarray, axis_unit: str, source: str,
+                    ids: Sequence[str] | None = None, task_rows: int = DEFAULT_CHUNK,
+                    ) -> Iterator[SpectralSet]:
+    """Absorbance rows of a (possibly memory-mapped) array as sets of ``task_rows`` spectra.
+
+    ``task_rows`` is rounded up to whole evaluation blocks. Sample ids default to ``row<i>``.
+    """
+    step = _task_rows(task_rows)
+    for start in range(0, values.shape[0], step):
+        stop = min(start + step, values.shape[0])
+        names = ids[start:stop] if ids is not None else [f"row{i}" for i in range(start, stop)]
+        yield SpectralSet(axis=axis, values=np.asarray(values[start:stop], dtype=float),
+                          sample_ids=names, axis_unit=axis_unit, source=source)
+
+
+def _task_rows(chunk_size: int) -> int:
+    if not isinstance(chunk_size, int | np.integer) or chunk_size < 1:
+        raise FormatError(f"chunk size must be a positive whole number, got {chunk_size!r}")
+    return -(-int(chunk_size) // EVAL_ROWS) * EVAL_ROWS
+
+
+# ---------------------------------------------------------------------- running
+def predict_sets(model: Calibration, sets: Iterable[SpectralSet],
+                 n_jobs: int = 1) -> Iterator[pd.DataFrame]:
+    """Results tables of consecutive sets, in order, predicted by ``n_jobs`` joblib workers.
+
+    Each set must start an evaluation block (as made by :func:`iter_array_sets`). The first
+    error stops the iteration.
+    """
+    for _, result in _results(model, ((0, s) for s in sets), n_jobs):
+        if isinstance(result, BatchFailure):
+            raise DataError(result.reason)
+        yield result
+
+
+def _payloads(files: Sequence[str], options: dict[str, Any], stdin_text: str | None,
+              chunk_size: int, skip: set[int]):
+    task_rows = _task_rows(chunk_size)
+    for position, item in enumerate(files):
+        try:
+            for spectra in _regroup(_read_sets(item, options, stdin_text, chunk_size),
+                                    task_rows):
+                if position in skip:
+                    break
+                yield position, spectra
+        except (BandsolveError, OSError, UnicodeError) as exc:
+            yield position, BatchFailure(item, str(exc))
+
+
+def _results(model: Calibration, payloads, n_jobs: int):
+    if n_jobs == 1:
+        return (_task(model, pos, p) for pos, p in payloads)
+    from joblib import Parallel, delayed
+
+    return Parallel(n_jobs=n_jobs, return_as="generator", pre_dispatch="2*n_jobs")(
+        delayed(_task)(model, pos, p) for pos, p in payloads)
+
+
+@contextlib.contextmanager
+def _engine(scheduler: str | None):
+    if scheduler is None:
+        yield
+        return
+    try:
+        from distributed import Client
+        from joblib import parallel_config
+    except ImportError:
+        raise BandsolveError("--scheduler needs the dask extra: pip install "
+                             "'bandsolve[dask]'") from None
+    try:
+        client = Client(scheduler, timeout="10s")
+    except OSError as exc:
+        raise BandsolveError(f"cannot reach the Dask scheduler at {scheduler} ({exc}); check "
+                             "the address and that the cluster is running") from None
+    with client, parallel_config(backend="dask"):
+        yield
+
+
+def run_batch(model: Calibration, inputs: Sequence[str], sinks: Sequence[Sink], *,
+              read_options: dict[str, Any] | None = None, pattern: str | None = None,
+              stdin_text: str | None = None, chunk_size: int = DEFAULT_CHUNK,
+              n_jobs: int = 1, scheduler: str | None = None) -> BatchSummary:
+    """Predict every spectrum of ``inputs`` and pass the rows, input by input, to ``sinks``.
+
+    Parameters
+    ----------
+    model : Calibration
+    inputs : sequence of str
+        Files, folders (searched recursively, with ``pattern``) or ``-`` for ``stdin_text``.
+    sinks : sequence of Sink
+        Receivers of the rows; an input's rows are committed only when it fully succeeded.
+    read_options : dict, optional
+        Keyword arguments of :func:`bandsolve.io.read_spectra`.
+    chunk_size : int
+        Spectra read at a time from a streamed file (memory is bounded by it).
+    n_jobs : int
+        Parallel joblib workers (-1: all cores). Results do not depend on it.
+    scheduler : str, optional
+        Address of a running ``dask.distributed`` scheduler to run the tasks on.
+
+    Returns
+    -------
+    BatchSummary
+    """
+    files = expand_inputs(inputs, pattern)
+    summary = BatchSummary(inputs=files)
+    if n_jobs == 0:
+        raise FormatError("jobs must be a positive number of workers, or -1 for all cores")
+    failed: set[int] = set()
+    current: int | None = None
+    pending = 0
+
+    def close_current() -> None:
+        if current is not None and current not in failed:
+            for sink in sinks:
+                sink.commit_input()
+            summary.n_predicted += pending
+
+    payloads = _payloads(files, read_options or {}, stdin_text, chunk_size, failed)
+    with _engine(scheduler):
+        n_workers = -1 if scheduler and n_jobs == 1 else n_jobs
+        for position, result in _results(model, payloads, n_workers):
+            if position in failed:
+                continue
+            if position != current:
+                close_current()
+                current, pending = position, 0
+                for sink in sinks:
+                    sink.begin_input(position, files[position])
+            if isinstance(result, BatchFailure):
+                failed.add(position)
+                summary.failures.append(BatchFailure(files[position], result.reason))
+                for sink in sinks:
+                    sink.discard_input()
+                continue
+            pending += len(result)
+            summary.n_flagged += int((result["flags"] != "").sum())
+            for sink in sinks:
+                sink.write(result)
+        close_current()
+    return summary
+
+
+class _TableSink:
+    """Collects committed rows in memory (for :func:`predict_inputs`)."""
+
+    def __init__(self) -> None:
+        self.frames: list[pd.DataFrame] = []
+        self._open: list[pd.DataFrame] = []
+
+    def begin_input(self, position: int, item: str) -> None:
+        self._open = []
+
+    def write(self, frame: pd.DataFrame) -> None:
+        self._open.append(frame)
+
+    def discard_input(self) -> None:
+        self._open = []
+
+    def commit_input(self) -> None:
+        self.frames.extend(self._open)
+        self._open = []
 
 
 def predict_inputs(model: Calibration, inputs: Sequence[str], *,
                    read_options: dict[str, Any] | None = None, pattern: str | None = None,
-                   stdin_text: str | None = None) -> BatchResult:
-    """Predict every spectrum in ``inputs``; a bad file is recorded and skipped.
+                   stdin_text: str | None = None, chunk_size: int = DEFAULT_CHUNK,
+                   n_jobs: int = 1, scheduler: str | None = None) -> BatchResult:
+    """Predict every spectrum in ``inputs`` into one in-memory table; bad files are recorded.
+
+    Options as in :func:`run_batch`.
 
     Returns
     -------
@@ -88,13 +391,10 @@ def predict_inputs(model: Calibration, inputs: Sequence[str], *,
         ``table`` has the columns of :meth:`Calibration.predict` for all good inputs, in
         input order; ``failures`` names each input that could not be read or predicted.
     """
-    files = expand_inputs(inputs, pattern)
-    frames, failures = [], []
-    for item in files:
-        try:
-            frames.append(model.predict(_read(item, read_options or {}, stdin_text)))
-        except BandsolveError as exc:
-            failures.append(BatchFailure(item, str(exc)))
-    table = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(
-        columns=["sample", "source", "flags"])
-    return BatchResult(table=table, failures=failures, inputs=files)
+    sink = _TableSink()
+    summary = run_batch(model, inputs, [sink], read_options=read_options, pattern=pattern,
+                        stdin_text=stdin_text, chunk_size=chunk_size, n_jobs=n_jobs,
+                        scheduler=scheduler)
+    table = (pd.concat(sink.frames, ignore_index=True) if sink.frames
+             else pd.DataFrame(columns=result_table_columns(model)))
+    return BatchResult(table=table, failures=summary.failures, inputs=summary.inputs)

@@ -3,22 +3,41 @@
 from __future__ import annotations
 
 import argparse
+import contextlib
 import sys
 
+from .._output import FORMATS, format_for, open_writer
 from ..bundle import load_model
-from ..predict import predict_inputs
+from ..errors import FormatError
+from ..io.atomic import atomic_write
+from ..predict import DEFAULT_CHUNK, result_table_columns, run_batch
 from . import EXIT_FLAGGED, EXIT_PARTIAL
-from ._common import add_input_options, eprint, read_options, write_table
+from ._common import add_input_options, eprint, read_options
 
 EXAMPLES = """\
 examples:
   bandsolve predict models/rinse-cls.bsm routine/ --out results.csv
   bandsolve predict models/rinse-cls.bsm batch1.csv batch2.csv > results.csv
   cat batch.csv | bandsolve predict models/rinse-cls.bsm - --fail-on-flags
+  bandsolve predict models/rinse-cls.bsm night/ --jobs 4 --out night.parquet \\
+      --ledger results.sqlite --batch 2025-03-01 --operator am
+  bandsolve predict models/rinse-cls.bsm image.npy --out maps/
+
+Large wide CSV files are streamed --chunk-size spectra at a time; the numbers never depend
+on --chunk-size, --jobs or --scheduler. An input that fails contributes no rows.
+A .npy input is a spectral image (rows x columns x wavelengths, absorbance): --out names a
+folder that receives one concentration map per analyte and a flag map (see bandsolve.cube).
 
 exit codes: 0 all inputs predicted; 2 bad model or options; 3 some inputs could not be read
 (the rest were predicted); 4 with --fail-on-flags, some result carries a flag.
 """
+
+
+def _positive(text: str) -> int:
+    value = int(text)
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be a positive whole number, not {text}")
+    return value
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -29,28 +48,92 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("model", metavar="MODEL", help="model file written by bandsolve build")
     p.add_argument("inputs", metavar="INPUT", nargs="+",
                    help="spectra files, folders (searched recursively) or - for stdin CSV")
-    p.add_argument("--out", metavar="FILE", help="results CSV (default: standard output)")
+    p.add_argument("--out", metavar="FILE", help="results file (default: standard output)")
+    p.add_argument("--format", choices=FORMATS, default=None,
+                   help="results format (default: from the --out ending, else csv); parquet "
+                        "needs the parquet extra")
     p.add_argument("--glob", metavar="PATTERN", help="file pattern inside folders")
     p.add_argument("--fail-on-flags", action="store_true",
                    help="exit with code 4 when any result is flagged")
+    run = p.add_argument_group("running")
+    run.add_argument("--jobs", type=int, default=1, metavar="N",
+                     help="parallel workers (-1: all cores; default 1)")
+    run.add_argument("--chunk-size", type=_positive, default=DEFAULT_CHUNK, metavar="N",
+                     help=f"spectra read at a time from large files (default {DEFAULT_CHUNK})")
+    run.add_argument("--scheduler", metavar="ADDRESS",
+                     help="run on an existing dask.distributed cluster (needs the dask extra)")
+    led = p.add_argument_group("results ledger")
+    led.add_argument("--ledger", metavar="FILE.sqlite",
+                     help="append this run and every result to a ledger (SQLite)")
+    led.add_argument("--batch", metavar="LABEL", help="batch label recorded in the ledger")
+    led.add_argument("--operator", metavar="NAME", help="operator recorded in the ledger")
     add_input_options(p)
-    p.set_defaults(func=run)
+    p.set_defaults(func=run_command)
 
 
-def run(args: argparse.Namespace) -> int:
+def _summary_line(summary, out: str | None) -> str:
+    n_ok = len(summary.inputs) - len(summary.failures)
+    return (f"{summary.n_predicted} spectra predicted from {n_ok} of {len(summary.inputs)} "
+            f"inputs; {summary.n_flagged} flagged; {len(summary.failures)} could not be read"
+            + (f"; results in {out}" if out not in (None, "-") else ""))
+
+
+def _run_cubes(model, args: argparse.Namespace) -> int:
+    from ..cube import predict_cube
+
+    if not all(i.lower().endswith(".npy") for i in args.inputs) or args.out in (None, "-"):
+        raise FormatError("spectral images (.npy) are predicted on their own, with --out "
+                          "FOLDER for the maps; give only .npy inputs and an --out folder")
+    for item in args.inputs:
+        res = predict_cube(model, item, args.out, chunk_size=args.chunk_size, n_jobs=args.jobs)
+        eprint(f"{item}: {res.shape[0]} x {res.shape[1]} maps "
+               + ", ".join(str(p) for p in [*res.maps.values(), res.flag_map])
+               + (f" ({res.notes})" if res.notes else ""))
+    return 0
+
+
+def run_command(args: argparse.Namespace) -> int:
     model = load_model(args.model)
+    if (args.batch or args.operator) and not args.ledger:
+        raise FormatError("--batch and --operator label a ledger run; add --ledger FILE.sqlite")
+    if any(i.lower().endswith(".npy") for i in args.inputs):
+        return _run_cubes(model, args)
+    fmt = format_for(args.out, args.format)
+    to_stdout = args.out in (None, "-")
+    if fmt == "parquet" and to_stdout:
+        raise FormatError("Parquet results need a file: add --out FILE.parquet")
     stdin_text = sys.stdin.read() if "-" in args.inputs else None
-    result = predict_inputs(model, args.inputs, read_options=read_options(args),
-                            pattern=args.glob, stdin_text=stdin_text)
-    write_table(result.table, args.out)
-    for failure in result.failures:
+    with contextlib.ExitStack() as stack:
+        if to_stdout:
+            handle = sys.stdout
+        elif fmt == "parquet":
+            handle = stack.enter_context(atomic_write(args.out, "wb"))
+        else:
+            handle = stack.enter_context(atomic_write(args.out, "w", newline=""))
+        writer = open_writer(handle, fmt, result_table_columns(model))
+        sinks = [writer]
+        recorder = None
+        if args.ledger:
+            from ..ledger import LedgerRecorder
+
+            recorder = LedgerRecorder(args.ledger, model, model_path=args.model,
+                                      batch=args.batch, operator=args.operator,
+                                      stdin_text=stdin_text)
+            stack.callback(recorder.close)
+            sinks.append(recorder)
+        summary = run_batch(model, args.inputs, sinks, read_options=read_options(args),
+                            pattern=args.glob, stdin_text=stdin_text,
+                            chunk_size=args.chunk_size, n_jobs=args.jobs,
+                            scheduler=args.scheduler)
+        writer.close()
+        if recorder is not None:
+            run_id = recorder.finish(summary.inputs, summary.failures)
+            eprint(f"recorded as run {run_id} in {args.ledger}")
+    for failure in summary.failures:
         eprint(f"bandsolve: skipped {failure.input}: {failure.reason}")
-    eprint(f"{len(result.table)} spectra predicted from {len(result.inputs) - len(result.failures)}"
-           f" of {len(result.inputs)} inputs; {result.n_flagged} flagged; "
-           f"{len(result.failures)} could not be read"
-           + (f"; results in {args.out}" if args.out not in (None, "-") else ""))
-    if result.failures:
+    eprint(_summary_line(summary, args.out))
+    if summary.failures:
         return EXIT_PARTIAL
-    if args.fail_on_flags and result.n_flagged:
+    if args.fail_on_flags and summary.n_flagged:
         return EXIT_FLAGGED
     return 0

@@ -1,0 +1,143 @@
+"""Results writers for batch prediction: CSV, JSON and Parquet, each a sink of :mod:`predict`.
+
+Every writer keeps the rows of the input being predicted in a spool (memory, then a temporary
+file beyond a few MB) and copies them to the destination only when the input is committed, so
+an input that fails half-way leaves no rows behind and memory stays bounded.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import shutil
+import tempfile
+from pathlib import Path
+from typing import IO, Any
+
+import pandas as pd
+
+from .errors import FormatError
+
+__all__ = ["FORMATS", "open_writer", "format_for"]
+
+FORMATS = ("csv", "json", "parquet")
+_SPOOL_BYTES = 8 << 20
+
+
+def format_for(out: str | None, fmt: str | None) -> str:
+    """Output format: as given, else from the ``out`` file ending, else CSV."""
+    if fmt:
+        if fmt not in FORMATS:
+            raise FormatError(f"unknown output format {fmt!r}; use one of {', '.join(FORMATS)}")
+        return fmt
+    suffix = Path(out).suffix.lower().lstrip(".") if out not in (None, "-") else ""
+    return suffix if suffix in FORMATS else "csv"
+
+
+class _TextWriter:
+    """CSV (header once) or a JSON array of row objects, spooled per input."""
+
+    def __init__(self, handle: IO[str], fmt: str, columns: list[str]) -> None:
+        self.handle, self.fmt, self.n_rows = handle, fmt, 0
+        self._spool: Any = None
+        if fmt == "csv":
+            pd.DataFrame(columns=columns).to_csv(handle, index=False)
+        else:
+            handle.write("[")
+
+    def begin_input(self, position: int, item: str) -> None:
+        self._spool = tempfile.SpooledTemporaryFile(_SPOOL_BYTES, mode="w+", encoding="utf-8",
+                                                    newline="")
+
+    def write(self, frame: pd.DataFrame) -> None:
+        if self.fmt == "csv":
+            frame.to_csv(self._spool, header=False, index=False)
+            return
+        for record in frame.to_dict(orient="records"):
+            clean = {k: (None if isinstance(v, float) and not math.isfinite(v) else v)
+                     for k, v in record.items()}
+            self._spool.write(json.dumps(clean, ensure_ascii=False) + "\n")
+
+    def discard_input(self) -> None:
+        self._spool.close()
+        self._spool = None
+
+    def commit_input(self) -> None:
+        self._spool.seek(0)
+        if self.fmt == "csv":
+            shutil.copyfileobj(self._spool, self.handle)
+        else:
+            for line in self._spool:
+                self.handle.write(("\n" if self.n_rows == 0 else ",\n") + line.rstrip("\n"))
+                self.n_rows += 1
+        self.discard_input()
+
+    def close(self) -> None:
+        if self.fmt == "json":
+            self.handle.write("\n]\n" if self.n_rows else "]\n")
+
+
+class _ParquetWriter:
+    """Parquet: each input goes to a temporary Parquet file, copied in batches on commit."""
+
+    def __init__(self, handle: IO[bytes], columns: list[str]) -> None:
+        import pyarrow as pa
+        import pyarrow.parquet as pq
+
+        self._pa, self._pq, self.handle, self.columns = pa, pq, handle, columns
+        self._writer: Any = None
+        self._tmpdir = tempfile.TemporaryDirectory(prefix="bandsolve-parquet-")
+        self._spool: Any = None
+        self._spool_path = Path(self._tmpdir.name) / "input.parquet"
+
+    def _schema(self, frame: pd.DataFrame):
+        schema = self._pa.Schema.from_pandas(frame, preserve_index=False)
+        return schema.remove_metadata()
+
+    def begin_input(self, position: int, item: str) -> None:
+        self._spool = None
+
+    def write(self, frame: pd.DataFrame) -> None:
+        table = self._pa.Table.from_pandas(frame, preserve_index=False)
+        table = table.replace_schema_metadata(None)
+        if self._spool is None:
+            self._spool = self._pq.ParquetWriter(self._spool_path, table.schema)
+        self._spool.write_table(table)
+
+    def discard_input(self) -> None:
+        if self._spool is not None:
+            self._spool.close()
+            self._spool = None
+
+    def commit_input(self) -> None:
+        if self._spool is None:
+            return
+        self.discard_input()
+        for batch in self._pq.ParquetFile(self._spool_path).iter_batches():
+            if self._writer is None:
+                self._writer = self._pq.ParquetWriter(self.handle, batch.schema)
+            self._writer.write_batch(batch)
+
+    def close(self) -> None:
+        if self._writer is None:
+            text = ("sample", "source", "flags", "notes")
+            empty = pd.DataFrame({c: pd.Series(dtype=str if c in text else float)
+                                  for c in self.columns})
+            self._writer = self._pq.ParquetWriter(self.handle, self._schema(empty))
+        self._writer.close()
+        self._tmpdir.cleanup()
+
+
+def open_writer(handle: IO, fmt: str, columns: list[str]):
+    """A results sink writing ``fmt`` to the open ``handle`` (binary for Parquet).
+
+    Call ``close()`` on it after the batch, before the handle is closed.
+    """
+    if fmt == "parquet":
+        try:
+            import pyarrow  # noqa: F401
+        except ImportError:
+            raise FormatError("Parquet output needs pyarrow: pip install 'bandsolve[parquet]', "
+                              "or choose --format csv or json") from None
+        return _ParquetWriter(handle, columns)
+    return _TextWriter(handle, fmt, columns)

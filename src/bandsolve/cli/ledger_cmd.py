@@ -1,0 +1,58 @@
+"""``bandsolve ledger``: list and export what a results ledger recorded (never edit it)."""
+
+from __future__ import annotations
+
+import argparse
+
+from ..io.atomic import atomic_write
+from ..ledger import list_inputs, list_results, list_runs
+from ._common import eprint
+
+EXAMPLES = """\
+examples:
+  bandsolve ledger results.sqlite                      list every run
+  bandsolve ledger results.sqlite --since 2025-03-01   runs since a date
+  bandsolve ledger results.sqlite --run 12             inputs and results of run 12
+  bandsolve ledger results.sqlite --sample 'rinse-*' --export rinse.csv
+
+The ledger is append-only: results cannot be edited or deleted; predict again for a new run.
+"""
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("ledger", help="list or export recorded prediction runs",
+                       description="List the runs of a results ledger, or the results of one "
+                                   "run, of a date range or of matching samples, and export "
+                                   "them as CSV.",
+                       epilog=EXAMPLES, formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("ledger", metavar="FILE.sqlite", help="ledger written by predict --ledger")
+    p.add_argument("--run", type=int, metavar="ID", help="only this run")
+    p.add_argument("--since", metavar="DATE", help="only runs started on or after DATE (UTC)")
+    p.add_argument("--sample", metavar="PATTERN", help="sample ids matching a glob pattern")
+    p.add_argument("--export", metavar="CSV", help="write the selected results to a CSV file")
+    p.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    if args.export or args.run is not None or args.sample:
+        results = list_results(args.ledger, run=args.run, since=args.since, sample=args.sample)
+        if args.export:
+            with atomic_write(args.export, "w", newline="") as handle:
+                results.to_csv(handle, index=False)
+            eprint(f"{len(results)} result rows written to {args.export}")
+            return 0
+        if args.run is not None:
+            inputs = list_inputs(args.ledger, args.run)
+            print(inputs.to_string(index=False) if len(inputs) else f"no run {args.run}")
+        keep = [c for c in ("run_id", "sample", "source", "flags") if c in results]
+        print(results[keep].to_string(index=False) if len(results) else "no matching results")
+        return 0
+    runs = list_runs(args.ledger, since=args.since)
+    if not len(runs):
+        print("no runs recorded")
+        return 0
+    runs = runs.assign(model_checksum=runs["model_checksum"].str[:12])
+    cols = ["run_id", "started", "batch", "operator", "model_checksum", "n_inputs",
+            "n_failed", "n_results"]
+    print(runs[cols].to_string(index=False))
+    return 0

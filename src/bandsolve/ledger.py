@@ -1,0 +1,289 @@
+"""Results ledger: an append-only SQLite record of every prediction run.
+
+A run records when it ran, the model (checksum and training-file fingerprints), the bandsolve
+version, user labels (batch, operator), every input with its SHA-256 and outcome, and every
+result row (key columns plus the whole row as JSON).
+
+While a batch runs, rows go to a private temporary database; when the batch ends they are
+copied into the ledger in **one transaction**. A run killed at any moment therefore leaves
+the ledger exactly as it was, and a long run never blocks other writers. Concurrent runs
+from several processes wait for each other (SQLite busy timeout, then retries). Triggers
+refuse UPDATE and DELETE: the ledger offers no way to change a recorded result; a
+re-prediction is a new run.
+
+Tables: ``runs(run_id, started, finished, model_path, model_checksum, training_files,
+bandsolve_version, batch, operator, n_inputs, n_failed, n_results)``,
+``inputs(run_id, position, path, sha256, status, reason)``,
+``results(run_id, row, input_position, sample, source, flags, concentrations, record)``.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import json
+import math
+import os
+import shutil
+import sqlite3
+import tempfile
+import time
+from collections.abc import Iterator
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+from urllib.parse import quote
+
+import pandas as pd
+
+from . import __version__
+from .errors import DataError
+from .model import Calibration
+
+__all__ = ["LedgerRecorder", "list_runs", "list_inputs", "list_results"]
+
+_SCHEMA = """
+CREATE TABLE IF NOT EXISTS runs (
+    run_id INTEGER PRIMARY KEY AUTOINCREMENT, started TEXT NOT NULL, finished TEXT NOT NULL,
+    model_path TEXT, model_checksum TEXT NOT NULL, training_files TEXT NOT NULL,
+    bandsolve_version TEXT NOT NULL, batch TEXT, operator TEXT,
+    n_inputs INTEGER NOT NULL, n_failed INTEGER NOT NULL, n_results INTEGER NOT NULL);
+CREATE TABLE IF NOT EXISTS inputs (
+    run_id INTEGER NOT NULL REFERENCES runs(run_id), position INTEGER NOT NULL,
+    path TEXT NOT NULL, sha256 TEXT, status TEXT NOT NULL, reason TEXT);
+CREATE TABLE IF NOT EXISTS results (
+    run_id INTEGER NOT NULL REFERENCES runs(run_id), row INTEGER NOT NULL,
+    input_position INTEGER NOT NULL, sample TEXT NOT NULL, source TEXT, flags TEXT NOT NULL,
+    concentrations TEXT NOT NULL, record TEXT NOT NULL);
+CREATE INDEX IF NOT EXISTS results_run ON results(run_id);
+CREATE INDEX IF NOT EXISTS results_sample ON results(sample)
+"""
+_TABLES = ("runs", "inputs", "results")
+# One statement each: executescript() would commit the open transaction first.
+_SETUP = [s.strip() for s in _SCHEMA.split(";")] + [
+    f"CREATE TRIGGER IF NOT EXISTS {t}_no_{op} BEFORE {op.upper()} ON {t} BEGIN "
+    f"SELECT RAISE(ABORT, 'the results ledger is append-only: recorded {t} cannot be "
+    f"changed or removed'); END" for t in _TABLES for op in ("update", "delete")]
+_SPOOL = """
+CREATE TABLE results (row INTEGER PRIMARY KEY, input_position INTEGER, sample TEXT,
+    source TEXT, flags TEXT, concentrations TEXT, record TEXT);
+"""
+_BUSY_SECONDS = 30.0
+_RETRIES = 8
+
+
+def _now() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+
+
+def _json_value(v: Any) -> Any:
+    if isinstance(v, float) and not math.isfinite(v):
+        return None
+    return v.item() if hasattr(v, "item") else v
+
+
+class LedgerRecorder:
+    """A batch sink that records one run in a ledger (see :func:`bandsolve.predict.run_batch`).
+
+    Parameters
+    ----------
+    path : path-like
+        The ledger (SQLite file); created when absent.
+    model : Calibration
+        The model used (its checksum and training-file fingerprints are recorded).
+    model_path : str, optional
+        Where the model file was read from.
+    batch, operator : str, optional
+        User labels stored with the run.
+    stdin_text : str, optional
+        Text read from standard input (``-``), hashed for the record.
+    """
+
+    def __init__(self, path: str | os.PathLike[str], model: Calibration, *,
+                 model_path: str | None = None, batch: str | None = None,
+                 operator: str | None = None, stdin_text: str | None = None) -> None:
+        from .bundle import model_checksum
+
+        self.path = Path(path)
+        self.started = _now()
+        self.model_path, self.batch, self.operator = model_path, batch, operator
+        self.checksum = model.provenance.get("model_checksum") or model_checksum(model)
+        self.training = json.dumps(model.provenance.get("training_files", []), sort_keys=True)
+        self.analytes = list(model.analytes)
+        self._stdin_sha = (hashlib.sha256(stdin_text.encode()).hexdigest()
+                           if stdin_text is not None else None)
+        self._hashes: dict[int, str | None] = {}
+        self._position = -1
+        self._dir = tempfile.mkdtemp(prefix="bandsolve-ledger-")
+        self._spool_path = Path(self._dir) / "run.sqlite"
+        self._spool = sqlite3.connect(self._spool_path, isolation_level=None)
+        self._spool.executescript(_SPOOL)
+        self._spool.execute("BEGIN")
+
+    # -------------------------------------------------------------- sink protocol
+    def begin_input(self, position: int, item: str) -> None:
+        self._position = position
+        self._spool.execute("SAVEPOINT input")
+
+    def write(self, frame: pd.DataFrame) -> None:
+        rows = []
+        for record in frame.to_dict(orient="records"):
+            clean = {k: _json_value(v) for k, v in record.items()}
+            conc = {a: clean.get(a) for a in self.analytes}
+            rows.append((self._position, str(clean["sample"]), clean.get("source"),
+                         clean.get("flags") or "", json.dumps(conc), json.dumps(clean)))
+        self._spool.executemany(
+            "INSERT INTO results (input_position, sample, source, flags, concentrations, "
+            "record) VALUES (?, ?, ?, ?, ?, ?)", rows)
+
+    def discard_input(self) -> None:
+        self._spool.execute("ROLLBACK TO input")
+        self._spool.execute("RELEASE input")
+
+    def commit_input(self) -> None:
+        self._spool.execute("RELEASE input")
+
+    # -------------------------------------------------------------- the run
+    def _sha(self, item: str) -> str | None:
+        if item == "-":
+            return self._stdin_sha
+        from .bundle import sha256_file
+
+        try:
+            return sha256_file(item) if os.path.isfile(item) else None
+        except OSError:
+            return None
+
+    def finish(self, inputs: list[str], failures: list[Any]) -> int:
+        """Write the run into the ledger in one transaction; returns its run id."""
+        self._spool.execute("COMMIT")
+        reasons = {f.input: f.reason for f in failures}
+        input_rows = [(i, p, self._sha(p), "failed" if p in reasons else "predicted",
+                       reasons.get(p)) for i, p in enumerate(inputs)]
+        n_results = self._spool.execute("SELECT COUNT(*) FROM results").fetchone()[0]
+        self._spool.close()
+        run = (self.started, _now(), self.model_path, self.checksum, self.training,
+               __version__, self.batch, self.operator, len(inputs), len(reasons), n_results)
+        for attempt in range(_RETRIES):
+            try:
+                return self._append(run, input_rows)
+            except sqlite3.OperationalError as exc:
+                if "locked" not in str(exc) and "busy" not in str(exc):
+                    raise DataError(f"{self.path}: cannot write the results ledger "
+                                    f"({exc})") from None
+                if attempt == _RETRIES - 1:
+                    raise DataError(f"{self.path}: the results ledger stayed locked by other "
+                                    "runs; run again (nothing of this run was recorded)"
+                                    ) from None
+                time.sleep(0.05 * 2**attempt)
+        raise AssertionError("unreachable")  # pragma: no cover
+
+    def _append(self, run: tuple, input_rows: list[tuple]) -> int:
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        con = sqlite3.connect(self.path, timeout=_BUSY_SECONDS, isolation_level=None)
+        try:
+            con.execute("ATTACH DATABASE ? AS spool", (str(self._spool_path),))
+            con.execute("BEGIN IMMEDIATE")
+            try:
+                for statement in _SETUP:
+                    con.execute(statement)
+                cur = con.execute(
+                    "INSERT INTO runs (started, finished, model_path, model_checksum, "
+                    "training_files, bandsolve_version, batch, operator, n_inputs, n_failed, "
+                    "n_results) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", run)
+                run_id = int(cur.lastrowid)
+                con.executemany("INSERT INTO inputs VALUES (?, ?, ?, ?, ?, ?)",
+                                [(run_id, *r) for r in input_rows])
+                con.execute(
+                    "INSERT INTO main.results SELECT ?, row, input_position, sample, source, "
+                    "flags, concentrations, record FROM spool.results ORDER BY row",
+                    (run_id,))
+                con.execute("COMMIT")
+            except BaseException:
+                con.execute("ROLLBACK")
+                raise
+            return run_id
+        finally:
+            con.close()
+
+    def close(self) -> None:
+        """Remove the temporary spool (call after :meth:`finish`, or to abandon the run)."""
+        self._spool.close()
+        shutil.rmtree(self._dir, ignore_errors=True)
+
+
+# ---------------------------------------------------------------------- reading
+@contextlib.contextmanager
+def _connect_ro(path: str | os.PathLike[str]) -> Iterator[sqlite3.Connection]:
+    if not Path(path).is_file():
+        raise DataError(f"{path}: no such ledger; it is created by bandsolve predict --ledger")
+    con = sqlite3.connect(f"file:{quote(str(Path(path).resolve()))}?mode=ro", uri=True,
+                          timeout=_BUSY_SECONDS)
+    tables = {r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type='table'")}
+    try:
+        if not set(_TABLES) <= tables:
+            raise DataError(f"{path}: not a bandsolve results ledger (tables "
+                            f"{sorted(tables)})")
+        yield con
+    finally:
+        con.close()
+
+
+def _since(value: str | None) -> str | None:
+    if value is None:
+        return None
+    try:
+        when = datetime.fromisoformat(value)
+    except ValueError:
+        raise DataError(f"--since {value!r} is not a date; use YYYY-MM-DD or an ISO time "
+                        "such as 2025-03-01T08:00") from None
+    if when.tzinfo is None:
+        when = when.replace(tzinfo=timezone.utc)
+    return when.astimezone(timezone.utc).isoformat(timespec="seconds")
+
+
+def list_runs(path: str | os.PathLike[str], *, since: str | None = None) -> pd.DataFrame:
+    """Every run (one row each), oldest first; ``since`` keeps runs started at/after a date."""
+    with _connect_ro(path) as con:
+        return pd.read_sql_query(
+            "SELECT * FROM runs WHERE started >= COALESCE(?, '') ORDER BY run_id", con,
+            params=(_since(since),))
+
+
+def list_inputs(path: str | os.PathLike[str], run: int) -> pd.DataFrame:
+    """Inputs of one run with their SHA-256, status and failure reason."""
+    with _connect_ro(path) as con:
+        return pd.read_sql_query("SELECT * FROM inputs WHERE run_id = ? ORDER BY position",
+                                 con, params=(run,))
+
+
+def list_results(path: str | os.PathLike[str], *, run: int | None = None,
+                 since: str | None = None, sample: str | None = None) -> pd.DataFrame:
+    """Recorded result rows with their run's labels, expanded from the stored JSON rows.
+
+    Parameters
+    ----------
+    run : int, optional
+        Only this run.
+    since : str, optional
+        Only runs started at or after this ISO date/time (UTC when no zone is given).
+    sample : str, optional
+        Glob pattern on the sample id (``*`` and ``?``; case-sensitive).
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``run_id``, ``started``, ``batch``, ``operator``, ``model_checksum``, ``input``,
+        ``input_sha256``, then the columns of the stored results table.
+    """
+    query = (
+        "SELECT r.run_id, u.started, u.batch, u.operator, u.model_checksum, i.path AS input, "
+        "i.sha256 AS input_sha256, r.record FROM results r JOIN runs u USING (run_id) "
+        "JOIN inputs i ON i.run_id = r.run_id AND i.position = r.input_position "
+        "WHERE (? IS NULL OR r.run_id = ?) AND u.started >= COALESCE(?, '') "
+        "AND (? IS NULL OR r.sample GLOB ?) ORDER BY r.run_id, r.row")
+    with _connect_ro(path) as con:
+        rows = con.execute(query, (run, run, _since(since), sample, sample)).fetchall()
+    head = ["run_id", "started", "batch", "operator", "model_checksum", "input", "input_sha256"]
+    records = [dict(zip(head, r[:-1], strict=True)) | json.loads(r[-1]) for r in rows]
+    return pd.DataFrame.from_records(records, columns=None if records else head)
