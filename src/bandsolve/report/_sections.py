@@ -190,7 +190,7 @@ def merit_section(merit: FiguresOfMerit | None, origin: str) -> str:
 def result_section(result: Any, what: str, how: str) -> str:
     """Summary text and table of an assessment or comparison object (duck-typed)."""
     if result is None:
-        return note(f"No {what} was requested for this report ({how}).")
+        return note(f"No {what} results are included in this report ({how}).")
     return pre(result.summary()) + frame_table(result.to_frame(), index=True)
 
 

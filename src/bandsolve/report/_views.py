@@ -1,7 +1,7 @@
 """From a Calibration and optional sample sets to the arrays and figures of the report.
 
-The numbers come from the model's own methods and from :mod:`bandsolve.merit` and
-:mod:`bandsolve.diagnostics`; this module only arranges them for :mod:`.figures`.
+The numbers come from the model's own methods and from :mod:`bandsolve.merit`; this module only
+arranges them for :mod:`.figures`.
 """
 
 from __future__ import annotations
@@ -13,18 +13,9 @@ import pandas as pd
 from matplotlib.figure import Figure
 
 from ..concentrations import ConcentrationTable, align, split_unit
-from ..diagnostics import leverage
 from ..errors import DataError, where
 from ..flags import split_flags
-from ..merit import (
-    FiguresOfMerit,
-    blank_leverage,
-    cls_figures,
-    cls_net_analyte_signal,
-    figures_of_merit,
-    inverse_figures,
-    noise_from_blanks,
-)
+from ..merit import FiguresOfMerit, cls_figures, cls_net_analyte_signal
 from ..model import Calibration, result_columns
 from ..spectra import SpectralSet
 from . import figures as F
@@ -136,58 +127,31 @@ def overlay_figure(cal: Calibration, cal_set: SampleSet) -> ReportFigure:
                         f"model grid, coloured by {cal.analytes[0]}.", fig)
 
 
-def net_signal(cal: Calibration, cal_set: SampleSet | None) -> tuple[np.ndarray, np.ndarray]:
-    """NAS vectors at unit concentration (m, p') and selectivities (m,)."""
+def net_signal(cal: Calibration, merit: FiguresOfMerit | None) -> tuple[np.ndarray, np.ndarray]:
+    """NAS vectors at unit concentration (m, p') and selectivities (m,; NaN when unknown)."""
+    sel = np.full(cal.n_analytes, np.nan)
+    if merit is not None:
+        sel = np.array([np.nan if r.selectivity is None else r.selectivity
+                        for r in merit.analytes])
     if cal.method == "cls":
         aug = cal.estimators[0].augmented_spectra_
         m = cal.n_analytes
         nas = np.vstack([cls_net_analyte_signal(aug.T, k) for k in range(m)])
-        return nas, cls_figures(aug, m, 1.0).selectivity
+        return nas, cls_figures(aug, m, 1.0).selectivity if merit is None else sel
     b = _regression_vectors(cal)
-    nas = b / np.sum(b**2, axis=1, keepdims=True)  # x* = b/‖b‖² at unit concentration
-    if cal_set is None:
-        return nas, np.full(cal.n_analytes, np.nan)
-    Z = cal.preprocessor.transform(cal_set.X)
-    sel = inverse_figures(b.T, 1.0, X_calibration=Z, y_calibration=cal_set.reference)
-    return nas, sel.selectivity
+    return b / np.sum(b**2, axis=1, keepdims=True), sel  # x* = b/‖b‖² at unit concentration
 
 
-def nas_figure(cal: Calibration, cal_set: SampleSet | None) -> ReportFigure:
-    nas, sel = net_signal(cal, cal_set)
+def nas_figure(cal: Calibration, merit: FiguresOfMerit | None) -> ReportFigure:
+    nas, sel = net_signal(cal, merit)
     fig = F.nas_selectivity_figure(cal.preprocessor.axis_out_, nas, sel, cal.analytes,
                                    axis_unit=cal.axis_unit)
     how = ("the part of each pure spectrum orthogonal to all other columns of K (Lorber 1986)"
-           if cal.method == "cls" else "b/‖b‖² (Faber 1998); selectivity needs the "
-           "calibration data (s ≈ Xᶜᵀyᶜ/yᶜᵀyᶜ)")
+           if cal.method == "cls" else "b/‖b‖² (Faber 1998); selectivity comes from the "
+           "figures of merit (n/a without them)")
     return ReportFigure("fig-nas", "merit", "Net analyte signal and selectivity",
                         f"Net analyte signal at unit concentration: {how}. Selectivity "
                         "SEL = ‖NAS‖/‖pure spectrum‖; 1 means no overlap.", fig)
-
-
-def merit_from_blanks(cal: Calibration, blanks: SpectralSet,
-                      cal_set: SampleSet | None) -> FiguresOfMerit:
-    """Figures of merit with σx from replicate blank spectra (Olivieri et al. 2006)."""
-    Xb, _ = cal.prepare(blanks)
-    Zb = cal.preprocessor.transform(Xb)
-    sigma = noise_from_blanks(Zb)
-    units = [split_unit(a)[1] or "" for a in cal.analytes]
-    if cal.method == "cls":
-        est = cal.estimators[0]
-        h0 = 0.0
-        if cal_set is not None and est.fit_intercept:
-            design = np.column_stack([cal_set.reference, np.ones(len(cal_set.X))])
-            h0 = blank_leverage(design, np.r_[np.zeros(cal.n_analytes), 1.0])
-        signal = cls_figures(est.augmented_spectra_, cal.n_analytes, sigma, h0)
-    else:
-        zb = Zb.mean(axis=0, keepdims=True)
-        h0 = np.concatenate([np.repeat(leverage(est.transform(zb), est.x_scores_),
-                                       np.atleast_2d(est.coef_).shape[0])
-                             for est in cal.estimators])
-        kwargs = {} if cal_set is None else {
-            "X_calibration": cal.preprocessor.transform(cal_set.X),
-            "y_calibration": cal_set.reference}
-        signal = inverse_figures(_regression_vectors(cal).T, sigma, h0, **kwargs)
-    return figures_of_merit(signal, cal.analytes, units)
 
 
 def residual_spectra(cal: Calibration, X: np.ndarray) -> np.ndarray:

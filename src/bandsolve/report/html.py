@@ -39,16 +39,19 @@ SECTION_IDS: tuple[tuple[str, str], ...] = (
 )
 
 
-def _merit(cal: Calibration, blanks: SpectralSet | None,
-           cal_set: V.SampleSet | None) -> tuple[FiguresOfMerit | None, str]:
+def _merit(cal: Calibration, spectra: SpectralSet | None, table: ConcentrationTable | None,
+           blanks: SpectralSet | None) -> tuple[FiguresOfMerit | None, str]:
     if cal.merit:
         return FiguresOfMerit.from_dict(cal.merit), "Figures of merit stored with the model."
-    if blanks is None:
+    if spectra is None and blanks is None:
         return None, ""
-    origin = (f"Computed for this report: spectral noise σx from {len(blanks.sample_ids)} "
-              f"replicate blank spectra ({blanks.source or 'given'}); these values are not "
-              "stored in the model file.")
-    return V.merit_from_blanks(cal, blanks, cal_set), origin
+    from ..validation import calibration_merit
+
+    noise = (f"{len(blanks.sample_ids)} replicate blank spectra" if blanks is not None
+             else "the calibration residuals")
+    origin = (f"Computed for this report from the calibration data, with the spectral noise "
+              f"σx from {noise}; these values are not stored in the model file.")
+    return calibration_merit(cal, spectra, table, blanks=blanks), origin
 
 
 def _batch_table(batch: Any) -> pd.DataFrame | None:
@@ -71,13 +74,13 @@ def render_report(cal: Calibration, *, calibration_spectra: SpectralSet | None =
     if validation_spectra is not None:
         val_set = V.sample_set(cal, "validation", validation_spectra, validation_table)
     table = _batch_table(batch)
-    merit, merit_origin = _merit(cal, blanks, cal_set)
+    merit, merit_origin = _merit(cal, calibration_spectra, calibration_table, blanks)
 
     # Each entry makes one figure when called; built lazily so progress can be reported.
     makers: list[Any] = [lambda: V.component_figure(cal), lambda: V.rmsecv_figures(cal)]
     if cal_set is not None:
         makers.append(lambda: V.overlay_figure(cal, cal_set))
-    makers.append(lambda: V.nas_figure(cal, cal_set))
+    makers.append(lambda: V.nas_figure(cal, merit))
     points = []
     for sset in (cal_set, val_set):
         if sset is not None:
@@ -161,8 +164,9 @@ def write_report(cal: Calibration, path: str | Path, *,
         Independent test samples for the predicted-against-reference, residual and outlier
         figures of the validation section (the table is optional).
     blanks : SpectralSet, optional
-        Replicate blank spectra: figures of merit are computed from them when the model
-        stores none.
+        Replicate blank spectra for the noise of the figures of merit, which are computed
+        (:func:`bandsolve.validation.calibration_merit`) when the model stores none and
+        calibration data or blanks are given.
     title : str, optional
     progress : callable, optional
         ``progress(done, total, label)`` after each figure (see :mod:`bandsolve.progress`).

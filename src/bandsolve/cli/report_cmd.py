@@ -1,0 +1,99 @@
+"""``bandsolve report``: one self-contained, printable HTML report of a model file."""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import importlib.util
+from collections.abc import Callable
+from typing import Any
+
+from ..bundle import load_model
+from ..io import read_concentrations, read_spectra
+from ..predict import predict_inputs
+from ..progress import progress_bar
+from ..report import write_report
+from ._common import add_input_options, eprint, read_options
+
+EXAMPLES = """\
+examples:
+  # the model alone: definition, limits, component spectra, flags legend, cautions
+  bandsolve report models/rinse-cls.bsm --out rinse-report.html
+
+  # with the calibration data, an independent validation set, blanks and a routine batch
+  bandsolve report models/rinse-cls.bsm --calibration cal_spectra.csv cal_conc.csv \\
+      --assess val_spectra.csv val_conc.csv --blanks blanks.csv \\
+      --batch routine/ --out rinse-report.html
+"""
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("report", help="write a self-contained HTML report of a model",
+                       description="Write one HTML file (figures inline, no network requests, "
+                                   "printable) describing a model, its figures of merit, its "
+                                   "validation and optionally a prediction batch.",
+                       epilog=EXAMPLES, formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("model", metavar="MODEL", help="model file written by bandsolve build")
+    p.add_argument("--out", metavar="REPORT.html", required=True, help="report file to write")
+    p.add_argument("--calibration", nargs=2, metavar=("SPECTRA", "CONC"),
+                   help="calibration spectra and concentrations (overlay, fit, selectivity)")
+    p.add_argument("--assess", nargs=2, metavar=("SPECTRA", "CONC"),
+                   help="independent validation spectra and known concentrations")
+    p.add_argument("--compare", nargs=2, metavar=("SPECTRA", "CONC"),
+                   help="data on which to compare calibration methods")
+    p.add_argument("--blanks", metavar="FILE",
+                   help="replicate blank spectra: noise for the figures of merit")
+    p.add_argument("--batch", nargs="+", metavar="SPECTRA",
+                   help="routine spectra files or folders to predict and include")
+    p.add_argument("--title", help="report title (default: from the model)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    add_input_options(p)
+    p.set_defaults(func=run)
+
+
+def optional_api(module: str, name: str) -> Callable[..., Any] | None:
+    """``bandsolve.<module>.<name>`` when that module is installed, else None."""
+    if importlib.util.find_spec(f"bandsolve.{module}") is None:
+        return None
+    return getattr(importlib.import_module(f"bandsolve.{module}"), name, None)
+
+
+def _pair(pair: list[str] | None, args: argparse.Namespace):
+    if not pair:
+        return None, None
+    return read_spectra(pair[0], **read_options(args)), read_concentrations(pair[1])
+
+
+def run(args: argparse.Namespace) -> int:
+    cal = load_model(args.model)
+    cal_spectra, cal_table = _pair(args.calibration, args)
+    val_spectra, val_table = _pair(args.assess, args)
+    assessment = comparison = None
+    if val_spectra is not None:
+        assess = optional_api("assess", "assess")
+        if assess is None:
+            eprint("bandsolve: note: validation statistics are not available in this "
+                   "installation; the report shows the validation figures only")
+        else:
+            assessment = assess(cal, val_spectra, val_table)
+    if args.compare:
+        compare_methods = optional_api("compare", "compare_methods")
+        if compare_methods is None:
+            eprint("bandsolve: note: method comparison is not available in this "
+                   "installation; the report leaves it out")
+        else:
+            comparison = compare_methods(*_pair(args.compare, args))
+    blanks = read_spectra(args.blanks, **read_options(args)) if args.blanks else None
+    batch = None
+    if args.batch:
+        batch = predict_inputs(cal, args.batch, read_options=read_options(args))
+        for failure in batch.failures:
+            eprint(f"bandsolve: warning: {failure.input}: {failure.reason}")
+    bar = progress_bar(args.quiet)
+    path = write_report(cal, args.out, calibration_spectra=cal_spectra,
+                        calibration_table=cal_table, assessment=assessment,
+                        comparison=comparison, batch=batch, validation_spectra=val_spectra,
+                        validation_table=val_table, blanks=blanks, title=args.title,
+                        progress=bar)
+    eprint(f"Report written to {path}")
+    return 0
