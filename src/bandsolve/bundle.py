@@ -186,10 +186,20 @@ def load_model(path: str | os.PathLike[str]) -> Calibration:
             members = {info.filename: zf.read(info) for info in zf.infolist()}
     except FileNotFoundError:
         raise ModelFileError(f"{path}: no such model file") from None
-    except (zipfile.BadZipFile, OSError, EOFError, ValueError) as exc:
-        raise ModelFileError(f"{path}: not a bandsolve model file, or truncated ({exc})") from None
+    except zipfile.BadZipFile as exc:
+        if "CRC" in str(exc):
+            raise ModelFileError(f"{path}: damaged content: {exc} (a changed byte); the file "
+                                 "was altered or corrupted in transfer, use the original"
+                                 ) from None
+        raise ModelFileError(f"{path}: truncated or not a bandsolve model file (no complete "
+                             f"archive directory at its end: {exc}); copy the whole file "
+                             "again") from None
+    except (OSError, EOFError, ValueError) as exc:
+        raise ModelFileError(f"{path}: truncated or unreadable model file ({exc}); copy the "
+                             "whole file again") from None
     except Exception as exc:  # zlib.error and friends from a damaged archive
-        raise ModelFileError(f"{path}: the model file is damaged ({exc})") from None
+        raise ModelFileError(f"{path}: damaged content ({exc}); the file was altered or "
+                             "corrupted in transfer, use the original") from None
     manifest = _read_manifest(path, members)
     expected = manifest.get("members", {})
     actual = {k: hashlib.sha256(v).hexdigest() for k, v in members.items() if k != "manifest.json"}
