@@ -1,0 +1,225 @@
+"""Assessment of a calibration on an independent test set (the API behind ``bandsolve assess``).
+
+Conventions (``e = ŷ − y``, n_p test samples): RMSEP ``√(Σe²/n_p)``; bias ``Σe/n_p`` with the
+t-test ``t = |bias|√n_p/SEP`` on ``n_p − 1`` df; SEP (bias-corrected) ``√(Σ(e − bias)²/(n_p −
+1))``; R² ``1 − Σe²/Σ(y − ȳ)²``; RPD ``SD(y)/SEP``; the line ``ŷ = a + b·y`` by ordinary least
+squares with t intervals on ``n_p − 2`` df and the joint F-test of ``b = 1, a = 0`` on
+``(2, n_p − 2)`` df. Consistency with the model's stored RMSECV: ``F = RMSEP²/RMSECV²`` against
+``F(n_p, n_cal)`` (approximate: cross-validated errors are not independent).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from .concentrations import ConcentrationTable, align, split_unit
+from .errors import DataError
+from .flags import split_flags
+from .merit import RegressionStatistics, regression_statistics
+from .model import Calibration
+from .spectra import SpectralSet
+
+__all__ = ["AnalyteAssessment", "Assessment", "assess"]
+
+
+@dataclass(frozen=True)
+class AnalyteAssessment:
+    """Test-set statistics of one analyte.
+
+    Attributes
+    ----------
+    analyte, unit : str
+    statistics : RegressionStatistics
+        RMSEP, bias and its t-test, SEP, R², RPD, slope/intercept with intervals, joint test.
+    rmsecv : float or None
+        RMSECV stored in the model's figures of merit.
+    rmsep_ratio : float or None
+        RMSEP / RMSECV.
+    consistency_p : float or None
+        ``P(F(n_p, n_cal) ≥ RMSEP²/RMSECV²)``: small when the test errors are larger than the
+        calibration promised.
+    """
+
+    analyte: str
+    unit: str
+    statistics: RegressionStatistics
+    rmsecv: float | None
+    rmsep_ratio: float | None
+    consistency_p: float | None
+
+
+@dataclass(frozen=True)
+class Assessment:
+    """Result of :func:`assess`.
+
+    Attributes
+    ----------
+    method : str
+        ``"cls"`` or ``"pls"``.
+    analytes : tuple of AnalyteAssessment
+    n_samples, n_flagged : int
+        Test spectra, and those whose result carries any flag.
+    flag_counts : dict
+        Spectra per flag code.
+    samples : pandas.DataFrame
+        Per sample: ``sample``, per analyte ``<label> reference``, ``<label>`` (predicted),
+        ``<label> error``, ``<label> SE``; then ``flags``.
+    alpha : float
+        Level of the confidence intervals and tests.
+    """
+
+    method: str
+    analytes: tuple[AnalyteAssessment, ...]
+    n_samples: int
+    n_flagged: int
+    flag_counts: dict[str, int]
+    samples: pd.DataFrame
+    alpha: float
+
+    @property
+    def fraction_flagged(self) -> float:
+        """Share of test results carrying a flag (0..1)."""
+        return self.n_flagged / self.n_samples
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per analyte: the statistics as named columns."""
+        rows = []
+        for a in self.analytes:
+            s = a.statistics
+            rows.append({
+                "analyte": a.analyte, "unit": a.unit, "n": s.n, "RMSEP": s.rmse,
+                "bias": s.bias, "bias t": s.bias_t, "bias p": s.bias_p, "SEP": s.sep,
+                "R2": s.r2, "RPD": s.rpd, "slope": s.slope, "slope low": s.slope_ci[0],
+                "slope high": s.slope_ci[1], "intercept": s.intercept,
+                "intercept low": s.intercept_ci[0], "intercept high": s.intercept_ci[1],
+                "line F": s.line_f, "line p": s.line_p, "RMSECV (model)": a.rmsecv,
+                "RMSEP/RMSECV": a.rmsep_ratio, "consistency p": a.consistency_p,
+            })
+        return pd.DataFrame(rows).set_index("analyte")
+
+    def summary(self) -> str:
+        """A readable table with the conventions stated."""
+        pct = round((1 - self.alpha) * 100)
+        lines = [f"Assessment on an independent test set ({self.method.upper()} model, "
+                 f"{self.n_samples} spectra)"]
+        for a in self.analytes:
+            s = a.statistics
+            u = a.unit
+            lines += [
+                f"{a.analyte} [{u}]",
+                f"  RMSEP {s.rmse:.4g}   bias {s.bias:+.4g} (t = {s.bias_t:.3g}, p = "
+                f"{s.bias_p:.3g})   SEP {s.sep:.4g}   R² {s.r2:.4f}   RPD {s.rpd:.3g}",
+                f"  predicted = {s.intercept:+.4g} + {s.slope:.4f} × reference;  slope "
+                f"{pct} % CI {s.slope_ci[0]:.4f}..{s.slope_ci[1]:.4f}, intercept {pct} % CI "
+                f"{s.intercept_ci[0]:+.4g}..{s.intercept_ci[1]:+.4g};  slope 1 and intercept 0 "
+                f"jointly: F = {s.line_f:.3g}, p = {s.line_p:.3g}",
+            ]
+            if a.rmsecv is not None:
+                lines.append(f"  model RMSECV {a.rmsecv:.4g}: RMSEP/RMSECV = "
+                             f"{a.rmsep_ratio:.3g} (F-test p = {a.consistency_p:.3g})")
+        flagged = ", ".join(f"{k} {v}" for k, v in sorted(self.flag_counts.items()))
+        lines.append(f"flagged results: {self.n_flagged} of {self.n_samples} "
+                     f"({100 * self.fraction_flagged:.0f} %)" + (f": {flagged}" if flagged else ""))
+        lines.append("conventions: RMSEP √(Σe²/n); bias test t = |bias|√n/SEP on n−1 df; SEP "
+                     "bias-corrected (n−1); RPD = SD(reference)/SEP; line by OLS, joint F-test "
+                     "on (2, n−2) df; e = predicted − reference")
+        return "\n".join(lines)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-serialisable dictionary (the per-sample table as a list of records)."""
+        return {
+            "method": self.method,
+            "n_samples": self.n_samples,
+            "n_flagged": self.n_flagged,
+            "fraction_flagged": self.fraction_flagged,
+            "flag_counts": dict(self.flag_counts),
+            "alpha": self.alpha,
+            "analytes": [{"analyte": a.analyte, "unit": a.unit,
+                          "statistics": a.statistics.to_dict(), "rmsecv": a.rmsecv,
+                          "rmsep_ratio": a.rmsep_ratio, "consistency_p": a.consistency_p}
+                         for a in self.analytes],
+            "samples": self.samples.to_dict(orient="records"),
+        }
+
+
+def _stored_rmsecv(cal: Calibration) -> list[float | None]:
+    rows = (cal.merit or {}).get("analytes") or []
+    values = [row.get("rmsecv") for row in rows]
+    return values if len(values) == cal.n_analytes else [None] * cal.n_analytes
+
+
+def _reference(cal: Calibration, spectra: SpectralSet,
+               table: ConcentrationTable) -> np.ndarray:
+    spectra, table = align(spectra, table)
+    by_name = {split_unit(a)[0]: a for a in table.analytes}
+    columns = []
+    for label in cal.analytes:
+        if label in table.analytes:
+            columns.append(table.analytes.index(label))
+            continue
+        found = by_name.get(split_unit(label)[0])
+        hint = (f"its column is {found!r}: convert to the model's unit" if found
+                else f"add a column {label!r}")
+        raise DataError(f"{table.source or 'the reference table'} has no column {label!r} "
+                        f"for the model's analyte; {hint}")
+    return np.asarray(table.values)[:, columns]
+
+
+def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
+           alpha: float = 0.05) -> Assessment:
+    """Predict an independent test set and compare with its reference concentrations.
+
+    Parameters
+    ----------
+    cal : Calibration
+        The model (its ``merit`` supplies the RMSECV for the consistency check).
+    spectra : SpectralSet
+        Test spectra (n_p ≥ 3), not used to build the model.
+    table : ConcentrationTable
+        Reference concentrations; sample ids must match the spectra, and one column per model
+        analyte with the same label (unit included).
+    alpha : float
+        Level of the confidence intervals and tests.
+
+    Returns
+    -------
+    Assessment
+
+    References
+    ----------
+    Olivieri, A. C. et al. (2006). Uncertainty estimation and figures of merit for multivariate
+    calibration. Pure Appl. Chem. 78, 633-661.
+    ICH Q2(R2) (2023). Validation of analytical procedures (accuracy on an independent set).
+    """
+    reference = _reference(cal, spectra, table)
+    predicted = cal.predict(spectra)
+    n = len(predicted)
+    n_cal = int(cal.provenance.get("n_calibration_samples") or 0)
+    samples: dict[str, Any] = {"sample": predicted["sample"].tolist()}
+    results = []
+    for k, (label, cv) in enumerate(zip(cal.analytes, _stored_rmsecv(cal), strict=True)):
+        y_hat = predicted[label].to_numpy(dtype=float)
+        samples[f"{label} reference"] = reference[:, k]
+        samples[label] = y_hat
+        samples[f"{label} error"] = y_hat - reference[:, k]
+        samples[f"{label} SE"] = predicted[f"{label} SE"].to_numpy(dtype=float)
+        s = regression_statistics(reference[:, k], y_hat, alpha=alpha)
+        ratio = p_value = None
+        if cv is not None and cv > 0:
+            ratio = s.rmse / cv
+            p_value = float(stats.f.sf(ratio**2, n, n_cal)) if n_cal > 0 else None
+        name, unit = split_unit(label)
+        results.append(AnalyteAssessment(name, unit or "unit", s, cv, ratio, p_value))
+    samples["flags"] = predicted["flags"].tolist()
+    counts: dict[str, int] = {}
+    for text in samples["flags"]:
+        for code in split_flags(text):
+            counts[code] = counts.get(code, 0) + 1
+    n_flagged = sum(1 for text in samples["flags"] if split_flags(text))
+    return Assessment(cal.method, tuple(results), n, n_flagged, counts,
+                      pd.DataFrame(samples), float(alpha))

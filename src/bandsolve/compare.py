@@ -1,0 +1,354 @@
+"""CLS or PLS? Side-by-side comparison on identical folds (the API behind ``bandsolve compare``).
+
+:func:`compare_methods` cross-validates CLS without and with baseline terms and PLS (component
+count chosen by the usual rule) on one list of folds made once, optionally predicts an
+independent test set with models fitted to all calibration samples, tests each CLS variant
+against PLS per analyte (paired two-sided randomization test on squared errors, Holm correction
+across analytes), looks for evidence of an absorber missing from CLS, and says in plain words
+which method to use.
+
+The decision uses the test set when one is given (independent errors), else the
+cross-validated errors. CLS is preferred unless PLS is significantly better, because CLS needs
+only pure standards and its figures of merit follow from Beer's law.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from sklearn.base import clone
+from sklearn.model_selection import check_cv
+
+from ._compare_evidence import (
+    AbsorberEvidence,
+    ResidualStructure,
+    absorber_evidence,
+    holm,
+    paired_pvalues,
+    residual_structure,
+)
+from .build import training_arrays
+from .cls import BASELINE_TERMS, CLSRegressor
+from .concentrations import ConcentrationTable
+from .crossval import (
+    cross_validate_estimator,
+    cross_validate_pls,
+    make_splitter,
+    select_components,
+)
+from .errors import DataError, ModelError
+from .pls import PLSRegressor
+from .preprocess import SpectralPreprocessor
+from .spectra import SpectralSet
+
+__all__ = ["AbsorberEvidence", "Comparison", "MethodResult", "PairedComparison",
+           "Recommendation", "ResidualStructure", "compare_methods", "holm", "paired_pvalues",
+           "residual_structure"]
+
+
+@dataclass(frozen=True)
+class MethodResult:
+    """Errors of one method, arrays of shape (m,) in each analyte's unit."""
+
+    name: str
+    rmsecv: np.ndarray
+    bias_cv: np.ndarray
+    rmsep: np.ndarray | None
+    bias_test: np.ndarray | None
+
+
+@dataclass(frozen=True)
+class PairedComparison:
+    """One CLS variant against PLS for one analyte (``statistic = mean(e²_CLS − e²_PLS)``)."""
+
+    analyte: str
+    method: str
+    data: str
+    statistic: float
+    pvalue: float
+    pvalue_holm: float
+
+
+@dataclass(frozen=True)
+class Recommendation:
+    """The method to use for one analyte (or ``"all"``) and why, in plain words."""
+
+    analyte: str
+    method: str
+    text: str
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """Result of :func:`compare_methods`.
+
+    Attributes
+    ----------
+    analytes : tuple of str
+        Analyte labels (unit bracket included).
+    methods : tuple of MethodResult
+        CLS, CLS with baseline terms (when asked for), PLS.
+    tests : tuple of PairedComparison
+    evidence : AbsorberEvidence
+    recommendations : tuple of Recommendation
+        One per analyte.
+    overall : Recommendation
+    cv : str
+        The cross-validation used by every method.
+    n_calibration, n_test : int
+    alpha : float
+        Level of the tests (after Holm).
+    """
+
+    analytes: tuple[str, ...]
+    methods: tuple[MethodResult, ...]
+    tests: tuple[PairedComparison, ...]
+    evidence: AbsorberEvidence
+    recommendations: tuple[Recommendation, ...]
+    overall: Recommendation
+    cv: str
+    n_calibration: int
+    n_test: int
+    alpha: float
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per analyte and method: RMSECV, CV bias, RMSEP, test bias, p vs PLS."""
+        tests = {(t.analyte, t.method): t for t in self.tests}
+        rows = []
+        for k, label in enumerate(self.analytes):
+            for meth in self.methods:
+                t = tests.get((label, meth.name))
+                rows.append({
+                    "analyte": label, "method": meth.name, "RMSECV": meth.rmsecv[k],
+                    "bias CV": meth.bias_cv[k],
+                    "RMSEP": None if meth.rmsep is None else meth.rmsep[k],
+                    "bias test": None if meth.bias_test is None else meth.bias_test[k],
+                    "p vs PLS": None if t is None else t.pvalue,
+                    "p Holm": None if t is None else t.pvalue_holm,
+                })
+        return pd.DataFrame(rows)
+
+    def summary(self) -> str:
+        """Readable tables, the absorber evidence and the recommendations."""
+        frame = self.to_frame()
+        has_test = self.n_test > 0
+        name_w = max(8, *(len(a) for a in self.analytes))
+        meth_w = max(6, *(len(m.name) for m in self.methods))
+        cols = ["RMSECV", "bias CV"] + (["RMSEP", "bias test"] if has_test else []) + [
+            "p vs PLS", "p Holm"]
+        lines = [f"Method comparison on identical folds ({self.cv}; {self.n_calibration} "
+                 f"calibration samples" + (f", {self.n_test} test samples" if has_test else "")
+                 + ")",
+                 f"{'analyte':<{name_w}}  {'method':<{meth_w}}" + "".join(f"  {c:>10}"
+                                                                          for c in cols)]
+        for row in frame.to_dict("records"):
+            cells = ["-" if row[c] is None or pd.isna(row[c]) else f"{row[c]:.4g}" for c in cols]
+            lines.append(f"{row['analyte']:<{name_w}}  {row['method']:<{meth_w}}"
+                         + "".join(f"  {c:>10}" for c in cells))
+        data = "test set" if has_test else "cross-validated"
+        lines.append(f"p: two-sided paired randomization test on {data} squared errors "
+                     "(van der Voet 1994), Holm-corrected across analytes")
+        ev = self.evidence
+        lines.append(f"absorber check: {100 * ev.share_above_limit:.0f} % of CLS residuals above "
+                     f"the PLS noise level; first residual component "
+                     f"{100 * ev.structure.share:.0f} % (reference "
+                     f"{100 * ev.structure.reference:.0f} %, p = {ev.structure.pvalue:.3g}); "
+                     f"PLS components {ev.pls_components} for {ev.n_analytes} analytes")
+        lines.append("recommendation:")
+        lines += [f"  {r.analyte}: {r.text}" for r in self.recommendations]
+        lines.append(f"  overall: {self.overall.text}")
+        return "\n".join(lines)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-serialisable dictionary."""
+        def arr(v: np.ndarray | None) -> list[float] | None:
+            return None if v is None else [float(x) for x in v]
+
+        return {
+            "analytes": list(self.analytes), "cv": self.cv,
+            "n_calibration": self.n_calibration, "n_test": self.n_test, "alpha": self.alpha,
+            "methods": [{"name": m.name, "rmsecv": arr(m.rmsecv), "bias_cv": arr(m.bias_cv),
+                         "rmsep": arr(m.rmsep), "bias_test": arr(m.bias_test)}
+                        for m in self.methods],
+            "tests": [asdict(t) for t in self.tests],
+            "evidence": self.evidence.to_dict(),
+            "recommendations": [asdict(r) for r in self.recommendations],
+            "overall": asdict(self.overall),
+        }
+
+
+def _test_arrays(spectra: SpectralSet, test_spectra: SpectralSet,
+                 test_table: ConcentrationTable, analytes: tuple[str, ...]) -> tuple:
+    test, c_test = training_arrays(test_spectra, test_table)
+    if test.axis_unit != spectra.axis_unit:
+        test = test.convert_axis(spectra.axis_unit)
+    if not test.same_grid(spectra.axis):
+        test = test.resample(spectra.axis)
+    missing = [a for a in analytes if a not in test_table.analytes]
+    if missing:
+        raise DataError(f"{test_table.source or 'the test concentrations'} lack the column(s) "
+                        f"{', '.join(missing)}; use the calibration table's labels")
+    cols = [test_table.analytes.index(a) for a in analytes]
+    return test.values, c_test[:, cols]
+
+
+def _cls_cv_residual_ss(est: CLSRegressor, Z: np.ndarray, C: np.ndarray,
+                        folds: list) -> np.ndarray:
+    """Cross-validated CLS spectral residual ``rᵀr`` per sample (first fold holding it out)."""
+    rss = np.full(len(Z), np.nan)
+    for train, test in folds:
+        todo = test[np.isnan(rss[test])]
+        if todo.size:
+            rss[todo] = clone(est).fit(Z[train], C[train]).predict_detail(Z[todo]).residual_ss
+    return rss
+
+
+def _recommend(label: str, names: list[str], sq: dict[str, np.ndarray],
+               tests: list[PairedComparison], evidence: AbsorberEvidence,
+               alpha: float) -> Recommendation:
+    best = min(names[:-1], key=lambda n: sq[n].mean())
+    pls = names[-1]
+    test = next(t for t in tests if t.method == best)
+    ratio = float(np.sqrt(sq[best].mean() / sq[pls].mean()))
+    p = f"p = {test.pvalue_holm:.2g}"
+    if test.pvalue_holm < alpha and ratio > 1:
+        text = f"PLS: {best} errors are {ratio:.2g}× larger ({p})"
+        if evidence.found:
+            text += "; " + "; ".join(evidence.findings) + " — an absorber is missing from the "\
+                    "CLS model"
+        return Recommendation(label, "PLS", text)
+    if test.pvalue_holm < alpha:
+        return Recommendation(label, best, f"{best}: errors {1 / ratio:.2g}× smaller than PLS "
+                                           f"({p}) and it needs only pure standards")
+    text = f"{best}: no significant difference from PLS ({p}) and it needs only pure standards"
+    if evidence.found:
+        text += "; but " + "; ".join(evidence.findings) + " — check for an unmodelled absorber"
+    return Recommendation(label, best, text)
+
+
+def _overall(recs: list[Recommendation], names: list[str], sq: dict[str, np.ndarray],
+             evidence: AbsorberEvidence) -> Recommendation:
+    pls_for = [r.analyte for r in recs if r.method == "PLS"]
+    if pls_for:
+        text = (f"PLS: it is significantly better for {', '.join(pls_for)}"
+                + ("; " + "; ".join(evidence.findings) if evidence.found else ""))
+        return Recommendation("all", "PLS", text)
+    # Pooled over analytes on each analyte's own scale (MSE relative to PLS).
+    best = min(names[:-1], key=lambda n: float(np.mean(sq[n].mean(axis=0)
+                                                       / sq[names[-1]].mean(axis=0))))
+    return Recommendation("all", best, f"{best}: PLS is not significantly better for any "
+                                       "analyte, and CLS needs only pure standards")
+
+
+def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
+                    test_spectra: SpectralSet | None = None,
+                    test_table: ConcentrationTable | None = None, cv: Any = "blinds:10", *,
+                    window: list[tuple[float, float]] | None = None, intercept: bool = False,
+                    baseline: str = "linear", max_components: int = 15,
+                    select: str = "randomization", select_alpha: float = 0.05,
+                    alpha: float = 0.05, groups: Any = None, n_permutations: int = 999,
+                    random_state: int = 0) -> Comparison:
+    """Compare CLS (without and with baseline terms) and PLS on identical folds.
+
+    Parameters
+    ----------
+    spectra, table : SpectralSet, ConcentrationTable
+        Calibration mixtures and their concentrations (matched by sample id).
+    test_spectra, test_table : optional
+        An independent test set; when given the decision uses its errors.
+    cv : str or splitter
+        :func:`~bandsolve.crossval.make_splitter` spec; the folds are made once and used by
+        every method.
+    window : list of (low, high), optional
+        Axis ranges used by every method.
+    intercept : bool
+        CLS background term (both CLS variants).
+    baseline : {"offset", "linear", "quadratic", "none"}
+        Baseline terms of the second CLS variant (``"none"``: compare plain CLS only).
+    max_components, select, select_alpha
+        PLS2 component count: largest tried, rule, level of the randomization rule.
+    alpha : float
+        Level of the CLS-versus-PLS tests after Holm correction.
+    groups : array_like, optional
+        Group labels for ``groups`` specs.
+    n_permutations, random_state
+        Randomization test settings.
+
+    Returns
+    -------
+    Comparison
+
+    References
+    ----------
+    van der Voet, H. (1994). Chemometr. Intell. Lab. Syst. 25, 313-323.
+    Holm, S. (1979). Scand. J. Stat. 6, 65-70.
+    Haaland, D. M. & Thomas, E. V. (1988). Anal. Chem. 60, 1193-1202.
+    """
+    if baseline not in BASELINE_TERMS:
+        raise ModelError(f"baseline must be one of {sorted(BASELINE_TERMS)}, not {baseline!r}")
+    if (test_spectra is None) != (test_table is None):
+        raise DataError("give both test spectra and test concentrations, or neither")
+    cal, C = training_arrays(spectra, table)
+    pre = SpectralPreprocessor(axis=cal.axis, window=window).fit(cal.values)
+    Z = pre.transform(cal.values)
+    n, p = Z.shape
+    splitter = make_splitter(cv, groups, random_state, n_samples=n) if isinstance(cv, str) \
+        else cv
+    folds = list(splitter.split(Z, C, groups))
+    fixed = check_cv(folds)
+    variants = {"CLS": CLSRegressor(fit_intercept=intercept, wavelengths=pre.axis_out_)}
+    if baseline != "none":
+        variants[f"CLS+{baseline}"] = CLSRegressor(fit_intercept=intercept, baseline=baseline,
+                                                   wavelengths=pre.axis_out_)
+    results = {name: cross_validate_estimator(est, Z, C, cv=fixed)
+               for name, est in variants.items()}
+    rmsecv = {name: res.rmsecv[0] for name, res in results.items()}
+    errors = {name: res.errors[0] for name, res in results.items()}
+    a_max = int(min(max_components, n - 2, p))
+    if a_max < 1:
+        raise ModelError(f"{n} calibration samples are too few for PLS; measure more mixtures")
+    pls_cv = cross_validate_pls(Z, C, a_max, cv=fixed)
+    a = select_components(pls_cv, rule=select, alpha=select_alpha,
+                          random_state=random_state).n_components
+    pls_name = f"PLS ({a} comp.)"
+    errors[pls_name] = pls_cv.errors[a - 1]
+    rmsecv[pls_name] = pls_cv.rmsecv[a - 1]
+    names = list(errors)
+    test_errors: dict[str, np.ndarray] = {}
+    if test_spectra is not None:
+        x_test, c_test = _test_arrays(cal, test_spectra, test_table, table.analytes)
+        z_test = pre.transform(x_test)
+        fitted = {**variants, pls_name: PLSRegressor(n_components=a)}
+        for name, est in fitted.items():
+            pred = np.asarray(est.fit(Z, C).predict(z_test)).reshape(len(z_test), -1)
+            test_errors[name] = pred - c_test
+    decide = test_errors or errors
+    tests = []
+    for name in names[:-1]:
+        stat, pv, ph = paired_pvalues(decide[name], decide[pls_name], n_permutations,
+                                      random_state)
+        tests += [PairedComparison(label, name, "test set" if test_errors else
+                                   "cross-validation", float(s), float(x), float(y))
+                  for label, s, x, y in zip(table.analytes, stat, pv, ph, strict=True)]
+    plain = clone(variants["CLS"]).fit(Z, C)
+    design = np.column_stack([C, np.ones(n)]) if intercept else C
+    evidence = absorber_evidence(
+        _cls_cv_residual_ss(variants["CLS"], Z, C, folds), C.shape[1],
+        Z - C @ plain.pure_spectra_ - plain.background_, design,
+        pls_cv.q_residuals[a - 1], a, C.shape[1], random_state)
+    sq = {name: decide[name] ** 2 for name in names}
+    recs = [_recommend(label, names, {nm: sq[nm][:, k] for nm in names},
+                       [t for t in tests if t.analyte == label], evidence, alpha)
+            for k, label in enumerate(table.analytes)]
+    methods = tuple(MethodResult(
+        name, rmsecv[name], errors[name].mean(axis=0),
+        np.sqrt(np.mean(test_errors[name] ** 2, axis=0)) if test_errors else None,
+        test_errors[name].mean(axis=0) if test_errors else None) for name in names)
+    return Comparison(
+        analytes=tuple(table.analytes), methods=methods, tests=tuple(tests), evidence=evidence,
+        recommendations=tuple(recs), overall=_overall(recs, names, sq, evidence),
+        cv=str(cv), n_calibration=n, n_test=len(next(iter(test_errors.values())))
+        if test_errors else 0, alpha=float(alpha))
