@@ -1,0 +1,269 @@
+"""The HTML report: every section, valid inline PNG figures, no network references, units on
+every figure, the command line, and a headless-browser rendering when Chromium is present."""
+
+from __future__ import annotations
+
+import argparse
+import base64
+import re
+import shutil
+import struct
+import subprocess
+import zlib
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from bandsolve.build import build_cls
+from bandsolve.build_pls import build_pls
+from bandsolve.demo import DEMO_LABEL, write_demo_data
+from bandsolve.flags import FLAG_CODES
+from bandsolve.io import read_concentrations, read_spectra
+from bandsolve.predict import predict_inputs
+from bandsolve.report import SECTION_IDS, render_report, write_report
+from bandsolve.report import _views as V
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+
+
+class _Collector(HTMLParser):
+    """Section ids, image sources and every attribute value of a page."""
+
+    def __init__(self):
+        super().__init__()
+        self.section_ids: list[str] = []
+        self.images: list[str] = []
+        self.attributes: list[tuple[str, str, str]] = []
+        self.tags: set[str] = set()
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.add(tag)
+        for name, value in attrs:
+            self.attributes.append((tag, name, value or ""))
+        if tag == "section":
+            self.section_ids.append(dict(attrs).get("id", ""))
+        if tag == "img":
+            self.images.append(dict(attrs)["src"])
+
+
+def _parse(text: str) -> _Collector:
+    c = _Collector()
+    c.feed(text)
+    return c
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("demo")
+    files = write_demo_data(folder)
+    data = {
+        "cal": (read_spectra(files.calibration_spectra),
+                read_concentrations(files.calibration_concentrations)),
+        "val": (read_spectra(files.validation_spectra),
+                read_concentrations(files.validation_concentrations)),
+        "blanks": read_spectra(files.blanks),
+        "files": files,
+    }
+    data["cls"] = build_cls(*data["cal"], provenance={"data_label": DEMO_LABEL})
+    data["pls"] = build_pls(*data["cal"], cv="blinds:5", max_components=6)
+    data["batch"] = predict_inputs(data["cls"], [str(p) for p in files.routine])
+    return data
+
+
+@pytest.fixture(scope="module")
+def full_report(demo, tmp_path_factory):
+    path = tmp_path_factory.mktemp("report") / "cls report.html"
+    calls = []
+    written = write_report(demo["cls"], path, calibration_spectra=demo["cal"][0],
+                           calibration_table=demo["cal"][1], validation_spectra=demo["val"][0],
+                           validation_table=demo["val"][1], blanks=demo["blanks"],
+                           batch=demo["batch"], progress=lambda *a: calls.append(a))
+    return written, path.read_text(encoding="utf-8"), calls
+
+
+def test_every_section_is_present_once(full_report):
+    _, text, _ = full_report
+    ids = _parse(text).section_ids
+    for sid, _ in SECTION_IDS:
+        assert ids.count(sid) == 1, sid
+    assert "data-label" in ids  # the model's provenance carries the invented-data label
+    assert DEMO_LABEL in text
+
+
+def _png_header(data: bytes) -> tuple[int, int]:
+    # PNG specification (W3C / ISO/IEC 15948:2004): 8-byte signature, then the IHDR chunk:
+    # length (13), type, width and height as big-endian uint32, ..., CRC-32 over type+data.
+    assert data[:8] == PNG_SIGNATURE
+    length, kind = struct.unpack(">I4s", data[8:16])
+    assert (length, kind) == (13, b"IHDR")
+    width, height = struct.unpack(">II", data[16:24])
+    (crc,) = struct.unpack(">I", data[29:33])
+    assert crc == zlib.crc32(data[12:29])
+    return width, height
+
+
+def test_every_image_is_an_inline_valid_png(full_report):
+    _, text, _ = full_report
+    sources = _parse(text).images
+    assert len(sources) >= 8
+    sizes = []
+    for src in sources:
+        assert src.startswith("data:image/png;base64,")
+        data = base64.b64decode(src.split(",", 1)[1], validate=True)
+        sizes.append(_png_header(data))
+        assert data[-12:] == b"\x00\x00\x00\x00IEND\xaeB`\x82"  # IEND chunk closes the file
+    # Component figure: 7 × 4 in at 110 dpi = 770 × 440 pixels (size × resolution).
+    assert (770, 440) in sizes
+
+
+def test_no_reference_leaves_the_file(full_report):
+    _, text, _ = full_report
+    page = _parse(text)
+    url = re.compile(r"^\s*(?:[a-z][a-z0-9+.-]*:)?//", re.IGNORECASE)
+    for tag, name, value in page.attributes:
+        assert not url.match(value), (tag, name, value[:80])
+        if name in ("src", "href", "action", "poster", "srcset"):
+            assert value.startswith(("data:", "#")), (tag, name, value[:80])
+    assert not page.tags & {"script", "link", "iframe", "object", "embed"}
+    styles = "".join(re.findall(r"<style>(.*?)</style>", text, re.S))
+    assert "url(" not in styles and "@import" not in styles and "@font-face" not in styles
+    assert "@media print" in styles and "break-before:page" in styles
+
+
+def test_flags_legend_cautions_and_merit(full_report):
+    _, text, _ = full_report
+    for code in FLAG_CODES:
+        assert f"<dt>{code}</dt>" in text
+    assert "validated for its intended use" in text and "dichromate" in text
+    # Figures of merit were computed from the blanks: the summary header names LOD.
+    assert "LOD [mg/L]" in text and "replicate blank spectra" in text
+
+
+def test_progress_reaches_the_total_once(full_report):
+    _, _, calls = full_report
+    totals = {c[1] for c in calls}
+    assert len(totals) == 1 and [c[0] for c in calls] == list(range(1, calls[0][1] + 1))
+
+
+def test_written_atomically_with_no_leftovers(full_report):
+    written, _, _ = full_report
+    assert written.is_file()
+    assert [p.name for p in written.parent.iterdir()] == [written.name]
+
+
+def test_model_alone_says_what_is_missing(demo):
+    text = render_report(demo["pls"])
+    ids = _parse(text).section_ids
+    assert [sid for sid, _ in SECTION_IDS] == [i for i in ids if i != "data-label"]
+    assert "data-label" not in ids  # no invented-data label in this model's provenance
+    assert "No figures of merit are stored" in text
+    assert "No validation results are included" in text
+    assert "No prediction batch" in text
+    assert "randomization rule" in text  # the component rule is stated
+
+
+class _Result:
+    """Stand-in with the interface the report expects of assessment/comparison objects."""
+
+    def __init__(self, word):
+        self.word = word
+
+    def summary(self) -> str:
+        return f"summary of the {self.word}"
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame({"RMSEP": [0.125]}, index=[self.word])
+
+
+def test_assessment_and_comparison_objects_are_rendered(demo):
+    text = render_report(demo["cls"], assessment=_Result("assessment"),
+                         comparison=_Result("comparison"))
+    for word in ("assessment", "comparison"):
+        assert f"summary of the {word}" in text and "0.125" in text
+
+
+def _figure_items(demo, method):
+    cal = demo[method]
+    cal_set = V.sample_set(cal, "calibration", *demo["cal"])
+    items = [V.component_figure(cal), V.nas_figure(cal, None), V.overlay_figure(cal, cal_set),
+             *V.rmsecv_figures(cal), *V.assessment_figures(cal, cal_set, None),
+             V.outlier_figure(cal, [("calibration", list(cal_set.sample_ids),
+                                     *V.set_ratios(cal, cal_set))], "validation")]
+    if method == "cls":
+        items.append(V.batch_view(cal, demo["batch"].table))
+    return items
+
+
+@pytest.mark.parametrize("method", ["cls", "pls"])
+def test_report_figures_label_both_axes_with_units(demo, method):
+    for item in _figure_items(demo, method):
+        for ax in item.figure.axes:
+            if not ax.get_visible():
+                continue
+            labels = [ax.get_ylabel()] + ([ax.get_xlabel()] if ax.get_xlabel() else [])
+            for label in labels:
+                counts = label in ("sample", "number of PLS components")  # no unit to give
+                assert counts or re.search(r"\[[^\]]+\]", label), (item.key, label)
+
+
+def test_cls_net_analyte_signal_is_orthogonal_to_the_other_pure_spectra(demo):
+    # Lorber 1986: s*_k is orthogonal to every other column of S; SEL = ‖s*_k‖/‖s_k‖ ≤ 1.
+    cal = demo["cls"]
+    nas, sel = V.net_signal(cal, None)
+    K = cal.estimators[0].pure_spectra_
+    for k in range(len(K)):
+        others = np.delete(K, k, axis=0)
+        np.testing.assert_allclose(others @ nas[k], 0.0, atol=1e-12)
+        np.testing.assert_allclose(sel[k], np.linalg.norm(nas[k]) / np.linalg.norm(K[k]))
+
+
+def test_cli_writes_the_report(demo, tmp_path):
+    from bandsolve.cli import report_cmd
+
+    parser = argparse.ArgumentParser()
+    report_cmd.register(parser.add_subparsers())
+    files = demo["files"]
+    model = tmp_path / "m.bsm"
+    from bandsolve.bundle import save_model
+
+    save_model(demo["cls"], model)
+    out = tmp_path / "r.html"
+    args = parser.parse_args([
+        "report", str(model), "--batch", str(files.routine[1]),
+        "--quiet", "--out", str(out)])
+    assert args.func(args) == 0
+    text = out.read_text(encoding="utf-8")
+    assert "batch-2-05" in text and 'id="fig-batch"' in text
+
+
+def _chromium() -> str | None:
+    if Path("/usr/bin/chromium").exists():
+        return "/usr/bin/chromium"
+    return shutil.which("chromium") or shutil.which("chromium-browser")
+
+
+def test_headless_browser_renders_the_report(full_report, tmp_path):
+    browser = _chromium()
+    if browser is None:
+        pytest.skip("Chromium is not installed; the browser check needs it")
+    written, _, _ = full_report
+    shot = tmp_path / "shot.png"
+    base = [browser, "--headless", "--no-sandbox", "--disable-gpu",
+            "--disable-background-networking", "--disable-component-update", "--disable-sync",
+            "--no-first-run", f"--user-data-dir={tmp_path / 'profile'}",
+            "--host-resolver-rules=MAP * ~NOTFOUND"]
+    run = subprocess.run([*base, f"--screenshot={shot}", "--window-size=1200,2000",
+                          written.as_uri()], capture_output=True, timeout=180, check=False)
+    assert run.returncode == 0, run.stderr.decode(errors="replace")[-2000:]
+    data = shot.read_bytes()
+    assert _png_header(data) == (1200, 2000)
+    assert len(data) > 20_000  # a blank page compresses to a few kB; text and figures do not
+    dom = subprocess.run([*base, "--dump-dom", written.as_uri()], capture_output=True,
+                         timeout=180, check=False)
+    assert dom.returncode == 0
+    rendered = dom.stdout.decode("utf-8", errors="replace")
+    for sid, _ in SECTION_IDS:
+        assert f'id="{sid}"' in rendered
