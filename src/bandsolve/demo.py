@@ -182,4 +182,17 @@ def run_demo(folder: str | Path) -> DemoRun:
         with atomic_write(out, "w", newline="") as handle:
             tables[name].to_csv(handle, index=False)
         outputs[f"{name.upper()} results"] = out
+    outputs["report"] = _write_report(folder, models["cls"], spectra, table, files, tables["cls"])
     return DemoRun(files, outputs["CLS model"], outputs["CLS results"], tables["cls"], outputs)
+
+
+def _write_report(folder: Path, model, spectra, table, files: DemoFiles, batch) -> Path:
+    """The self-contained HTML report of the CLS model, its validation and the routine batch."""
+    from .io import read_concentrations, read_spectra
+    from .report import write_report
+
+    return write_report(
+        model, folder / "report.html", calibration_spectra=spectra, calibration_table=table,
+        validation_spectra=read_spectra(files.validation_spectra),
+        validation_table=read_concentrations(files.validation_concentrations),
+        blanks=read_spectra(files.blanks), batch=batch)
