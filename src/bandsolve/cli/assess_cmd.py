@@ -1,0 +1,53 @@
+"""``bandsolve assess``: a model's accuracy on an independent test set."""
+
+from __future__ import annotations
+
+import argparse
+import json
+
+from ..assess import assess
+from ..bundle import load_model
+from ..io import read_concentrations, read_spectra
+from ._common import add_input_options, read_options, write_table
+
+EXAMPLES = """\
+examples:
+  bandsolve assess models/rinse-pls.bsm --spectra test_spectra.csv \\
+      --concentrations test_conc.csv
+  bandsolve assess models/rinse-cls.bsm --spectra test/ --concentrations test_conc.csv \\
+      --samples per-sample.csv --json > assessment.json
+"""
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("assess", help="assess a model on an independent test set",
+                       description="Predict test samples of known composition and report "
+                                   "RMSEP, bias and its t-test, SEP, R², RPD, the slope and "
+                                   "intercept test and the share of flagged results.",
+                       epilog=EXAMPLES, formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("model", metavar="MODEL", help="model file written by bandsolve build")
+    p.add_argument("--spectra", metavar="FILE", required=True,
+                   help="test spectra (file or folder), not used to build the model")
+    p.add_argument("--concentrations", metavar="FILE", required=True,
+                   help="reference concentrations of the test samples (CSV)")
+    p.add_argument("--samples", metavar="FILE",
+                   help="write the per-sample table (reference, predicted, error, SE, flags)")
+    p.add_argument("--alpha", type=float, default=0.05,
+                   help="level of the confidence intervals and tests (default 0.05)")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+    add_input_options(p)
+    p.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    model = load_model(args.model)
+    spectra = read_spectra(args.spectra, **read_options(args))
+    table = read_concentrations(args.concentrations)
+    result = assess(model, spectra, table, alpha=args.alpha)
+    if args.samples:
+        write_table(result.samples, args.samples)
+    if args.json:
+        print(json.dumps(result.to_dict(), indent=2, default=str))
+    else:
+        print(result.summary())
+    return 0

@@ -1,0 +1,68 @@
+"""``bandsolve compare``: CLS or PLS for these data, with the evidence."""
+
+from __future__ import annotations
+
+import argparse
+import json
+
+from ..compare import compare_methods
+from ..errors import BandsolveError
+from ..io import read_concentrations, read_spectra
+from ..preprocess import parse_window
+from ._common import add_input_options, read_options
+
+EXAMPLES = """\
+examples:
+  bandsolve compare --spectra cal_spectra.csv --concentrations cal_conc.csv
+  bandsolve compare --spectra cal_spectra.csv --concentrations cal_conc.csv \\
+      --test-spectra test_spectra.csv --test-concentrations test_conc.csv --cv random:5x4
+"""
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("compare", help="compare CLS and PLS on the same data",
+                       description="Cross-validate CLS (without and with baseline terms) and "
+                                   "PLS on identical folds, test the differences per analyte, "
+                                   "look for an absorber missing from CLS, and recommend a "
+                                   "method in plain words.",
+                       epilog=EXAMPLES, formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("--spectra", metavar="FILE", required=True, help="calibration spectra")
+    p.add_argument("--concentrations", metavar="FILE", required=True,
+                   help="known concentrations of the calibration samples (CSV)")
+    p.add_argument("--test-spectra", metavar="FILE", help="independent test spectra")
+    p.add_argument("--test-concentrations", metavar="FILE",
+                   help="reference concentrations of the test samples")
+    p.add_argument("--cv", default="blinds:10",
+                   help="blocks:K | blinds:K | random:K | random:KxR | loo (default blinds:10)")
+    p.add_argument("--window", metavar="RANGES", help="axis ranges to use, e.g. 400-700")
+    p.add_argument("--intercept", action="store_true", help="CLS background term")
+    p.add_argument("--baseline", choices=["none", "offset", "linear", "quadratic"],
+                   default="linear", help="baseline terms of the second CLS (default linear)")
+    p.add_argument("--max-components", type=int, default=15, metavar="N")
+    p.add_argument("--select", choices=["randomization", "one-se", "min"],
+                   default="randomization", help="PLS component selection rule")
+    p.add_argument("--alpha", type=float, default=0.05,
+                   help="level of the CLS-versus-PLS tests after Holm correction")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+    add_input_options(p)
+    p.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    if bool(args.test_spectra) != bool(args.test_concentrations):
+        raise BandsolveError("give --test-spectra and --test-concentrations together")
+    options = read_options(args)
+    spectra = read_spectra(args.spectra, **options)
+    table = read_concentrations(args.concentrations)
+    test_spectra = read_spectra(args.test_spectra, **options) if args.test_spectra else None
+    test_table = read_concentrations(args.test_concentrations) if args.test_spectra else None
+    result = compare_methods(
+        spectra, table, test_spectra, test_table, cv=args.cv,
+        window=parse_window(args.window) if args.window else None, intercept=args.intercept,
+        baseline=args.baseline, max_components=args.max_components, select=args.select,
+        alpha=args.alpha)
+    if args.json:
+        print(json.dumps(result.to_dict(), indent=2))
+    else:
+        print(result.summary())
+    return 0
