@@ -19,6 +19,7 @@ from bandsolve._design_points import (
 )
 from bandsolve._design_units import AnalyteRange
 from bandsolve.errors import DataError
+from bandsolve.progress import ProgressCallback
 
 __all__ = ["AbsorbanceCheck", "CalibrationPlan", "DesignQuality", "calibration_plan"]
 
@@ -224,6 +225,7 @@ def calibration_plan(
     ceiling_au: float = DEFAULT_CEILING_AU,
     validation_decimals: int | None = None,
     random_state: int | None = 0,
+    progress: ProgressCallback | None = None,
 ) -> CalibrationPlan:
     """Plan the calibration (and validation) mixtures for a multicomponent calibration.
 
@@ -256,6 +258,8 @@ def calibration_plan(
         Round validation concentrations to this many decimals.
     random_state : int or None, default 0
         Seed of the D-optimal starts and the validation draws.
+    progress : callable, optional
+        ``progress(done, total, label)`` during the D-optimal search.
 
     Returns
     -------
@@ -290,7 +294,7 @@ def calibration_plan(
                 conc = _to_concentration(grid, analytes, half_range)
                 return np.max(path_length_cm * conc @ values, axis=1) <= ceiling_au
         coded = d_optimal_design(n_runs, len(analytes), levels, constraints=constraint,
-                                 random_state=random_state)
+                                 random_state=random_state, progress=progress)
         design = f"D-optimal, {n_runs} mixtures on a {levels}-level grid (Fedorov exchange)"
     cal = _to_concentration(coded, analytes, half_range)
     val = validation_set(analytes, n_validation, cal, random_state, validation_decimals)

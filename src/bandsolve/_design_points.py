@@ -11,6 +11,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from bandsolve._design_units import AnalyteRange
 from bandsolve.errors import BandsolveWarning, DataError
+from bandsolve.progress import ProgressCallback, step
 
 __all__ = [
     "CYCLIC_GENERATORS",
@@ -167,6 +168,7 @@ def d_optimal_design(
     n_starts: int = 5,
     max_iter: int = 500,
     random_state: int | np.random.Generator | None = 0,
+    progress: ProgressCallback | None = None,
 ) -> NDArray[np.float64]:
     """D-optimal design chosen from a candidate grid by Fedorov point exchange.
 
@@ -199,6 +201,8 @@ def d_optimal_design(
         Largest number of exchanges per start.
     random_state : int, Generator or None, default 0
         Seed of the random starts.
+    progress : callable, optional
+        ``progress(done, total, label)`` after each start (see :mod:`bandsolve.progress`).
 
     Returns
     -------
@@ -237,9 +241,10 @@ def d_optimal_design(
         )
     rng = np.random.default_rng(random_state)
     best, best_logdet = None, -np.inf
-    for _ in range(n_starts):
+    for i in range(n_starts):
         start = rng.choice(len(grid), n_runs, replace=n_runs > len(grid))
         idx = _exchange(model, start, max_iter)
+        step(progress, i + 1, n_starts, "D-optimal search")
         sign, logdet = np.linalg.slogdet(model[idx].T @ model[idx])
         if sign > 0 and logdet > best_logdet:
             best, best_logdet = idx, logdet

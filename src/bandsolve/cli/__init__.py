@@ -72,6 +72,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except (FileNotFoundError, IsADirectoryError, PermissionError) as exc:
         print(f"bandsolve: error: {exc.filename}: {exc.strerror}", file=sys.stderr)
         return EXIT_INPUT
+    except BrokenPipeError:  # the reader of our output closed it (e.g. `| head`): not an error
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_OK
     except KeyboardInterrupt:
         print("bandsolve: interrupted", file=sys.stderr)
         return 130

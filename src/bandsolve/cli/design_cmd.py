@@ -21,6 +21,7 @@ from bandsolve.design import (
 )
 from bandsolve.errors import DataError, FormatError
 from bandsolve.io.atomic import atomic_write
+from bandsolve.progress import progress_bar
 
 __all__ = ["register", "run"]
 
@@ -75,6 +76,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                         help='smallest volume to pipette (default "0.1 mL")')
     parser.add_argument("--random-state", type=int, default=0, metavar="N",
                         help="seed for D-optimal starts and validation mixtures (default 0)")
+    parser.add_argument("--quiet", action="store_true", help="no progress bar")
     parser.add_argument("--out", type=Path, metavar="PLAN.csv",
                         help="write the plan here (and PLAN-prep.csv, PLAN-prep.html with "
                              "stocks)")
@@ -114,7 +116,7 @@ def run(args: argparse.Namespace) -> int:
     plan = calibration_plan(
         analytes, levels=args.levels, n_runs=args.runs, n_validation=args.validation,
         absorptivity=absorptivity, wavelengths=wavelengths, path_length_cm=args.path_length,
-        random_state=args.random_state,
+        random_state=args.random_state, progress=progress_bar(args.quiet),
     )
     print(plan.summary())
     sheet = None
