@@ -68,8 +68,8 @@ _SPOOL = """
 CREATE TABLE results (row INTEGER PRIMARY KEY, input_position INTEGER, sample TEXT,
     source TEXT, flags TEXT, concentrations TEXT, record TEXT);
 """
-_BUSY_SECONDS = 30.0
-_RETRIES = 8
+_BUSY_SECONDS = 10.0
+_RETRIES = 4
 
 
 def _now() -> str:
