@@ -159,7 +159,8 @@ def test_model_alone_says_what_is_missing(demo):
     ids = _parse(text).section_ids
     assert [sid for sid, _ in SECTION_IDS] == [i for i in ids if i != "data-label"]
     assert "data-label" not in ids  # no invented-data label in this model's provenance
-    assert "No figures of merit are stored" in text
+    # Every model stores figures of merit at build time (σx from residuals without blanks).
+    assert "Figures of merit stored with the model." in text
     assert "No validation results are included" in text
     assert "No prediction batch" in text
     assert "randomization rule" in text  # the component rule is stated

@@ -13,6 +13,7 @@ import pandas as pd
 
 from bandsolve._design_plan import CalibrationPlan
 from bandsolve._design_units import Amount, concentration_factor
+from bandsolve.cautions import SHORT_CAUTION
 from bandsolve.errors import DataError, where
 from bandsolve.io.atomic import atomic_write
 
@@ -26,11 +27,7 @@ __all__ = [
 ]
 
 DEFAULT_MIN_PIPETTE_ML = 0.1  # smallest volume delivered with ~1 % accuracy; common practice
-SAFETY_NOTE = (
-    "Check this plan before use. The analytical method must be validated for its intended use "
-    "under the applicable guidelines and local regulations. Handle hazardous reference "
-    "chemicals under your local safety rules."
-)
+SAFETY_NOTE = "Check this plan before use. " + SHORT_CAUTION
 
 
 @dataclass(frozen=True)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import platform
 from datetime import datetime, timezone
 from typing import Any
@@ -11,13 +12,13 @@ import numpy as np
 from . import __version__
 from .cls import CLSRegressor
 from .concentrations import ConcentrationTable, align
-from .errors import DataError, ModelError, where
+from .errors import BandsolveError, DataError, ModelError, where
 from .model import Calibration
 from .preprocess import SpectralPreprocessor
 from .spectra import DEFAULT_CEILING_AU, SpectralSet
 
 __all__ = ["build_cls", "build_cls_from_absorptivities", "check_ceiling", "library_versions",
-           "provenance_record", "training_arrays"]
+           "provenance_record", "training_arrays", "with_merit"]
 
 
 def library_versions() -> dict[str, str]:
@@ -75,8 +76,8 @@ def check_ceiling(spectra: SpectralSet, mask: np.ndarray, ceiling: float) -> Non
 
 def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: bool = False,
               baseline: str = "none", window: list[tuple[float, float]] | None = None,
-              blank: SpectralSet | None = None, alpha: float = 0.01,
-              ceiling: float = DEFAULT_CEILING_AU,
+              blank: SpectralSet | None = None, blanks: SpectralSet | None = None,
+              alpha: float = 0.01, ceiling: float = DEFAULT_CEILING_AU,
               provenance: dict[str, Any] | None = None) -> Calibration:
     """Build a CLS calibration from standards or calibration mixtures.
 
@@ -96,6 +97,9 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
     blank : SpectralSet, optional
         Blank spectra whose mean is subtracted from every calibration spectrum. Routine
         spectra must then be blank-corrected the same way (record it in the provenance).
+    blanks : SpectralSet, optional
+        Replicate blank spectra for the instrumental noise σx of the figures of merit (LOD,
+        LOQ, γ); without them σx is estimated from calibration residuals and labelled so.
     alpha : float
         Significance level of the spectral-residual limit.
     ceiling : float
@@ -115,19 +119,38 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
                                      "calibration F ratios", "alpha": alpha,
                            "value": est.residual_limit_},
               "leverage_factor": 3.0}
-    return Calibration(
+    cal = Calibration(
         method="cls", analytes=table.analytes, axis=spectra.axis, axis_unit=spectra.axis_unit,
         preprocessor=pre, estimators=[est],
         calibrated_range=np.column_stack([C.min(axis=0), C.max(axis=0)]),
         settings=settings, path_length_cm=spectra.path_length_cm, ceiling=ceiling,
         limits=limits, provenance=provenance_record(provenance, len(C)),
     )
+    return with_merit(cal, spectra, table, blanks)
+
+
+def with_merit(cal: Calibration, spectra: SpectralSet | None,
+               table: ConcentrationTable | None, blanks: SpectralSet | None) -> Calibration:
+    """The calibration with its figures of merit stored (see :mod:`bandsolve.validation`).
+
+    When the data cannot support them (for example no replicate blanks and no calibration
+    residual degrees of freedom to estimate the noise), the model is still built; the reason
+    is kept in ``provenance["merit_note"]`` and ``merit`` stays None.
+    """
+    from .validation import attach_merit
+
+    try:
+        return attach_merit(cal, spectra, table, blanks=blanks)
+    except BandsolveError as exc:
+        note = f"figures of merit not computed: {exc}"
+        return dataclasses.replace(cal, provenance={**cal.provenance, "merit_note": note})
 
 
 def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: float, *,
                                   baseline: str = "none",
                                   window: list[tuple[float, float]] | None = None,
                                   concentration_range: tuple[float, float] | None = None,
+                                  blanks: SpectralSet | None = None,
                                   ceiling: float = DEFAULT_CEILING_AU,
                                   provenance: dict[str, Any] | None = None) -> Calibration:
     """Build a CLS model from an absorptivity table and a path length, with no standards.
@@ -142,6 +165,8 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
     concentration_range : (low, high), optional
         Range over which Beer's law is known to hold, used for range flags; by default
         every non-negative concentration is accepted.
+    blanks : SpectralSet, optional
+        Replicate blank spectra; with them the figures of merit (σx, LOD, LOQ) are stored.
     """
     if absorptivities.quantity != "absorptivity":
         raise ModelError(f"{where(absorptivities.source)}expected an absorptivity table")
@@ -153,7 +178,7 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
     est = CLSRegressor.from_pure_spectra(K, baseline=baseline, wavelengths=pre.axis_out_)
     m = K.shape[0]
     low, high = concentration_range or (0.0, np.inf)
-    return Calibration(
+    cal = Calibration(
         method="cls", analytes=absorptivities.sample_ids, axis=absorptivities.axis,
         axis_unit=absorptivities.axis_unit, preprocessor=pre, estimators=[est],
         calibrated_range=np.tile([low, high], (m, 1)),
@@ -163,3 +188,4 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
         limits={"residual": {"method": "none (no calibration residuals)", "value": None}},
         provenance=provenance_record(provenance, 0),
     )
+    return cal if blanks is None else with_merit(cal, None, None, blanks)

@@ -6,7 +6,7 @@ from typing import Any
 
 import numpy as np
 
-from .build import check_ceiling, provenance_record, training_arrays
+from .build import check_ceiling, provenance_record, training_arrays, with_merit
 from .concentrations import ConcentrationTable
 from .crossval import cross_validate_pls, select_components
 from .diagnostics import leverage_limit, q_limit_from_values, t2_limit
@@ -81,7 +81,8 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
               window: list[tuple[float, float]] | None = None,
               savgol_window: int | None = None, savgol_polyorder: int = 2,
               derivative: int = 0, offset: bool = False, blank: SpectralSet | None = None,
-              limit_alpha: float = 0.01, ceiling: float = DEFAULT_CEILING_AU,
+              blanks: SpectralSet | None = None, limit_alpha: float = 0.01,
+              ceiling: float = DEFAULT_CEILING_AU,
               provenance: dict[str, Any] | None = None) -> Calibration:
     """Build a PLS calibration from calibration mixtures.
 
@@ -107,6 +108,9 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
         Autoscale wavelengths (usually off for spectra).
     window, savgol_window, savgol_polyorder, derivative, offset
         Row-wise preprocessing (:class:`~bandsolve.preprocess.SpectralPreprocessor`).
+    blank, blanks : SpectralSet, optional
+        ``blank`` is subtracted from every spectrum; ``blanks`` are replicate blanks for σx of
+        the figures of merit (see :func:`bandsolve.build.build_cls`).
     limit_alpha : float
         Significance level of the T², Q and flag limits.
     """
@@ -135,7 +139,7 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
                 "savgol_polyorder": savgol_polyorder, "derivative": derivative,
                 "offset": offset, "limit_alpha": limit_alpha,
                 "blank_subtracted": blank is not None}
-    return Calibration(
+    cal = Calibration(
         method="pls", analytes=table.analytes, axis=spectra.axis, axis_unit=spectra.axis_unit,
         preprocessor=pre, estimators=models,
         calibrated_range=np.column_stack([C.min(axis=0), C.max(axis=0)]),
@@ -144,3 +148,4 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
         selection={"mode": mode, "models": evidence},
         provenance=provenance_record(provenance, len(C)),
     )
+    return with_merit(cal, spectra, table, blanks)

@@ -168,8 +168,9 @@ def run_demo(folder: str | Path) -> DemoRun:
         {"role": role, "name": p.name, "sha256": sha256_file(p)}
         for role, p in (("spectra", files.calibration_spectra),
                         ("concentrations", files.calibration_concentrations))]}
-    models = {"cls": build_cls(spectra, table, provenance=prov),
-              "pls": build_pls(spectra, table, cv="blinds:5", max_components=8,
+    blanks = read_spectra(files.blanks)
+    models = {"cls": build_cls(spectra, table, blanks=blanks, provenance=prov),
+              "pls": build_pls(spectra, table, cv="blinds:5", max_components=8, blanks=blanks,
                                provenance=prov)}
     outputs: dict[str, Path] = {}
     tables = {}
@@ -187,12 +188,18 @@ def run_demo(folder: str | Path) -> DemoRun:
 
 
 def _write_report(folder: Path, model, spectra, table, files: DemoFiles, batch) -> Path:
-    """The self-contained HTML report of the CLS model, its validation and the routine batch."""
+    """The HTML report of the CLS model: validation, CLS-vs-PLS comparison, routine batch."""
+    from .assess import assess
+    from .compare import compare_methods
     from .io import read_concentrations, read_spectra
     from .report import write_report
 
+    val_spectra = read_spectra(files.validation_spectra)
+    val_table = read_concentrations(files.validation_concentrations)
     return write_report(
         model, folder / "report.html", calibration_spectra=spectra, calibration_table=table,
-        validation_spectra=read_spectra(files.validation_spectra),
-        validation_table=read_concentrations(files.validation_concentrations),
-        blanks=read_spectra(files.blanks), batch=batch)
+        validation_spectra=val_spectra, validation_table=val_table,
+        blanks=read_spectra(files.blanks), batch=batch,
+        assessment=assess(model, val_spectra, val_table),
+        comparison=compare_methods(spectra, table, val_spectra, val_table, cv="blinds:5",
+                                   max_components=8))

@@ -234,5 +234,6 @@ class Calibration:
             "settings": self.settings,
             "limits": self.limits,
             "selection": self.selection,
+            "merit": self.merit,
             "provenance": self.provenance,
         }

@@ -23,9 +23,19 @@ EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_PARTIAL, EXIT_FLAGGED = 0, 1, 2, 3, 4
 
 
 def _command_modules():
-    from . import build_cmd, demo_cmd, design_cmd, inspect_cmd, predict_cmd, report_cmd
+    from . import (
+        assess_cmd,
+        build_cmd,
+        compare_cmd,
+        demo_cmd,
+        design_cmd,
+        inspect_cmd,
+        predict_cmd,
+        report_cmd,
+    )
 
-    return [demo_cmd, design_cmd, build_cmd, predict_cmd, inspect_cmd, report_cmd]
+    return [demo_cmd, design_cmd, build_cmd, compare_cmd, assess_cmd, predict_cmd, inspect_cmd,
+            report_cmd]
 
 
 class _Parser(argparse.ArgumentParser):

@@ -7,6 +7,7 @@ import json
 
 from ..assess import assess
 from ..bundle import load_model
+from ..cautions import SHORT_CAUTION
 from ..io import read_concentrations, read_spectra
 from ._common import add_input_options, read_options, write_table
 
@@ -50,4 +51,5 @@ def run(args: argparse.Namespace) -> int:
         print(json.dumps(result.to_dict(), indent=2, default=str))
     else:
         print(result.summary())
+        print(SHORT_CAUTION)
     return 0

@@ -44,6 +44,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--out", metavar="MODEL", required=True, help="model file to write")
     p.add_argument("--window", metavar="RANGES", help="axis ranges to use, e.g. 400-700")
     p.add_argument("--blank", metavar="FILE", help="blank spectra subtracted from calibration")
+    p.add_argument("--blanks", metavar="FILE",
+                   help="replicate blank spectra for the noise level of the figures of merit "
+                        "(LOD, LOQ); without them it is estimated from calibration residuals")
     p.add_argument("--ceiling", type=float, default=2.0, metavar="AU",
                    help="photometric ceiling in absorbance units (default 2.0)")
     c = p.add_argument_group("CLS options")
@@ -77,7 +80,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 def _fingerprints(args: argparse.Namespace) -> dict:
     files = []
-    for role in ("spectra", "concentrations", "absorptivity", "blank"):
+    for role in ("spectra", "concentrations", "absorptivity", "blank", "blanks"):
         path = getattr(args, role)
         if path and Path(path).is_file():
             files.append({"role": role, "name": Path(path).name, "sha256": sha256_file(path)})
@@ -116,13 +119,14 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
     """The calibration the options describe (no file written)."""
     window = parse_window(args.window) if args.window else None
     prov = _fingerprints(args)
+    blanks = read_spectra(args.blanks, **read_options(args)) if args.blanks else None
     if args.absorptivity:
         if args.path_length is None:
             raise BandsolveError("--absorptivity needs --path-length CM (the cell path length)")
         eps = read_absorptivities(args.absorptivity, axis_unit=args.axis_unit)
         return build_cls_from_absorptivities(eps, args.path_length, baseline=args.baseline,
-                                             window=window, ceiling=args.ceiling,
-                                             provenance=prov)
+                                             window=window, blanks=blanks,
+                                             ceiling=args.ceiling, provenance=prov)
     if not (args.spectra and args.concentrations):
         raise BandsolveError("give --spectra and --concentrations (or --absorptivity for CLS)")
     spectra = read_spectra(args.spectra, **read_options(args))
@@ -130,8 +134,8 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
     blank = read_spectra(args.blank, **read_options(args)) if args.blank else None
     if args.method == "cls":
         return build_cls(spectra, table, intercept=args.intercept, baseline=args.baseline,
-                         window=window, blank=blank, alpha=args.alpha, ceiling=args.ceiling,
-                         provenance=prov)
+                         window=window, blank=blank, blanks=blanks, alpha=args.alpha,
+                         ceiling=args.ceiling, provenance=prov)
     from ..build_pls import build_pls
 
     table, groups = split_groups(table, args.cv)
@@ -141,7 +145,7 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
                      select=args.select, alpha=args.select_alpha, mode=args.mode,
                      scale=args.scale, window=window, savgol_window=args.savgol_window,
                      derivative=args.derivative, offset=args.offset, blank=blank,
-                     ceiling=args.ceiling, provenance=prov)
+                     blanks=blanks, ceiling=args.ceiling, provenance=prov)
 
 
 def selection_table(cal: Calibration) -> str:
@@ -172,6 +176,8 @@ def run(args: argparse.Namespace) -> int:
     table = selection_table(cal)
     if table:
         eprint(table)
+    if cal.provenance.get("merit_note"):
+        eprint(f"bandsolve: warning: {cal.provenance['merit_note']}")
     eprint(f"{cal.method.upper()} model for {len(cal.analytes)} analytes "
            f"({', '.join(cal.analytes)}) written to {args.out} (checksum {checksum[:12]})")
     return 0

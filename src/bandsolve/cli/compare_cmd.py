@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 
+from ..cautions import SHORT_CAUTION
 from ..compare import compare_methods
 from ..errors import BandsolveError
 from ..io import read_concentrations, read_spectra
@@ -65,4 +66,5 @@ def run(args: argparse.Namespace) -> int:
         print(json.dumps(result.to_dict(), indent=2))
     else:
         print(result.summary())
+        print(SHORT_CAUTION)
     return 0

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 
+from ..cautions import SHORT_CAUTION
 from ..demo import DEMO_LABEL, run_demo
 from ._common import eprint
 
@@ -36,7 +37,6 @@ def run(args: argparse.Namespace) -> int:
            "(results carry standard errors and 95 % prediction intervals).")
     for name, path in demo.outputs.items():
         eprint(f"{name}: {path}")
-    eprint("Flags are explained in the README. Results from a real method count only after it "
-           "has been validated for its intended use under the applicable guidelines and local "
-           "regulations.")
+    eprint("Flags are explained in the README.")
+    eprint(SHORT_CAUTION)
     return 0

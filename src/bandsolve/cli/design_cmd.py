@@ -8,6 +8,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from bandsolve.cautions import SHORT_CAUTION
 from bandsolve.design import (
     AnalyteRange,
     calibration_plan,
@@ -119,6 +120,7 @@ def run(args: argparse.Namespace) -> int:
         random_state=args.random_state, progress=progress_bar(args.quiet),
     )
     print(plan.summary())
+    print(SHORT_CAUTION)
     sheet = None
     if args.stock:
         if args.volume is None:

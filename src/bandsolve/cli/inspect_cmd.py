@@ -6,6 +6,7 @@ import argparse
 import json
 
 from ..bundle import load_model
+from ..merit import FiguresOfMerit
 from ..model import Calibration
 
 
@@ -49,6 +50,10 @@ def summary_text(cal: Calibration) -> str:
         lines.append(f"trained on:      {f['role']} {f['name']} sha256 {f['sha256']}")
     if prov.get("data_label"):
         lines.append(f"data:            {prov['data_label']}")
+    if cal.merit:
+        lines += ["", FiguresOfMerit.from_dict(cal.merit).summary()]
+    else:
+        lines.append(prov.get("merit_note", "figures of merit: not stored in this model"))
     return "\n".join(lines)
 
 

@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
 
+from ..cautions import CAUTIONS
 from ..flags import FLAG_CODES
 from ..merit import FiguresOfMerit
 from ..model import Calibration, result_columns
@@ -20,18 +21,6 @@ from ._views import ReportFigure
 #: Resolution of the embedded PNG figures (dots per inch).
 DPI = 110
 
-CAUTIONS = (
-    "A calibration model is only fit for purpose once the method has been validated for its "
-    "intended use under the applicable guidelines and local regulations (for example ICH "
-    "Q2(R2) where it applies); this report documents the model, it does not replace that "
-    "validation.",
-    "Results outside the calibrated range, or flagged by the residual, T² or leverage "
-    "limits, must not be reported without investigation.",
-    "Hazardous reference chemicals used to check or calibrate photometers (such as "
-    "dichromate standards) are handled, stored and disposed of under local safety rules.",
-    "Keep sample and calibration measurements under the same conditions: cell, path length, "
-    "temperature, solvent and instrument settings.",
-)
 
 STYLE = """
 :root { --ink:#1b1b1b; --muted:#555; --rule:#c8c8c8; --accent:#0072B2; --warn:#D55E00; }
