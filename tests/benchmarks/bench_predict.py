@@ -1,0 +1,121 @@
+"""Benchmark: prediction with full diagnostics against the memory-read floor.
+
+Run on demand (not collected by pytest)::
+
+    /work/venv/bin/python tests/benchmarks/bench_predict.py [--n 1000000] [--p 300]
+
+Simulates n spectra × p wavelengths (float64) of 4 overlapping bands, builds a CLS and a PLS2
+model on 60 mixtures, then times on the same array
+
+* floor: one pass over X (``X @ ones``), the memory-read floor;
+* detail: ``Calibration.detail`` (concentrations, SE, residual/T²/leverage ratios) evaluated
+  in the fixed blocks of ``bandsolve.predict.EVAL_ROWS`` rows used by batch prediction;
+* table: the full results table (flags, intervals) via ``bandsolve.predict.evaluate_set`` on
+  a 10⁵-row slice, scaled to n;
+
+and reports each as a multiple of the floor (target ≤ 6×). Then it streams wide CSV files of
+20 000 and 80 000 spectra through ``predict_inputs`` and reports the tracemalloc peak of each:
+the peak must not grow with the number of spectra.
+"""
+
+from __future__ import annotations
+
+import argparse
+import tempfile
+import time
+import tracemalloc
+from pathlib import Path
+
+import numpy as np
+
+from bandsolve.build import build_cls
+from bandsolve.build_pls import build_pls
+from bandsolve.concentrations import ConcentrationTable
+from bandsolve.predict import EVAL_ROWS, evaluate_set, predict_inputs
+from bandsolve.spectra import SpectralSet
+
+
+def bands(p: int) -> tuple[np.ndarray, np.ndarray]:
+    axis = np.linspace(400.0, 700.0, p)
+    centres = (450, 500, 560, 620)
+    return axis, np.vstack([np.exp(-0.5 * ((axis - c) / 40) ** 2) for c in centres])
+
+
+def models(axis, pure, rng):
+    C = rng.uniform(0.1, 1.0, (60, 4))
+    X = C @ pure + 0.002 * rng.standard_normal((60, axis.size))
+    ids = [f"cal{i}" for i in range(60)]
+    spectra = SpectralSet(axis=axis, values=X, sample_ids=ids)
+    table = ConcentrationTable(ids, ("a", "b", "c", "d"), C)
+    return {"CLS": build_cls(spectra, table),
+            "PLS2": build_pls(spectra, table, components=4, cv="blocks:5", max_components=6)}
+
+
+def best_of(func, repeats: int = 3) -> float:
+    times = []
+    for _ in range(repeats):
+        start = time.perf_counter()
+        func()
+        times.append(time.perf_counter() - start)
+    return min(times)
+
+
+def blockwise_detail(model, X: np.ndarray) -> None:
+    for i in range(0, X.shape[0], EVAL_ROWS):
+        model.detail(X[i:i + EVAL_ROWS])
+
+
+def streaming_peak(model, axis, n: int, rng, folder: Path) -> float:
+    path = folder / f"stream{n}.csv"
+    with open(path, "w") as handle:
+        handle.write("sample," + ",".join(f"{a:.6g}" for a in axis) + "\n")
+        for start in range(0, n, 5000):
+            block = rng.uniform(0.1, 1.0, (min(5000, n - start), 4)) @ bands(axis.size)[1]
+            handle.writelines(f"x{start + i}," + ",".join(f"{v:.5f}" for v in row) + "\n"
+                              for i, row in enumerate(block))
+    tracemalloc.start()
+    result = predict_inputs(model, [str(path)], read_options={"layout": "wide"},
+                            chunk_size=2000)
+    n_rows = len(result.table)
+    del result
+    _, peak = tracemalloc.get_traced_memory()
+    tracemalloc.stop()
+    assert n_rows == n
+    return peak / 2**20
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--n", type=int, default=1_000_000)
+    parser.add_argument("--p", type=int, default=300)
+    args = parser.parse_args()
+    rng = np.random.default_rng(0)
+    axis, pure = bands(args.p)
+    fitted = models(axis, pure, rng)
+    X = np.empty((args.n, args.p))
+    for i in range(0, args.n, 100_000):
+        k = min(100_000, args.n - i)
+        X[i:i + k] = rng.uniform(0, 1, (k, 4)) @ pure + 0.002 * rng.standard_normal((k, args.p))
+    ones = np.ones(args.p)
+    floor = best_of(lambda: X @ ones)
+    print(f"{args.n} spectra x {args.p} points, float64 ({X.nbytes / 2**30:.2f} GiB); "
+          f"EVAL_ROWS = {EVAL_ROWS}")
+    print(f"floor (X @ ones): {floor * 1e3:.0f} ms")
+    m = min(100_000, args.n)
+    part = SpectralSet(axis=axis, values=X[:m], sample_ids=[f"s{i}" for i in range(m)])
+    for name, model in fitted.items():
+        t_detail = best_of(lambda model=model: blockwise_detail(model, X), repeats=2)
+        t_whole = best_of(lambda model=model: model.detail(X[:m]), repeats=2) * args.n / m
+        t_table = best_of(lambda model=model: evaluate_set(model, part), repeats=1) * args.n / m
+        print(f"{name}: detail blockwise {t_detail:.2f} s = {t_detail / floor:.1f}x floor; "
+              f"detail in one call {t_whole:.2f} s = {t_whole / floor:.1f}x; "
+              f"full table {t_table:.1f} s = {t_table / floor:.0f}x floor")
+    with tempfile.TemporaryDirectory() as tmp:
+        for n in (20_000, 80_000):
+            peak = streaming_peak(fitted["CLS"], axis, n, rng, Path(tmp))
+            print(f"streaming {n} spectra from CSV (chunks of 2000): tracemalloc peak "
+                  f"{peak:.1f} MiB (includes the in-memory results table)")
+
+
+if __name__ == "__main__":
+    main()
