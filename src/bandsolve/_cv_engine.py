@@ -155,34 +155,30 @@ class WideEngine:
         """Results for held-out ``test`` of the model fitted to ``train`` (index arrays)."""
         n_train = train.size
         xv = self.x0[test]
+        xt = self.x0[train]
         x_mean = (self.sx - xv.sum(axis=0)) / n_train
         if self.scale:
-            xt_c = self.x0[train] - x_mean
-            sd = _fold_scale(np.einsum("ij,ij->j", xt_c, xt_c), n_train, True)
-            xt_c /= sd
+            xt = xt - x_mean
+            sd = _fold_scale(np.einsum("ij,ij->j", xt, xt), n_train, True)
+            xt /= sd
             x_val = (xv - x_mean) / sd
-            gram_tt = xt_c @ xt_c.T
-            gram_vt = x_val @ xt_c.T
+            gram_tt = xt @ xt.T
+            gram_vt = x_val @ xt.T
         else:
-            sd = np.ones(xv.shape[1])
             x_val = xv - x_mean
-            # Double-centre the stored Gram block with the training mean only.
-            k_tt = self.gram[np.ix_(train, train)]
-            k_mean = k_tt.mean(axis=0)
-            gram_tt = k_tt - k_mean[:, None] - k_mean[None, :] + k_mean.mean()
-            k_vt = self.gram[np.ix_(test, train)] - k_mean[None, :]
-            gram_vt = k_vt - k_vt.mean(axis=1, keepdims=True)
+            # Double-centre the stored Gram blocks with the training mean only.
+            k_rows = self.gram[train]
+            gram_tt = k_rows[:, train]
+            k_mean = gram_tt.mean(axis=0)
+            gram_vt = k_rows[:, test].T - k_mean
+            gram_vt -= gram_vt.mean(axis=1, keepdims=True)
+            gram_tt -= k_mean[:, None]
+            gram_tt -= k_mean - k_mean.mean()
         yt = self.y0[train]
         y_mean = yt.mean(axis=0)
         f = gram_pls(gram_tt, yt - y_mean, n_settings)
-        if self.scale:
-            x_loadings = (xt_c.T @ f.scores) / f.tau
-        else:
-            # Training scores sum to zero, so X_tcᵀT = X_tᵀT (any centring); zero rows for
-            # held-out samples avoid copying the training block.
-            scores = np.zeros((self.x0.shape[0], f.tau.size))
-            scores[train] = f.scores
-            x_loadings = (self.x0.T @ scores) / f.tau
+        # Training scores sum to zero, so X_tcᵀT = X_tᵀT for any centring of the rows.
+        x_loadings = (xt.T @ f.scores) / f.tau
         return _fold_output(x_val, self.y_offset + y_mean, gram_vt @ f.rotation_coords,
                             x_loadings, f.y_loadings, f.tau, n_train, n_settings)
 

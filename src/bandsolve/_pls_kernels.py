@@ -28,6 +28,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.linalg
 
 #: A component is not extracted when its score sum of squares falls below this fraction of the
 #: total X sum of squares, or when the remaining X-Y covariance falls below this fraction of the
@@ -164,10 +165,11 @@ def gram_pls(gram: np.ndarray, yc: np.ndarray, n_components: int) -> GramFactors
     n, m = yc.shape
     total_ss = float(np.trace(gram))
     y_def = yc.copy()
-    weight_coords = np.zeros((n, n_components))
-    rotation_coords = np.zeros((n, n_components))
-    scores = np.zeros((n, n_components))
-    y_loadings = np.zeros((m, n_components))
+    # Row a of each array is component a (contiguous rows; fewer temporaries per component).
+    weight_coords = np.zeros((n_components, n))
+    rotation_coords = np.zeros((n_components, n))
+    scores = np.zeros((n_components, n))
+    y_loadings = np.zeros((n_components, m))
     tau = np.zeros(n_components)
     first_sv2 = None
     a = 0
@@ -177,27 +179,24 @@ def gram_pls(gram: np.ndarray, yc: np.ndarray, n_components: int) -> GramFactors
         first_sv2 = sv2 if first_sv2 is None else first_sv2
         if sv2 <= RANK_TOL**2 * first_sv2 or sv2 <= 0.0:
             break
-        # w = X_cᵀg with ‖w‖ = 1; gram_g = X_c w.
-        g = y_def @ v
-        gram_g = gram_y @ v
-        w_norm = np.sqrt(g @ gram_g)
-        g /= w_norm
-        gram_g /= w_norm
+        # w = X_cᵀg with ‖w‖ = 1; gram_g = X_c w.  ‖X_cᵀ y_def v‖² = vᵀ(y_defᵀ K y_def)v = sv2.
+        w_norm = np.sqrt(sv2)
+        g = (y_def @ v) / w_norm
+        gram_g = (gram_y @ v) / w_norm
         # r = w − R Pᵀw in sample coordinates; Pᵀw = Tᵀ X_c w / τ.
-        proj = (scores[:, :a].T @ gram_g) / tau[:a]
-        z = g - rotation_coords[:, :a] @ proj
-        t = gram_g - scores[:, :a] @ proj
+        proj = (scores[:a] @ gram_g) / tau[:a]
+        t = gram_g - proj @ scores[:a]
         tau_a = float(t @ t)
         if tau_a <= RANK_TOL * total_ss:
             break
-        q_a = (y_def.T @ t) / tau_a
-        y_def -= np.outer(t, q_a)
-        weight_coords[:, a], rotation_coords[:, a], scores[:, a] = g, z, t
-        y_loadings[:, a], tau[a] = q_a, tau_a
+        q_a = (t @ y_def) / tau_a
+        y_def -= t[:, None] * q_a
+        weight_coords[a], rotation_coords[a] = g, g - proj @ rotation_coords[:a]
+        scores[a], y_loadings[a], tau[a] = t, q_a, tau_a
     else:
         a = n_components
-    return GramFactors(weight_coords[:, :a], rotation_coords[:, :a], scores[:, :a],
-                       y_loadings[:, :a], tau[:a])
+    return GramFactors(weight_coords[:a].T, rotation_coords[:a].T, scores[:a].T,
+                       y_loadings[:a].T, tau[:a])
 
 
 def residual_ss_path(xs: np.ndarray, scores: np.ndarray, x_loadings: np.ndarray) -> np.ndarray:
@@ -215,13 +214,23 @@ def residual_ss_path(xs: np.ndarray, scores: np.ndarray, x_loadings: np.ndarray)
     Returns
     -------
     ndarray of shape (A, n)
-        Row ``a-1`` is ``‖x − Σ_{j≤a} p_j t_j‖²`` (the Q statistic with a components).  The
-        residual is formed explicitly rather than by the quadratic-form shortcut, which loses
-        digits to cancellation.
+        Row ``a-1`` is ``‖x − Σ_{j≤a} p_j t_j‖²`` (the Q statistic with a components).
+
+    Notes
+    -----
+    With the Householder QR ``P = U R`` (U orthonormal, R upper triangular, so the first a
+    columns of P are ``U R[:, :a]``) the residual splits into orthogonal parts,
+    ``‖x − Σ_{j≤a} p_j t_j‖² = ‖x − U Uᵀx‖² + ‖Uᵀx − Σ_{j≤a} R[:, j] t_j‖²``.
+    The first part is formed explicitly once per row (p-length), the second in A dimensions,
+    so no p-length residual is formed per component and no digits are lost to the
+    cancellation of the quadratic-form shortcut ``‖x‖² − 2tᵀPᵀx + tᵀPᵀPt``.
     """
-    resid = xs.copy()
-    out = np.empty((scores.shape[1], xs.shape[0]))
-    for a in range(scores.shape[1]):
-        resid -= np.outer(scores[:, a], x_loadings[:, a])
-        out[a] = np.einsum("ij,ij->i", resid, resid)
-    return out
+    n_comp = scores.shape[1]
+    if n_comp == 0:
+        return np.empty((0, xs.shape[0]))
+    basis, tri = scipy.linalg.qr(x_loadings, mode="economic", check_finite=False)
+    coords = xs @ basis
+    outside = xs - coords @ basis.T
+    fitted = np.cumsum(scores.T[:, :, None] * tri.T[:, None, :], axis=0)
+    inside = coords - fitted
+    return np.einsum("ij,ij->i", outside, outside) + np.einsum("anj,anj->an", inside, inside)

@@ -11,6 +11,7 @@
 
 from __future__ import annotations
 
+import functools
 import numbers
 import re
 from collections.abc import Iterator
@@ -25,7 +26,7 @@ from sklearn.model_selection import (
     LeaveOneOut,
     RepeatedKFold,
 )
-from threadpoolctl import threadpool_limits
+from threadpoolctl import ThreadpoolController
 
 from bandsolve._cv_engine import CVResult, FoldOutput, TallEngine, WideEngine
 from bandsolve._cv_selection import (
@@ -255,6 +256,12 @@ def _run(splits, Y: np.ndarray, settings: tuple, setting_name: str, fold_fn) -> 
         hotelling_t2=sum_t2 / count if has_diag else None)
 
 
+@functools.cache
+def _blas_controller() -> ThreadpoolController:
+    """Thread-pool controller, built once (scanning the loaded libraries costs ~1-10 ms)."""
+    return ThreadpoolController()
+
+
 def cross_validate_pls(X, Y, max_components: int, cv="blinds:10", scale: bool = False,
                        algorithm: str = "auto", groups=None) -> CVResult:
     """Cross-validate PLS for every component count 1..``max_components`` in one pass.
@@ -309,10 +316,12 @@ def cross_validate_pls(X, Y, max_components: int, cv="blinds:10", scale: bool = 
     splits = _splits(cv, X, Y2, groups)
     n, p = X.shape
     tall = algorithm == "kernel" or (algorithm == "auto" and n >= p)
-    engine = (TallEngine if tall else WideEngine)(X, Y2, scale)
     settings = tuple(range(1, int(max_components) + 1))
-    # Folds make many small BLAS calls, which stall with several threads (METHODS §9).
-    with threadpool_limits(limits=1, user_api="blas"):
+    # Folds make many small BLAS calls, which stall with several threads (METHODS §9); the
+    # one-off cross-products are small enough that a second thread gains little and risks the
+    # same stalls on a busy machine.
+    with _blas_controller().limit(limits=1, user_api="blas"):
+        engine = (TallEngine if tall else WideEngine)(X, Y2, scale)
         return _run(splits, Y2, settings, "n_components",
                     lambda train, test: engine.fold(train, test, len(settings)))
 
