@@ -41,7 +41,7 @@ def test_chosen_components_match_the_number_of_absorbers(calibration):
 
 def test_in_model_samples_rarely_flagged_foreign_band_always(calibration):
     axis, K, rng, cal = calibration
-    C, A = _simulate(rng, K, 400, low=0.1, high=0.9)
+    _, A = _simulate(rng, K, 400, low=0.1, high=0.9)
     ids = [f"u{i}" for i in range(400)]
     clean = cal.predict(SpectralSet(axis, A, ids))
     foreign = A + 0.05 * np.exp(-0.5 * ((axis - 650) / 15) ** 2)
@@ -53,7 +53,7 @@ def test_in_model_samples_rarely_flagged_foreign_band_always(calibration):
 
 
 def test_extrapolation_flagged_by_t2(calibration):
-    axis, K, rng, cal = calibration
+    axis, K, _, cal = calibration
     C = np.array([[3.0, 3.0, 3.0], [2.5, 0.0, 2.5]])  # far outside the 0–1 calibration box
     res = cal.predict(SpectralSet(axis, C @ K, ["far1", "far2"]))
     assert res["flags"].str.contains("t2").all()
