@@ -30,12 +30,13 @@ def _command_modules():
         demo_cmd,
         design_cmd,
         inspect_cmd,
+        ledger_cmd,
         predict_cmd,
         report_cmd,
     )
 
     return [demo_cmd, design_cmd, build_cmd, compare_cmd, assess_cmd, predict_cmd, inspect_cmd,
-            report_cmd]
+            report_cmd, ledger_cmd]
 
 
 class _Parser(argparse.ArgumentParser):
