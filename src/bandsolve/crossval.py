@@ -11,7 +11,6 @@
 
 from __future__ import annotations
 
-import functools
 import numbers
 import re
 from collections.abc import Iterator
@@ -26,7 +25,6 @@ from sklearn.model_selection import (
     LeaveOneOut,
     RepeatedKFold,
 )
-from threadpoolctl import ThreadpoolController
 
 from bandsolve._cv_engine import CVResult, FoldOutput, TallEngine, WideEngine
 from bandsolve._cv_selection import (
@@ -35,6 +33,7 @@ from bandsolve._cv_selection import (
     randomization_test,
     select_components,
 )
+from bandsolve._threads import single_blas_thread
 from bandsolve.errors import DataError, ModelError
 
 __all__ = [
@@ -256,12 +255,6 @@ def _run(splits, Y: np.ndarray, settings: tuple, setting_name: str, fold_fn) -> 
         hotelling_t2=sum_t2 / count if has_diag else None)
 
 
-@functools.cache
-def _blas_controller() -> ThreadpoolController:
-    """Thread-pool controller, built once (scanning the loaded libraries costs ~1-10 ms)."""
-    return ThreadpoolController()
-
-
 def cross_validate_pls(X, Y, max_components: int, cv="blinds:10", scale: bool = False,
                        algorithm: str = "auto", groups=None) -> CVResult:
     """Cross-validate PLS for every component count 1..``max_components`` in one pass.
@@ -320,7 +313,7 @@ def cross_validate_pls(X, Y, max_components: int, cv="blinds:10", scale: bool = 
     # Folds make many small BLAS calls, which stall with several threads (METHODS §9); the
     # one-off cross-products are small enough that a second thread gains little and risks the
     # same stalls on a busy machine.
-    with _blas_controller().limit(limits=1, user_api="blas"):
+    with single_blas_thread():
         engine = (TallEngine if tall else WideEngine)(X, Y2, scale)
         return _run(splits, Y2, settings, "n_components",
                     lambda train, test: engine.fold(train, test, len(settings)))

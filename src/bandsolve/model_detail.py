@@ -15,9 +15,12 @@ __all__ = ["cls_detail", "pls_detail", "LEVERAGE_FACTOR"]
 LEVERAGE_FACTOR = 3.0
 
 
-def cls_detail(model: CLSRegressor, Z: np.ndarray) -> Detail:
-    """Detail for a CLS model: SE from the sample's residual, F-ratio and leverage ratios."""
-    d = model.predict_detail(Z)
+def cls_detail(model: CLSRegressor, H: np.ndarray, ss: np.ndarray) -> Detail:
+    """Detail for a CLS model from its scan products (:meth:`CLSRegressor.scan_parts`).
+
+    SE from each sample's own residual, F-ratio and leverage ratios.
+    """
+    d = model.detail_from_scan(H, ss)
     n, m = d.concentrations.shape
     notes = [d.note] if d.note else []
     if model.gram_inv_ is None:
@@ -41,34 +44,34 @@ def cls_detail(model: CLSRegressor, Z: np.ndarray) -> Detail:
     )
 
 
-def pls_detail(models: list[Any], limits: dict[str, Any], Z: np.ndarray) -> Detail:
+def pls_detail(models: list[Any], limits: dict[str, Any],
+               scans: list[tuple[np.ndarray, np.ndarray]]) -> Detail:
     """Detail for PLS: one model (PLS2) or one per analyte (PLS1).
 
     The SE is the Faber & Bro (2002) form ``σ(ŷ) ≈ √((1 + h)·MSEC − σ²_ref)`` with the
     leverage ``h = 1/n + tᵀ(TᵀT)⁻¹t``; ratios of T², Q and leverage to their limits are
-    the largest over the per-analyte models for PLS1.
+    the largest over the per-analyte models for PLS1. ``scans`` holds each model's scan
+    products ``(H, ss)`` (:meth:`PLSRegressor.scan_parts`).
     """
     from .diagnostics import hotelling_t2
 
-    n = Z.shape[0]
+    n = scans[0][0].shape[0]
     concs, ses, dofs = [], [], []
     q_ratio = np.zeros(n)
     t2_ratio = np.zeros(n)
     lev_ratio = np.zeros(n)
-    for model, lim in zip(models, limits["models"], strict=True):
-        scores = model.transform(Z)
+    for model, lim, (H, ss) in zip(models, limits["models"], scans, strict=True):
+        pred, scores, q = model.detail_from_scan(H, ss)
         train = model.x_scores_
         n_cal, a = train.shape
         t2 = hotelling_t2(scores, train)
         lev = 1.0 / n_cal + t2 / (n_cal - 1)
-        pred = np.asarray(model.predict(Z)).reshape(n, -1)
         msec = np.asarray(lim["msec"], dtype=float)
         s2_ref = np.asarray(lim.get("reference_variance", np.zeros_like(msec)), dtype=float)
         var = (1 + lev)[:, None] * msec[None, :] - s2_ref[None, :]
         concs.append(pred)
         ses.append(np.sqrt(np.maximum(var, 0.0)))
         dofs.extend([n_cal - a - 1] * pred.shape[1])
-        q = model.x_residual_ss(Z)
         q_ratio = np.maximum(q_ratio, q / lim["q_limit"])
         t2_ratio = np.maximum(t2_ratio, t2 / lim["t2_limit"])
         lev_ratio = np.maximum(lev_ratio, lev / lim["leverage_limit"])

@@ -29,7 +29,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import BandsolveError, DataError, FormatError
-from .model import Calibration, result_columns
+from .model import EVAL_ROWS, Calibration, result_columns
 from .spectra import SpectralSet
 
 __all__ = ["EVAL_ROWS", "BatchFailure", "BatchResult", "BatchSummary", "expand_inputs",
@@ -39,10 +39,6 @@ __all__ = ["EVAL_ROWS", "BatchFailure", "BatchResult", "BatchSummary", "expand_i
 #: File endings read from folders when no pattern is given.
 SPECTRA_SUFFIXES = (".csv", ".txt", ".tsv", ".dat", ".prn", ".jdx", ".dx", ".jcamp", ".jcm")
 
-#: Rows per evaluation block: spectra are always predicted in these fixed blocks (counted from
-#: each input's first spectrum) so results do not depend on chunking. 1024 × 300 float64 is
-#: 2.4 MB, near the cache sizes where blockwise products run fastest (METHODS §9).
-EVAL_ROWS = 1024
 
 #: Text files at least this large, in the automatic layout, are streamed when their first
 #: lines read as a wide table; smaller files are read whole.
@@ -199,9 +195,7 @@ def evaluate_set(model: Calibration, spectra: SpectralSet) -> pd.DataFrame:
 
     The first row of ``spectra`` must be the first row of an evaluation block (a task start).
     """
-    frames = [model.predict(_rows(spectra, i, i + EVAL_ROWS))
-              for i in range(0, spectra.n_samples, EVAL_ROWS)]
-    return frames[0] if len(frames) == 1 else pd.concat(frames, ignore_index=True)
+    return model.predict(spectra)
 
 
 def _task(model: Calibration, position: int, payload: SpectralSet | BatchFailure):

@@ -121,14 +121,22 @@ class SpectralPreprocessor(TransformerMixin, BaseEstimator):
     def transform(self, X):
         """Apply filter, window and offset; returns shape (n, p_out)."""
         check_is_fitted(self, "mask_")
-        X = validate_data(self, X, reset=False)
+        return self.apply(validate_data(self, X, reset=False))
+
+    def apply(self, X: np.ndarray) -> np.ndarray:
+        """:meth:`transform` for a finite float array already checked by the caller.
+
+        The hot path of batch prediction, which validates its input once per batch rather
+        than once per block.
+        """
         if self.savgol_window is not None:
             delta = 1.0
             if self.axis is not None and self.derivative:
                 delta = float(np.diff(np.asarray(self.axis, dtype=float))[0])
             X = savgol_filter(X, int(self.savgol_window), int(self.savgol_polyorder),
                               deriv=int(self.derivative), delta=delta, axis=1)
-        X = X[:, self.mask_]
+        if not self.mask_.all():
+            X = X[:, self.mask_]
         if self.offset:
             X = X - X.mean(axis=1, keepdims=True)
         return X

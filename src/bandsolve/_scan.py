@@ -1,0 +1,76 @@
+"""One pass over many spectra: the narrow product, weighted sums of squares and maxima.
+
+Predicting a million spectra is bound by reading them from memory. Every per-spectrum
+quantity bandsolve needs at prediction — CLS concentrations and residuals, PLS scores and Q,
+the largest absorbance for the ceiling — follows from three reductions of each spectrum x:
+``x @ M`` for a narrow matrix M, ``Σ w_j x_j²`` and ``max_j x_j`` over the used points.
+They are computed together on cache-sized row slices, so each spectrum is read from main
+memory once (METHODS §9: residual norms in L2-sized blocks stay exact at ~1.4× the cost of
+the cheapest form).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["ScanParts", "scan"]
+
+#: Rows per slice: 256 × 300 float64 is 0.6 MB, inside a core's L2 cache.
+SLICE_ROWS = 256
+
+
+@dataclass(frozen=True)
+class ScanParts:
+    """What an estimator needs from each spectrum (in its own, preprocessed, columns).
+
+    Attributes
+    ----------
+    matrix : ndarray, shape (p, c)
+        Columns whose products with each spectrum the estimator needs.
+    weights : ndarray, shape (p,)
+        Weights of the sum of squares ``Σ w_j x_j²``.
+    """
+
+    matrix: np.ndarray
+    weights: np.ndarray
+
+
+def embed(parts: ScanParts, mask: np.ndarray) -> ScanParts:
+    """The same parts on the full input grid: zero rows and weights outside ``mask``."""
+    matrix = np.zeros((mask.size, parts.matrix.shape[1]))
+    matrix[mask] = parts.matrix
+    weights = np.zeros(mask.size)
+    weights[mask] = parts.weights
+    return ScanParts(matrix, weights)
+
+
+def scan(X: np.ndarray, parts: ScanParts, mask: np.ndarray | None = None
+         ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Products ``X @ matrix`` (n, c), weighted sums of squares (n,) and maxima (n,).
+
+    Parameters
+    ----------
+    X : ndarray, shape (n, p)
+        Spectra (finite float64; NaN propagates into the outputs).
+    parts : ScanParts
+    mask : ndarray of bool, shape (p,), optional
+        Points over which the maximum is taken (all when None).
+    """
+    n = X.shape[0]
+    H = np.empty((n, parts.matrix.shape[1]))
+    ss = np.empty(n)
+    top = np.empty(n)
+    unit = bool(np.all(parts.weights == 1.0))
+    where = None if mask is None or mask.all() else mask
+    for i in range(0, n, SLICE_ROWS):
+        block = X[i:i + SLICE_ROWS]
+        np.matmul(block, parts.matrix, out=H[i:i + SLICE_ROWS])
+        if unit:
+            ss[i:i + SLICE_ROWS] = np.einsum("ij,ij->i", block, block)
+        else:
+            ss[i:i + SLICE_ROWS] = np.einsum("ij,ij,j->i", block, block, parts.weights)
+        top[i:i + SLICE_ROWS] = (block.max(axis=1) if where is None
+                                 else block.max(axis=1, where=where, initial=-np.inf))
+    return H, ss, top
