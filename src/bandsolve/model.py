@@ -87,16 +87,16 @@ def _scan_all(data: np.ndarray, parts: list[ScanParts], mask: np.ndarray | None
 def _flag_column(n: int, checks: list[tuple[np.ndarray, str]]) -> np.ndarray:
     """The ``flags`` text per row: codes of the true checks, in order, joined by ``;``.
 
-    Work is proportional to the number of flags raised, not to the number of rows.
+    Each distinct combination of raised flags is turned into text once, so the cost does not
+    grow with the number of flagged rows beyond a sort of integer keys.
     """
-    codes: list[list[str]] = [[] for _ in range(n)]
-    for mask, code in checks:
-        for i in np.flatnonzero(mask):
-            codes[i].append(code)
-    out = np.full(n, "", dtype=object)
-    for i in np.flatnonzero([bool(c) for c in codes]):
-        out[i] = join_flags(codes[i])
-    return out
+    masks = np.column_stack([np.asarray(m, dtype=bool) for m, _ in checks])
+    packed = np.ascontiguousarray(np.packbits(masks, axis=1))
+    keys = packed.view(np.dtype((np.void, packed.shape[1]))).ravel()  # one key per row
+    _, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
+    texts = np.array([join_flags(code for (_, code), on in zip(checks, masks[i], strict=True)
+                                 if on) for i in first], dtype=object)
+    return texts[inverse.ravel()]
 
 
 def result_columns(analyte: str) -> tuple[str, str, str, str]:

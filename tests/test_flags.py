@@ -1,0 +1,28 @@
+"""The flags column: codes in check order, joined by ';', empty when nothing is raised."""
+
+from __future__ import annotations
+
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
+
+from bandsolve.flags import FLAG_CODES, join_flags, split_flags
+from bandsolve.model import _flag_column
+
+
+@settings(max_examples=60, deadline=None)
+@given(arrays(bool, st.tuples(st.integers(1, 40), st.integers(1, 12))))
+def test_flag_column_equals_row_by_row_join(masks):
+    # Reference: the definition, one row at a time (join_flags keeps first-seen order).
+    codes = [f"code{j}" for j in range(masks.shape[1])]
+    checks = [(masks[:, j], codes[j]) for j in range(masks.shape[1])]
+    got = _flag_column(masks.shape[0], checks)
+    expected = [join_flags(c for c, on in zip(codes, row, strict=True) if on) for row in masks]
+    assert list(got) == expected
+    for text, row in zip(got, masks, strict=True):
+        assert split_flags(text) == [c for c, on in zip(codes, row, strict=True) if on]
+
+
+def test_every_flag_code_is_explained():
+    for code, text in FLAG_CODES.items():
+        assert code and ";" not in code and len(text) > 20
