@@ -30,6 +30,7 @@ import pandas as pd
 
 from .errors import BandsolveError, DataError, FormatError
 from .model import EVAL_ROWS, Calibration, result_columns
+from .progress import ProgressCallback, step
 from .spectra import SpectralSet
 
 __all__ = ["EVAL_ROWS", "BatchFailure", "BatchResult", "BatchSummary", "expand_inputs",
@@ -288,7 +289,8 @@ def _engine(scheduler: str | None):
 def run_batch(model: Calibration, inputs: Sequence[str], sinks: Sequence[Sink], *,
               read_options: dict[str, Any] | None = None, pattern: str | None = None,
               stdin_text: str | None = None, chunk_size: int = DEFAULT_CHUNK,
-              n_jobs: int = 1, scheduler: str | None = None) -> BatchSummary:
+              n_jobs: int = 1, scheduler: str | None = None,
+              progress: ProgressCallback | None = None) -> BatchSummary:
     """Predict every spectrum of ``inputs`` and pass the rows, input by input, to ``sinks``.
 
     Parameters
@@ -306,6 +308,8 @@ def run_batch(model: Calibration, inputs: Sequence[str], sinks: Sequence[Sink], 
         Parallel joblib workers (-1: all cores). Results do not depend on it.
     scheduler : str, optional
         Address of a running ``dask.distributed`` scheduler to run the tasks on.
+    progress : callable, optional
+        ``progress(done, total, label)`` as each input is finished (:mod:`bandsolve.progress`).
 
     Returns
     -------
@@ -324,6 +328,8 @@ def run_batch(model: Calibration, inputs: Sequence[str], sinks: Sequence[Sink], 
             for sink in sinks:
                 sink.commit_input()
             summary.n_predicted += pending
+        if current is not None:
+            step(progress, current + 1, len(files), Path(files[current]).name)
 
     payloads = _payloads(files, read_options or {}, stdin_text, chunk_size, failed)
     with _engine(scheduler):

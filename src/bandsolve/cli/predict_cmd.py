@@ -11,6 +11,7 @@ from ..bundle import load_model
 from ..errors import FormatError
 from ..io.atomic import atomic_write
 from ..predict import DEFAULT_CHUNK, result_table_columns, run_batch
+from ..progress import progress_bar
 from . import EXIT_FLAGGED, EXIT_PARTIAL
 from ._common import add_input_options, eprint, read_options
 
@@ -53,6 +54,8 @@ def register(sub: argparse._SubParsersAction) -> None:
                    help="results format (default: from the --out ending, else csv); parquet "
                         "needs the parquet extra")
     p.add_argument("--glob", metavar="PATTERN", help="file pattern inside folders")
+    p.add_argument("--quiet", action="store_true",
+                   help="no progress bar (it is shown only on a terminal anyway)")
     p.add_argument("--fail-on-flags", action="store_true",
                    help="exit with code 4 when any result is flagged")
     run = p.add_argument_group("running")
@@ -124,7 +127,7 @@ def run_command(args: argparse.Namespace) -> int:
         summary = run_batch(model, args.inputs, sinks, read_options=read_options(args),
                             pattern=args.glob, stdin_text=stdin_text,
                             chunk_size=args.chunk_size, n_jobs=args.jobs,
-                            scheduler=args.scheduler)
+                            scheduler=args.scheduler, progress=progress_bar(args.quiet))
         writer.close()
         if recorder is not None:
             run_id = recorder.finish(summary.inputs, summary.failures)
