@@ -104,7 +104,7 @@ def test_clean_test_set_is_consistent_with_the_stored_rmsecv():
         # Same noise and composition range: RMSEP ≈ RMSECV (theory); a 40-sample RMSEP has a
         # relative SD of about 1/√80 ≈ 11 %, so 0.7..1.4 is a wide, safe band.
         assert 0.7 < a.rmsep_ratio < 1.4
-        # Slope 1 and intercept 0 hold for an unbiased model (theory); fixed seed.
+        # Slope 1 and intercept 0 hold for an unbiased model (theory); fixed random state.
         assert a.statistics.line_p > 0.01
     assert "RMSEP" in result.summary()
 

@@ -26,8 +26,8 @@ PURE = gaussian_bands(AXIS, (480, 530, 590), (40, 45, 40))
 LABELS = ("A [mg/L]", "B [mg/L]", "C [mg/L]")
 
 
-def _training(n: int = 24, seed: int = 1):
-    rng = np.random.default_rng(seed)
+def _training(n: int = 24, rs: int = 1):
+    rng = np.random.default_rng(rs)
     C = rng.uniform(0.1, 1.0, (n, 3))
     X = C @ PURE + 0.002 * rng.standard_normal((n, AXIS.size))
     ids = [f"cal{i}" for i in range(n)]
@@ -35,8 +35,8 @@ def _training(n: int = 24, seed: int = 1):
             ConcentrationTable(sample_ids=ids, analytes=LABELS, values=C))
 
 
-def _routine(n: int = 40, seed: int = 2) -> SpectralSet:
-    rng = np.random.default_rng(seed)
+def _routine(n: int = 40, rs: int = 2) -> SpectralSet:
+    rng = np.random.default_rng(rs)
     X = rng.uniform(0, 1.2, (n, 3)) @ PURE + 0.002 * rng.standard_normal((n, AXIS.size))
     return SpectralSet(axis=AXIS, values=X, sample_ids=[f"r{i}" for i in range(n)])
 

@@ -280,8 +280,9 @@ def test_selection_pooling_ignores_concentration_units():
 
 
 def test_cv_chosen_pls_reaches_the_noise_limited_bound():
-    # Seed fixed; over 30 simulated calibration sets 29 gave ≤ 1.07× and one (seed 18) let CV
-    # pick 6 components (1.38×): selection is a statistical decision, not a guarantee.
+    # Random state fixed; over 30 simulated calibration sets 29 gave ≤ 1.07× and one
+    # (random state 18) let CV pick 6 components (1.38×): selection is a statistical
+    # decision, not a guarantee.
     rng = np.random.default_rng(20)
     p, sigma = 80, 0.003
     K = _bands(p, centres=(0.35, 0.5, 0.65), width=0.15)

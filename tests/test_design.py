@@ -165,8 +165,8 @@ def test_d_optimal_beats_random_designs(n_runs, n_factors, levels):
                                            repeat=n_factors)))
     rng = np.random.default_rng(7)
     random_dets = [logdet(grid[rng.choice(len(grid), n_runs)]) for _ in range(400)]
-    for seed in range(4):
-        design = d_optimal_design(n_runs, n_factors, levels, random_state=seed)
+    for rs in range(4):
+        design = d_optimal_design(n_runs, n_factors, levels, random_state=rs)
         # Definition of D-optimality (Fedorov 1972): never below a design from the candidates...
         assert logdet(design) >= max(random_dets) - 1e-9
         # ...and clearly better than the typical random design.

@@ -43,8 +43,8 @@ def test_scikit_learn_estimator_checks(estimator, check):
     check(estimator)
 
 
-def _data(n: int, seed: int, offset: float = 0.0):
-    rng = np.random.default_rng(seed)
+def _data(n: int, rs: int, offset: float = 0.0):
+    rng = np.random.default_rng(rs)
     C = rng.uniform(0.1, 1.0, (n, 3))
     X = C @ PURE + offset + 0.002 * rng.standard_normal((n, AXIS.size))
     return X, C

@@ -33,8 +33,8 @@ LABELS = ("A [mg/L]", "B [mg/L]", "C [mg/L]")
 CLI = [sys.executable, "-c", "import sys; from bandsolve.cli import main; sys.exit(main())"]
 
 
-def _mixtures(n: int, seed: int, prefix: str) -> SpectralSet:
-    rng = np.random.default_rng(seed)
+def _mixtures(n: int, rs: int, prefix: str) -> SpectralSet:
+    rng = np.random.default_rng(rs)
     X = rng.uniform(0.1, 1.0, (n, 3)) @ PURE + 0.001 * rng.standard_normal((n, AXIS.size))
     return SpectralSet(axis=AXIS, values=X, sample_ids=[f"{prefix}{i}" for i in range(n)])
 

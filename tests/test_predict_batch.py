@@ -27,8 +27,8 @@ LABELS = ("A [mg/L]", "B [mg/L]", "C [mg/L]")
 NOISE = 0.001
 
 
-def _mixtures(n: int, seed: int, axis=AXIS, prefix="s"):
-    rng = np.random.default_rng(seed)
+def _mixtures(n: int, rs: int, axis=AXIS, prefix="s"):
+    rng = np.random.default_rng(rs)
     C = rng.uniform(0.1, 1.0, (n, 3))
     pure = gaussian_bands(axis, (480, 530, 590), (40, 45, 40))
     X = C @ pure + NOISE * rng.standard_normal((n, axis.size))
@@ -54,8 +54,8 @@ def folder(tmp_path):
     d = tmp_path / "in"
     d.mkdir()
     truth = {}
-    for name, seed in (("good1", 10), ("good2", 11)):
-        s, C = _mixtures(5, seed, prefix=f"{name}-")
+    for name, rs in (("good1", 10), ("good2", 11)):
+        s, C = _mixtures(5, rs, prefix=f"{name}-")
         write_spectra_csv(s, d / f"{name}.csv")
         truth.update(zip(s.sample_ids, C, strict=True))
     fine, C = _mixtures(4, 12, axis=np.linspace(390.0, 710.0, 321), prefix="fine-")

@@ -26,8 +26,8 @@ PURE = gaussian_bands(AXIS, (480, 530, 590), (40, 45, 40))
 LABELS = ("A [mg/L]", "B [mg/L]", "C [mg/L]")
 
 
-def _spectra(n: int, seed: int) -> tuple[SpectralSet, np.ndarray]:
-    rng = np.random.default_rng(seed)
+def _spectra(n: int, rs: int) -> tuple[SpectralSet, np.ndarray]:
+    rng = np.random.default_rng(rs)
     C = rng.uniform(0.1, 1.0, (n, 3))
     X = C @ PURE + 0.001 * rng.standard_normal((n, AXIS.size))
     return SpectralSet(axis=AXIS, values=X, sample_ids=[f"row{i}" for i in range(n)]), C

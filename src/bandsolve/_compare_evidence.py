@@ -56,7 +56,7 @@ def paired_pvalues(errors_a: object, errors_b: object, n_permutations: int = 999
     n_permutations : int
         Random sign vectors (all 2ⁿ are enumerated when n ≤ 20).
     random_state : int
-        Seed of the sign vectors.
+        Random state of the sign vectors.
 
     Returns
     -------

@@ -119,7 +119,7 @@ def randomization_test(errors_a, errors_b, n_permutations: int = 999,
         ``"greater"``: H1 "a is worse than b", ``p = (1 + #{T* ≥ T})/(M + 1)``.
         ``"two-sided"``: H1 "they differ", ``p = (1 + #{|T*| ≥ |T|})/(M + 1)``.
     random_state : int or numpy Generator, default=0
-        Seed of the random sign vectors.
+        Random state of the random sign vectors.
 
     Returns
     -------
@@ -161,7 +161,7 @@ def select_components(result: CVResult, rule: str = "randomization", alpha: floa
     n_permutations : int, default=999
         Random sign vectors per test (exact enumeration when n ≤ 20).
     random_state : int, default=0
-        Seed of the sign vectors.
+        Random state of the sign vectors.
 
     Returns
     -------

@@ -257,7 +257,7 @@ def calibration_plan(
     validation_decimals : int, optional
         Round validation concentrations to this many decimals.
     random_state : int or None, default 0
-        Seed of the D-optimal starts and the validation draws.
+        Random state of the D-optimal starts and the validation draws.
     progress : callable, optional
         ``progress(done, total, label)`` during the D-optimal search.
 

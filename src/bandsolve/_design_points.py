@@ -200,7 +200,7 @@ def d_optimal_design(
     max_iter : int, default 500
         Largest number of exchanges per start.
     random_state : int, Generator or None, default 0
-        Seed of the random starts.
+        Random state of the random starts.
     progress : callable, optional
         ``progress(done, total, label)`` after each start (see :mod:`bandsolve.progress`).
 
@@ -272,7 +272,7 @@ def validation_set(
     calibration_points : array-like of shape (n_cal, m)
         Calibration concentrations, in the units of ``ranges``.
     random_state : int, Generator or None
-        Seed of the random draws.
+        Random state of the random draws.
     decimals : int, optional
         Round concentrations to this many decimals (as they would be written on a label).
 

@@ -125,7 +125,7 @@ def make_splitter(spec: str, groups=None, random_state: int = 0,
     groups : array-like of shape (n,), optional
         Group labels; required by ``"groups"`` specs.
     random_state : int, default=0
-        Seed of the shuffled splitters.
+        Random state of the shuffled splitters.
     n_samples : int, optional
         Number of samples, to check K against it now rather than at split time.
 

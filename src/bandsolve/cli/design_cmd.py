@@ -76,7 +76,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument("--min-pipette", default="0.1 mL",
                         help='smallest volume to pipette (default "0.1 mL")')
     parser.add_argument("--random-state", type=int, default=0, metavar="N",
-                        help="seed for D-optimal starts and validation mixtures (default 0)")
+                        help="random state of D-optimal starts and validation mixtures")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
     parser.add_argument("--out", type=Path, metavar="PLAN.csv",
                         help="write the plan here (and PLAN-prep.csv, PLAN-prep.html with "
