@@ -104,8 +104,9 @@ class GroupSplitter(BaseCrossValidator):
         """Number of folds."""
         return self._inner().get_n_splits(X, y, np.asarray(self.groups))
 
-    def _iter_test_indices(self, X=None, y=None, groups=None):  # pragma: no cover - unused
-        raise NotImplementedError
+    def _iter_test_indices(self, X=None, y=None, groups=None) -> Iterator[np.ndarray]:
+        for _, test in self.split(X, y, groups):
+            yield test
 
 
 _SPEC = re.compile(r"^(blocks|blinds|random|groups):(\d+)(?:x(\d+))?$|^(loo|groups)$")
