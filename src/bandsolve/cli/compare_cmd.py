@@ -11,6 +11,7 @@ from ..errors import BandsolveError
 from ..io import read_concentrations, read_spectra
 from ..preprocess import parse_window
 from ._common import add_input_options, read_options
+from .build_cmd import split_groups
 
 EXAMPLES = """\
 examples:
@@ -34,7 +35,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--test-concentrations", metavar="FILE",
                    help="reference concentrations of the test samples")
     p.add_argument("--cv", default="blinds:10",
-                   help="blocks:K | blinds:K | random:K | random:KxR | loo (default blinds:10)")
+                   help="blocks:K | blinds:K | random:K | random:KxR | loo | groups:COLUMN | "
+                        "groups:~REGEX (default blinds:10)")
     p.add_argument("--window", metavar="RANGES", help="axis ranges to use, e.g. 400-700")
     p.add_argument("--intercept", action="store_true", help="CLS background term")
     p.add_argument("--baseline", choices=["none", "offset", "linear", "quadratic"],
@@ -54,11 +56,15 @@ def run(args: argparse.Namespace) -> int:
         raise BandsolveError("give --test-spectra and --test-concentrations together")
     options = read_options(args)
     spectra = read_spectra(args.spectra, **options)
-    table = read_concentrations(args.concentrations)
+    table, groups = split_groups(read_concentrations(args.concentrations), args.cv)
+    if groups is not None:  # group labels in the order of the spectra
+        by_id = dict(zip(table.sample_ids, groups, strict=True))
+        groups = [by_id.get(s, s) for s in spectra.sample_ids]
     test_spectra = read_spectra(args.test_spectra, **options) if args.test_spectra else None
     test_table = read_concentrations(args.test_concentrations) if args.test_spectra else None
     result = compare_methods(
-        spectra, table, test_spectra, test_table, cv=args.cv,
+        spectra, table, test_spectra, test_table,
+        cv=args.cv if groups is None else "groups", groups=groups,
         window=parse_window(args.window) if args.window else None, intercept=args.intercept,
         baseline=args.baseline, max_components=args.max_components, select=args.select,
         alpha=args.alpha)
