@@ -100,3 +100,18 @@ def test_version_and_help(capsys):
         with pytest.raises(SystemExit):
             main([command, "--help"])
         assert "example" in capsys.readouterr().out
+
+
+def test_compare_with_groups_from_sample_ids(capsys):
+    # Groups from the sample id (first capture group): cal-0x, cal-1x, cal-2x are 3 folds.
+    import json
+    from pathlib import Path
+
+    demo = Path(__file__).resolve().parents[1] / "examples" / "rinse-water"
+    code = main(["compare", "--spectra", str(demo / "calibration_spectra.csv"),
+                 "--concentrations", str(demo / "calibration_concentrations.csv"),
+                 "--cv", r"groups:~cal-(\d)", "--json"])
+    out = json.loads(capsys.readouterr().out)
+    assert code == 0 and out["cv"] == "groups" and out["n_calibration"] == 25
+    assert {r["analyte"] for r in out["recommendations"]} == {
+        "dye A [mg/L]", "dye B [mg/L]", "dye C [mg/L]"}
