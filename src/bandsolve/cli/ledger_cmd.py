@@ -43,9 +43,11 @@ def run(args: argparse.Namespace) -> int:
             return 0
         if args.run is not None:
             inputs = list_inputs(args.ledger, args.run)
-            print(inputs.to_string(index=False) if len(inputs) else f"no run {args.run}")
+            print(inputs.fillna("-").to_string(index=False) if len(inputs)
+                  else f"no run {args.run}")
         keep = [c for c in ("run_id", "sample", "source", "flags") if c in results]
-        print(results[keep].to_string(index=False) if len(results) else "no matching results")
+        print(results[keep].fillna("-").to_string(index=False) if len(results)
+              else "no matching results")
         return 0
     runs = list_runs(args.ledger, since=args.since)
     if not len(runs):
@@ -54,5 +56,5 @@ def run(args: argparse.Namespace) -> int:
     runs = runs.assign(model_checksum=runs["model_checksum"].str[:12])
     cols = ["run_id", "started", "batch", "operator", "model_checksum", "n_inputs",
             "n_failed", "n_results"]
-    print(runs[cols].to_string(index=False))
+    print(runs[cols].fillna("-").to_string(index=False))
     return 0
