@@ -1,0 +1,196 @@
+"""The figures-of-merit table: one row per analyte, readable, tabular and JSON forms."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import asdict, dataclass
+from typing import TYPE_CHECKING
+
+import pandas as pd
+
+from bandsolve._stats import RegressionStatistics, UnivariateCalibration
+from bandsolve.errors import DataError, ModelFileError
+
+if TYPE_CHECKING:  # only for annotations: merit imports this module
+    from bandsolve.merit import SignalFigures
+
+__all__ = ["AnalyteFigures", "FiguresOfMerit", "figures_of_merit"]
+
+
+@dataclass(frozen=True)
+class AnalyteFigures:
+    """One analyte's row of :class:`FiguresOfMerit` (None where not available)."""
+
+    analyte: str
+    unit: str
+    sensitivity: float
+    selectivity: float | None
+    gamma: float
+    gamma_inv: float
+    lod: float
+    loq: float
+    h0: float
+    sigma_x: float
+    sigma_x_origin: str
+    rmsec: float | None = None
+    rmsecv: float | None = None
+    univariate_wavelength: float | None = None
+    univariate_lod: float | None = None
+    univariate_rmsec: float | None = None
+
+
+_HEADERS = {
+    "sensitivity": ("SEN", "{s} per {u}"),
+    "selectivity": ("SEL", "-"),
+    "gamma": ("γ", "per {u}"),
+    "gamma_inv": ("γ⁻¹", "{u}"),
+    "lod": ("LOD", "{u}"),
+    "loq": ("LOQ", "{u}"),
+    "h0": ("h0", "-"),
+    "sigma_x": ("σx", "{s}"),
+    "rmsec": ("RMSEC", "{u}"),
+    "rmsecv": ("RMSECV", "{u}"),
+    "univariate_wavelength": ("univ. λ", "nm"),
+    "univariate_lod": ("univ. LOD", "{u}"),
+    "univariate_rmsec": ("univ. RMSEC", "{u}"),
+}
+
+
+@dataclass(frozen=True)
+class FiguresOfMerit:
+    """Figures of merit of one calibration model, one row per analyte.
+
+    Attributes
+    ----------
+    method : str
+        ``"CLS"`` or ``"inverse"``.
+    signal_unit : str
+        Unit of the spectra (``"AU"``).
+    condition_number : float or None
+        Condition number of ``K_aug`` (CLS).
+    analytes : tuple of AnalyteFigures
+    """
+
+    method: str
+    signal_unit: str
+    condition_number: float | None
+    analytes: tuple[AnalyteFigures, ...]
+
+    def to_frame(self) -> pd.DataFrame:
+        """Return the per-analyte table, indexed by analyte name (field names as columns)."""
+        frame = pd.DataFrame([asdict(row) for row in self.analytes])
+        return frame.set_index("analyte")
+
+    def summary(self) -> str:
+        """Return a readable fixed-width table; units in the column headers."""
+        units = {row.unit for row in self.analytes}
+        u = units.pop() if len(units) == 1 else "unit"
+        present = [
+            name for name in _HEADERS
+            if any(getattr(row, name) is not None for row in self.analytes)
+        ]
+        heads = [f"{_HEADERS[n][0]} [{_HEADERS[n][1].format(s=self.signal_unit, u=u)}]"
+                 for n in present]
+        widths = [max(10, len(h)) for h in heads]
+        name_w = max(7, *(len(row.analyte) for row in self.analytes))
+        lines = [f"Figures of merit ({self.method} model)"]
+        if self.condition_number is not None:
+            lines.append(f"condition number of K: {self.condition_number:.4g}")
+        pairs = zip(heads, widths, strict=True)
+        lines.append(f"{'analyte':<{name_w}}" + "".join(f"  {h:>{w}}" for h, w in pairs))
+        for row in self.analytes:
+            cells = ["-" if (v := getattr(row, n)) is None else format(v, ".4g") for n in present]
+            text = "".join(f"  {c:>{w}}" for c, w in zip(cells, widths, strict=True))
+            lines.append(f"{row.analyte:<{name_w}}{text}")
+        origins = sorted({row.sigma_x_origin for row in self.analytes})
+        lines.append(f"σx from: {', '.join(origins)}")
+        return "\n".join(lines)
+
+    def to_dict(self) -> dict[str, object]:
+        """Return a JSON-serialisable dictionary (round-trips through :meth:`from_dict`)."""
+        return {
+            "method": self.method,
+            "signal_unit": self.signal_unit,
+            "condition_number": self.condition_number,
+            "analytes": [asdict(row) for row in self.analytes],
+        }
+
+    @classmethod
+    def from_dict(cls, data: dict[str, object]) -> FiguresOfMerit:
+        """Rebuild from :meth:`to_dict` output; raise ModelFileError if the entry is damaged."""
+        try:
+            rows = tuple(AnalyteFigures(**row) for row in data["analytes"])
+            cond = data["condition_number"]
+            return cls(
+                method=str(data["method"]),
+                signal_unit=str(data["signal_unit"]),
+                condition_number=None if cond is None else float(cond),
+                analytes=rows,
+            )
+        except (KeyError, TypeError, ValueError) as exc:
+            raise ModelFileError(
+                f"figures-of-merit entry is damaged ({exc!r}); recompute them from the model."
+            ) from exc
+
+
+def _optional(value: float | None) -> float | None:
+    return None if value is None or not math.isfinite(value) else float(value)
+
+
+def figures_of_merit(
+    signal: SignalFigures,
+    analytes: Sequence[str],
+    units: str | Sequence[str],
+    calibration: Sequence[RegressionStatistics] | None = None,
+    cross_validation: Sequence[RegressionStatistics] | None = None,
+    univariate: Sequence[UnivariateCalibration] | None = None,
+    signal_unit: str = "AU",
+) -> FiguresOfMerit:
+    """Assemble :class:`FiguresOfMerit` from the pieces computed by this module (no file I/O).
+
+    Parameters
+    ----------
+    signal : SignalFigures
+        From :func:`cls_figures` or :func:`inverse_figures`.
+    analytes : sequence of str, length m
+        Analyte names.
+    units : str or sequence of str
+        Concentration unit(s), e.g. ``"mg/L"``.
+    calibration, cross_validation : sequence of RegressionStatistics, optional
+        Per analyte; their ``rmse`` fills RMSEC and RMSECV.
+    univariate : sequence of UnivariateCalibration, optional
+        Single-wavelength baseline per analyte.
+    signal_unit : str
+        Unit of the spectra.
+    """
+    m = signal.sensitivity.size
+    unit_list = [units] * m if isinstance(units, str) else list(units)
+    extras = {"calibration": calibration, "cross_validation": cross_validation,
+              "univariate": univariate}
+    for label, seq in {"analytes": analytes, "units": unit_list, **extras}.items():
+        if seq is not None and len(seq) != m:
+            raise DataError(f"{label} has {len(seq)} entries but the model has {m} analytes.")
+    rows = []
+    for k in range(m):
+        uni = None if univariate is None else univariate[k]
+        rows.append(AnalyteFigures(
+            analyte=str(analytes[k]),
+            unit=str(unit_list[k]),
+            sensitivity=float(signal.sensitivity[k]),
+            selectivity=_optional(float(signal.selectivity[k])),
+            gamma=float(signal.analytical_sensitivity[k]),
+            gamma_inv=float(1.0 / signal.analytical_sensitivity[k]),
+            lod=float(signal.lod[k]),
+            loq=float(signal.loq[k]),
+            h0=float(signal.h0[k]),
+            sigma_x=float(signal.sigma_x),
+            sigma_x_origin=signal.sigma_x_origin,
+            rmsec=None if calibration is None else _optional(calibration[k].rmse),
+            rmsecv=None if cross_validation is None else _optional(cross_validation[k].rmse),
+            univariate_wavelength=None if uni is None else uni.wavelength,
+            univariate_lod=None if uni is None else uni.lod,
+            univariate_rmsec=None if uni is None else uni.rmsec,
+        ))
+    return FiguresOfMerit(signal.method, signal_unit, _optional(signal.condition_number),
+                          tuple(rows))
