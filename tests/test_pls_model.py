@@ -110,3 +110,28 @@ def test_pls_build_and_predict_from_cli(calibration, tmp_path, capsys):
                  str(tmp_path / "r.csv")]) == 0
     res = pd.read_csv(tmp_path / "r.csv")
     assert np.max(np.abs(res[LABELS].to_numpy() - C)) < 0.05
+
+
+@pytest.mark.parametrize(("n", "p", "method", "low", "high"), [
+    (40, 121, "box", 0.025, 0.08),
+    (200, 40, "box", 0.025, 0.08),
+    (200, 40, "jackson-mudholkar", 0.01, 0.06),
+])
+def test_q_limit_false_alarm_rate(n, p, method, low, high):
+    # At α = 0.05, new in-model samples should exceed the Q limit about 5 % of the time
+    # (Box 1954; Jackson & Mudholkar 1979). Pooled over 4 calibrations × 1500 samples.
+    from .conftest import gaussian_bands
+
+    axis = np.linspace(400.0, 700.0, p)
+    K = gaussian_bands(axis, (480, 530, 590), (40, 45, 40))
+    rates = []
+    for rs in range(4):
+        rng = np.random.default_rng(100 + rs)
+        C, A = _simulate(rng, K, n)
+        ids = [f"c{i}" for i in range(n)]
+        cal = build_pls(SpectralSet(axis, A, ids), ConcentrationTable(ids, LABELS, C),
+                        components=3, cv="blinds:8", q_limit=method, limit_alpha=0.05)
+        _, At = _simulate(rng, K, 1500)
+        res = cal.predict(SpectralSet(axis, At, [f"u{i}" for i in range(1500)]))
+        rates.append((res["residual_ratio"] > 1).mean())
+    assert low <= np.mean(rates) <= high, rates

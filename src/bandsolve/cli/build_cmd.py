@@ -70,6 +70,10 @@ def register(sub: argparse._SubParsersAction) -> None:
     mode.add_argument("--pls2", dest="mode", action="store_const", const="pls2",
                       help="one model for all analytes (default)")
     s.add_argument("--scale", action="store_true", help="autoscale wavelengths")
+    s.add_argument("--q-limit", choices=["box", "jackson-mudholkar"], default="box",
+                   help="Q residual limit: box (scaled chi-squared fitted to cross-validated "
+                        "Q, default) or jackson-mudholkar (needs more samples than "
+                        "wavelengths)")
     s.add_argument("--savgol-window", type=int, metavar="POINTS",
                    help="Savitzky–Golay window (odd number of points)")
     s.add_argument("--derivative", type=int, choices=[0, 1, 2], default=0)
@@ -145,7 +149,8 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
                      select=args.select, alpha=args.select_alpha, mode=args.mode,
                      scale=args.scale, window=window, savgol_window=args.savgol_window,
                      derivative=args.derivative, offset=args.offset, blank=blank,
-                     blanks=blanks, ceiling=args.ceiling, provenance=prov)
+                     blanks=blanks, q_limit=args.q_limit, ceiling=args.ceiling,
+                     provenance=prov)
 
 
 def selection_table(cal: Calibration) -> str:
