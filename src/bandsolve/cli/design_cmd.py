@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import json
 from pathlib import Path
 
 import numpy as np
@@ -136,7 +137,10 @@ def run(args: argparse.Namespace) -> int:
         print(plan.to_frame().to_string())
         return 0
     write_plan_csv(plan, args.out)
-    written = [args.out]
+    quality = args.out.with_name(f"{args.out.stem}-design.json")
+    with atomic_write(quality) as handle:  # the design and its quality, kept with the plan
+        json.dump(plan.to_dict(), handle, indent=1, default=float)
+    written = [args.out, quality]
     if sheet is not None:
         prep_csv = args.out.with_name(f"{args.out.stem}-prep.csv")
         prep_html = args.out.with_name(f"{args.out.stem}-prep.html")
