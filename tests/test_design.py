@@ -355,3 +355,17 @@ def test_cli_writes_plan_and_sheet(tmp_path, capsys):
     assert len(pd.read_csv(out)) == 28
     with pytest.raises(DataError, match="--volume"):
         _cli(["--analytes", "dye A=0-10 mg/L", "--stock", "dye A=1 g/L"])
+
+
+def test_design_command_stores_plan_quality(tmp_path):
+    # Columns of the 5-level cyclic design are uncorrelated (Brereton 1997): stored |r| ≈ 0.
+    import json
+
+    from bandsolve.cli import main
+
+    out = tmp_path / "plan.csv"
+    assert main(["design", "--analytes", "dye A=0-10 mg/L", "dye B=0-8 mg/L",
+                 "dye C=0-6 mg/L", "--out", str(out)]) == 0
+    stored = json.loads((tmp_path / "plan-design.json").read_text())
+    assert stored["quality"]["max_abs_r"] < 1e-12
+    assert len(stored["concentrations"]) == 25
