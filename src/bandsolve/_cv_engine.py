@@ -155,15 +155,15 @@ class WideEngine:
         """Results for held-out ``test`` of the model fitted to ``train`` (index arrays)."""
         n_train = train.size
         xv = self.x0[test]
-        xt = self.x0[train]
         x_mean = (self.sx - xv.sum(axis=0)) / n_train
         if self.scale:
-            xt = xt - x_mean
+            xt = self.x0[train] - x_mean
             sd = _fold_scale(np.einsum("ij,ij->j", xt, xt), n_train, True)
             xt /= sd
             x_val = (xv - x_mean) / sd
             gram_tt = xt @ xt.T
             gram_vt = x_val @ xt.T
+            x_rows, rows = xt, slice(None)
         else:
             x_val = xv - x_mean
             # Double-centre the stored Gram blocks with the training mean only.
@@ -174,13 +174,16 @@ class WideEngine:
             gram_vt -= gram_vt.mean(axis=1, keepdims=True)
             gram_tt -= k_mean[:, None]
             gram_tt -= k_mean - k_mean.mean()
+            # The training rows of the stored data, reached without copying them.
+            x_rows, rows = self.x0, train
         yt = self.y0[train]
         y_mean = yt.mean(axis=0)
         f = gram_pls(gram_tt, yt - y_mean, n_settings)
-        # Training scores sum to zero, so X_tcᵀT = X_tᵀT for any centring of the rows.
-        x_loadings = (xt.T @ f.scores) / f.tau
+        # Pᵀ = TᵀX_t/τ; training scores sum to zero, so any centring of the rows gives the same P.
+        coef = np.zeros((f.tau.size, x_rows.shape[0]))
+        coef[:, rows] = f.scores.T / f.tau[:, None]
         return _fold_output(x_val, self.y_offset + y_mean, gram_vt @ f.rotation_coords,
-                            x_loadings, f.y_loadings, f.tau, n_train, n_settings)
+                            (coef @ x_rows).T, f.y_loadings, f.tau, n_train, n_settings)
 
 
 @dataclass

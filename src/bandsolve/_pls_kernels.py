@@ -28,7 +28,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.linalg
 
 #: A component is not extracted when its score sum of squares falls below this fraction of the
 #: total X sum of squares, or when the remaining X-Y covariance falls below this fraction of the
@@ -169,6 +168,8 @@ def gram_pls(gram: np.ndarray, yc: np.ndarray, n_components: int) -> GramFactors
     weight_coords = np.zeros((n_components, n))
     rotation_coords = np.zeros((n_components, n))
     scores = np.zeros((n_components, n))
+    # scores / τ, so that Pᵀw = Tᵀ X_c w / τ is one product.
+    scaled_scores = np.zeros((n_components, n))
     y_loadings = np.zeros((n_components, m))
     tau = np.zeros(n_components)
     first_sv2 = None
@@ -180,19 +181,20 @@ def gram_pls(gram: np.ndarray, yc: np.ndarray, n_components: int) -> GramFactors
         if sv2 <= RANK_TOL**2 * first_sv2 or sv2 <= 0.0:
             break
         # w = X_cᵀg with ‖w‖ = 1; gram_g = X_c w.  ‖X_cᵀ y_def v‖² = vᵀ(y_defᵀ K y_def)v = sv2.
-        w_norm = np.sqrt(sv2)
-        g = (y_def @ v) / w_norm
-        gram_g = (gram_y @ v) / w_norm
-        # r = w − R Pᵀw in sample coordinates; Pᵀw = Tᵀ X_c w / τ.
-        proj = (scores[:a] @ gram_g) / tau[:a]
+        v /= np.sqrt(sv2)
+        g = y_def @ v
+        gram_g = gram_y @ v
+        # r = w − R Pᵀw in sample coordinates.
+        proj = scaled_scores[:a] @ gram_g
         t = gram_g - proj @ scores[:a]
         tau_a = float(t @ t)
         if tau_a <= RANK_TOL * total_ss:
             break
         q_a = (t @ y_def) / tau_a
-        y_def -= t[:, None] * q_a
+        y_def -= np.outer(t, q_a)
         weight_coords[a], rotation_coords[a] = g, g - proj @ rotation_coords[:a]
         scores[a], y_loadings[a], tau[a] = t, q_a, tau_a
+        scaled_scores[a] = t / tau_a
     else:
         a = n_components
     return GramFactors(weight_coords[:a].T, rotation_coords[:a].T, scores[:a].T,
@@ -200,7 +202,7 @@ def gram_pls(gram: np.ndarray, yc: np.ndarray, n_components: int) -> GramFactors
 
 
 def residual_ss_path(xs: np.ndarray, scores: np.ndarray, x_loadings: np.ndarray) -> np.ndarray:
-    """Sum of squared X residuals of each row after 1..A components, computed exactly.
+    """Sum of squared X residuals of each row after 1..A components.
 
     Parameters
     ----------
@@ -218,19 +220,23 @@ def residual_ss_path(xs: np.ndarray, scores: np.ndarray, x_loadings: np.ndarray)
 
     Notes
     -----
-    With the Householder QR ``P = U R`` (U orthonormal, R upper triangular, so the first a
-    columns of P are ``U R[:, :a]``) the residual splits into orthogonal parts,
-    ``‖x − Σ_{j≤a} p_j t_j‖² = ‖x − U Uᵀx‖² + ‖Uᵀx − Σ_{j≤a} R[:, j] t_j‖²``.
-    The first part is formed explicitly once per row (p-length), the second in A dimensions,
-    so no p-length residual is formed per component and no digits are lost to the
-    cancellation of the quadratic-form shortcut ``‖x‖² − 2tᵀPᵀx + tᵀPᵀPt``.
+    The residual after all A components, ``e = x − P t``, is formed explicitly once per row
+    (p-length).  With a components the residual is ``e + P s``, where ``s`` keeps the scores of
+    components a+1..A, so with ``M = PᵀP``
+    ``‖x − Σ_{j≤a} p_j t_j‖² = ‖e‖² + Σ_{j>a} t_j (2 p_jᵀe + M_jj t_j + 2 Σ_{k>j} M_jk t_k)``,
+    a sum over the dropped components of A-dimensional terms.  Every term is of the size of the
+    residuals themselves, so no digits are lost to the cancellation of the quadratic-form
+    shortcut ``‖x‖² − 2tᵀPᵀx + tᵀPᵀPt``.
     """
     n_comp = scores.shape[1]
     if n_comp == 0:
         return np.empty((0, xs.shape[0]))
-    basis, tri = scipy.linalg.qr(x_loadings, mode="economic", check_finite=False)
-    coords = xs @ basis
-    outside = xs - coords @ basis.T
-    fitted = np.cumsum(scores.T[:, :, None] * tri.T[:, None, :], axis=0)
-    inside = coords - fitted
-    return np.einsum("ij,ij->i", outside, outside) + np.einsum("anj,anj->an", inside, inside)
+    resid = xs - scores @ x_loadings.T
+    gram = x_loadings.T @ x_loadings
+    upper = np.triu(gram) + np.triu(gram, 1)
+    terms = scores * (2.0 * (resid @ x_loadings) + scores @ upper.T)
+    dropped = np.cumsum(terms[:, :0:-1], axis=1)[:, ::-1]  # column a-1: Σ over j > a
+    q_res = np.empty((n_comp, xs.shape[0]))
+    q_res[-1] = np.einsum("ij,ij->i", resid, resid)
+    q_res[:-1] = q_res[-1] + dropped.T
+    return q_res
