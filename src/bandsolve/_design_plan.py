@@ -223,7 +223,7 @@ def calibration_plan(
     wavelengths: ArrayLike | None = None,
     path_length_cm: float = 1.0,
     ceiling_au: float = DEFAULT_CEILING_AU,
-    validation_decimals: int | None = None,
+    validation_decimals: int | Sequence[int] | None = None,
     random_state: int | None = 0,
     progress: ProgressCallback | None = None,
 ) -> CalibrationPlan:
@@ -254,8 +254,9 @@ def calibration_plan(
     ceiling_au : float, default 2.0
         Photometric ceiling (AU). Accuracy is best for A of about 0.3-1 (METHODS §7), so a
         plan whose mixtures stay below about 1 AU is preferable.
-    validation_decimals : int, optional
-        Round validation concentrations to this many decimals.
+    validation_decimals : int or sequence of int, optional
+        Round validation concentrations to this many decimals, or one count per analyte
+        (:func:`bandsolve.design.range_decimals` gives 3 significant figures of each range).
     random_state : int or None, default 0
         Random state of the D-optimal starts and the validation draws.
     progress : callable, optional

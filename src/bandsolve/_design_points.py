@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import itertools
+import math
 import warnings
 from collections.abc import Callable, Sequence
 
@@ -19,6 +20,7 @@ __all__ = [
     "d_efficiency",
     "d_optimal_design",
     "level_values",
+    "range_decimals",
     "validation_set",
 ]
 
@@ -254,12 +256,36 @@ def d_optimal_design(
     return grid[best]
 
 
+def range_decimals(ranges: Sequence[AnalyteRange], figures: int = 3) -> list[int]:
+    """Decimals that give each range's width ``figures`` significant figures.
+
+    The last kept digit is that of the ``figures``-th significant figure of ``high − low``:
+    with 3 figures a 0-10 mg/L range is written in 0.1 mg/L steps (10.0) and a 0-5 mg/L range
+    in 0.01 mg/L steps (5.00), so every range holds at least 10^(figures−1) steps.
+
+    Parameters
+    ----------
+    ranges : sequence of AnalyteRange
+        One range per analyte.
+    figures : int, default 3
+        Significant figures of the range width; at least 1.
+
+    Returns
+    -------
+    list of int
+        Decimals per analyte (negative for wide ranges: −1 rounds to tens).
+    """
+    if figures < 1:
+        raise DataError(f"significant figures must be at least 1, not {figures}")
+    return [figures - 1 - math.floor(math.log10(r.high - r.low)) for r in ranges]
+
+
 def validation_set(
     ranges: Sequence[AnalyteRange],
     n: int,
     calibration_points: ArrayLike,
     random_state: int | np.random.Generator | None = None,
-    decimals: int | None = None,
+    decimals: int | Sequence[int] | None = None,
 ) -> NDArray[np.float64]:
     """Random validation mixtures inside the analyte ranges, none equal to a calibration point.
 
@@ -273,8 +299,9 @@ def validation_set(
         Calibration concentrations, in the units of ``ranges``.
     random_state : int, Generator or None
         Random state of the random draws.
-    decimals : int, optional
-        Round concentrations to this many decimals (as they would be written on a label).
+    decimals : int or sequence of int, optional
+        Round concentrations to this many decimals (as they would be written on a label); a
+        sequence gives one count per analyte (see :func:`range_decimals`).
 
     Returns
     -------
@@ -292,11 +319,13 @@ def validation_set(
     tol = 1e-9 * (high - low)
     taken = np.asarray(calibration_points, dtype=float).reshape(-1, len(ranges))
     rng = np.random.default_rng(random_state)
+    places = None if decimals is None else np.broadcast_to(decimals, low.shape)
     chosen: list[NDArray[np.float64]] = []
     for _ in range(1000 * n):
         point = rng.uniform(low, high)
-        if decimals is not None:
-            point = np.clip(np.round(point, decimals), low, high)
+        if places is not None:
+            rounded = [round(float(v), int(d)) for v, d in zip(point, places, strict=True)]
+            point = np.clip(rounded, low, high)
         if not np.any(np.all(np.abs(taken - point) <= tol, axis=1)):
             chosen.append(point)
             taken = np.vstack([taken, point])

@@ -8,13 +8,20 @@ Analyte ranges (``"dye A=0-10 mg/L"``), stock amounts (``"dye A=1000 mg/L"``) an
 from __future__ import annotations
 
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass
 
-from bandsolve.errors import DataError
+import numpy as np
+from numpy.typing import NDArray
+
+from bandsolve.concentrations import split_unit
+from bandsolve.errors import DataError, where
+from bandsolve.spectra import SpectralSet
 
 __all__ = [
     "AnalyteRange",
     "Amount",
+    "absorptivities_for",
     "concentration_factor",
     "parse_amount",
     "parse_analyte_range",
@@ -186,5 +193,55 @@ def concentration_factor(from_unit: str, to_unit: str, context: str = "") -> flo
     raise DataError(
         f"{context}cannot convert {from_unit!r} to {to_unit!r}; give both in the same kind of "
         f"unit: mass per volume ({', '.join(_MASS)}) or amount per volume ({', '.join(_MOLAR)}). "
-        "Converting between the two needs the molar mass: convert the stock yourself"
+        "Converting between the two needs the molar mass: convert the values yourself"
     )
+
+
+def absorptivities_for(analytes: Sequence[AnalyteRange],
+                       table: SpectralSet) -> NDArray[np.float64]:
+    """Rows of an absorptivity table in analyte order, per unit of each analyte's concentration.
+
+    Components are matched to analytes by name without the unit bracket, so the table of
+    :func:`bandsolve.io.read_absorptivities` (labels such as ``"dye A [mg/L]"``) serves the
+    ranges ``"dye A=0-10 mg/L"``. A label without a unit is taken to be in the analyte's unit.
+    When the units differ but are of the same kind (``[g/L]`` with ``mg/L``) the row is
+    converted: ``ε_analyte = ε_label · f``, with ``f`` the factor that turns a concentration in
+    the analyte's unit into the label's unit (Beer-Lambert, ``A = ε c b``).
+
+    Parameters
+    ----------
+    analytes : sequence of AnalyteRange
+        The m analytes of the plan.
+    table : SpectralSet of shape (k, p)
+        Absorptivities (AU per unit concentration per cm), one row per component; k >= m.
+
+    Returns
+    -------
+    ndarray of shape (m, p)
+        Absorptivity of each analyte in AU per (analyte unit × cm).
+
+    Raises
+    ------
+    DataError
+        If an analyte has no row or two rows, or its label's unit cannot be converted into the
+        analyte's unit (mg/L against mmol/L needs the molar mass).
+    """
+    parsed = [split_unit(label) for label in table.sample_ids]
+    names = [name for name, _ in parsed]
+    rows = []
+    for analyte in analytes:
+        hits = [i for i, name in enumerate(names) if name == analyte.name]
+        if len(hits) != 1:
+            problem = "no absorptivity row" if not hits else f"{len(hits)} absorptivity rows"
+            raise DataError(
+                f"{where(table.source)}{problem} for {analyte.name!r} (components: "
+                f"{list(table.sample_ids)}); the first column must name every analyte once, "
+                f"e.g. '{analyte.column}'"
+            )
+        label, unit = table.sample_ids[hits[0]], parsed[hits[0]][1]
+        factor = 1.0 if unit is None else concentration_factor(
+            analyte.unit, unit,
+            f"{where(table.source)}absorptivity row {label!r} for the analyte "
+            f"'{analyte.name}' in {analyte.unit}: ")
+        rows.append(table.values[hits[0]] * factor)
+    return np.array(rows, dtype=float).reshape(len(rows), table.values.shape[1])

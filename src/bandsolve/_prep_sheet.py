@@ -27,6 +27,7 @@ __all__ = [
 ]
 
 DEFAULT_MIN_PIPETTE_ML = 0.1  # smallest volume delivered with ~1 % accuracy; common practice
+VOLUME_FIGURES = 4  # written volumes: finer than pipettes deliver; common practice
 SAFETY_NOTE = "Check this plan before use. " + SHORT_CAUTION
 
 
@@ -83,11 +84,21 @@ class PreparationSheet:
     min_pipette_ml: float
     flags: tuple[PipetteFlag, ...]
 
-    def to_frame(self) -> pd.DataFrame:
-        """Targets, volumes and a ``notes`` column (pipetting advice) per mixture."""
+    def to_frame(self, significant_figures: int | None = None) -> pd.DataFrame:
+        """Targets, volumes and a ``notes`` column (pipetting advice) per mixture.
+
+        Parameters
+        ----------
+        significant_figures : int, optional
+            Round the volumes (not the targets) to this many significant figures, as they
+            would be read off a pipette; ``volumes_ml`` itself keeps the exact values.
+        """
         notes = {s: "; ".join(f.message for f in self.flags if f.sample == s)
                  for s in self.volumes_ml.index}
-        frame = pd.concat([self.concentrations, self.volumes_ml], axis=1)
+        volumes = self.volumes_ml
+        if significant_figures is not None:
+            volumes = volumes.map(lambda v: float(f"{v:.{significant_figures}g}"))
+        frame = pd.concat([self.concentrations, volumes], axis=1)
         frame["notes"] = pd.Series(notes)
         return frame
 
@@ -208,9 +219,16 @@ def write_plan_csv(plan: CalibrationPlan, path: str | os.PathLike[str]) -> None:
     _write_atomic(path, plan.concentrations.to_csv(float_format=_FLOAT))
 
 
-def write_preparation_csv(sheet: PreparationSheet, path: str | os.PathLike[str]) -> None:
-    """Write the preparation sheet (targets, volumes in mL, notes) as CSV."""
-    _write_atomic(path, sheet.to_frame().to_csv(float_format=_FLOAT))
+def write_preparation_csv(sheet: PreparationSheet, path: str | os.PathLike[str],
+                          significant_figures: int = VOLUME_FIGURES) -> None:
+    """Write the preparation sheet (targets, volumes in mL, notes) as CSV.
+
+    Volumes are written to ``significant_figures`` significant figures (default 4, e.g.
+    0.08783 mL, 49.56 mL): finer than any pipette or flask delivers, so the rows may differ
+    from the final volume in the last digit. ``sheet.volumes_ml`` keeps the exact values.
+    """
+    frame = sheet.to_frame(significant_figures)
+    _write_atomic(path, frame.to_csv(float_format=_FLOAT))
 
 
 _CSS = """

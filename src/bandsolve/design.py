@@ -35,17 +35,20 @@ from bandsolve._design_points import (
     d_efficiency,
     d_optimal_design,
     level_values,
+    range_decimals,
     validation_set,
 )
 from bandsolve._design_units import (
     Amount,
     AnalyteRange,
+    absorptivities_for,
     concentration_factor,
     parse_amount,
     parse_analyte_range,
     parse_volume,
 )
 from bandsolve._prep_sheet import (
+    VOLUME_FIGURES,
     PipetteFlag,
     PreparationSheet,
     preparation_html,
@@ -55,6 +58,7 @@ from bandsolve._prep_sheet import (
 )
 
 __all__ = [
+    "VOLUME_FIGURES",
     "AbsorbanceCheck",
     "Amount",
     "AnalyteRange",
@@ -62,6 +66,7 @@ __all__ = [
     "DesignQuality",
     "PipetteFlag",
     "PreparationSheet",
+    "absorptivities_for",
     "calibration_plan",
     "concentration_factor",
     "cyclic_design",
@@ -73,6 +78,7 @@ __all__ = [
     "parse_volume",
     "preparation_html",
     "preparation_sheet",
+    "range_decimals",
     "validation_set",
     "write_plan_csv",
     "write_preparation_csv",

@@ -6,22 +6,23 @@ import argparse
 import json
 from pathlib import Path
 
-import numpy as np
-import pandas as pd
-
 from bandsolve.cautions import SHORT_CAUTION
 from bandsolve.design import (
-    AnalyteRange,
+    VOLUME_FIGURES,
+    Amount,
+    absorptivities_for,
     calibration_plan,
     parse_amount,
     parse_analyte_range,
     parse_volume,
     preparation_html,
     preparation_sheet,
+    range_decimals,
     write_plan_csv,
     write_preparation_csv,
 )
-from bandsolve.errors import DataError, FormatError
+from bandsolve.errors import DataError
+from bandsolve.io import read_absorptivities
 from bandsolve.io.atomic import atomic_write
 from bandsolve.progress import progress_bar
 
@@ -34,8 +35,10 @@ Without --runs (or with --runs equal to 25 for 5 levels, 9 for 3 levels) a cycli
 multilevel design is used: every analyte takes each level equally often and the
 analyte concentrations are uncorrelated. Any other --runs gives a D-optimal design on
 the level grid. With --absorptivity the largest predicted absorbance of every mixture
-is checked against a 2.0 AU ceiling. With --stock and --volume a preparation sheet
-(stock and solvent volumes per mixture) is written as CSV and printable HTML."""
+is checked against a 2.0 AU ceiling. Validation mixtures are random and rounded (see
+--validation-figures). With --stock and --volume a preparation sheet (stock and solvent
+volumes per mixture) is written as CSV and printable HTML. All inputs are checked before
+anything is printed or written."""
 
 _EPILOG = """\
 worked example:
@@ -43,9 +46,10 @@ worked example:
       --validation 6 --stock "dye A=1000 mg/L" "dye B=500 mg/L" "dye C=0.8 g/L" \\
       --volume "50 mL" --out plan.csv
   writes plan.csv (25 calibration mixtures cal-01..cal-25 and 6 validation mixtures
-  val-01..val-06), plan-prep.csv and plan-prep.html (e.g. a mixture with 10 mg/L of
-  dye A needs 0.5 mL of its 1000 mg/L stock in a 50 mL flask), and prints the design
-  quality: largest |r| between analytes, level counts and D-efficiency."""
+  val-01..val-06, rounded to 0.1 mg/L for dye A), plan-design.json (plan and quality),
+  plan-prep.csv and plan-prep.html (e.g. a mixture with 10 mg/L of dye A needs 0.5 mL of
+  its 1000 mg/L stock in a 50 mL flask), and prints the design quality: largest |r|
+  between analytes, level counts and D-efficiency."""
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -66,9 +70,15 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                              "9 (3 levels) gives a D-optimal design")
     parser.add_argument("--validation", type=int, default=0, metavar="N",
                         help="number of random validation mixtures (default 0)")
+    parser.add_argument("--validation-figures", type=int, default=3, metavar="N",
+                        help="round validation concentrations so that each range width has N "
+                             "significant figures (default 3: 0-10 mg/L in 0.1 mg/L steps, "
+                             "0-5 mg/L in 0.01 mg/L steps)")
     parser.add_argument("--absorptivity", type=Path, metavar="FILE",
-                        help="CSV of pure spectra per unit concentration and cm: first column "
-                             "analyte name, header row wavelengths")
+                        help="absorptivity table as for 'bandsolve build --absorptivity' (AU "
+                             "per unit concentration and cm): first column the component, e.g. "
+                             "'dye A [mg/L]', header row wavelengths; a unit other than the "
+                             "analyte's (g/L for mg/L) is converted")
     parser.add_argument("--path-length", type=float, default=1.0, metavar="CM",
                         help="cell path length in cm (default 1)")
     parser.add_argument("--stock", nargs="+", metavar="STOCK",
@@ -80,61 +90,62 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                         help="random state of D-optimal starts and validation mixtures")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
     parser.add_argument("--out", type=Path, metavar="PLAN.csv",
-                        help="write the plan here (and PLAN-prep.csv, PLAN-prep.html with "
-                             "stocks)")
+                        help="write the plan here, with PLAN-design.json (plan and design "
+                             "quality) and, with stocks, PLAN-prep.csv (volumes to 4 "
+                             "significant figures) and PLAN-prep.html (to 0.001 mL); the "
+                             "folder must exist")
     parser.set_defaults(func=run)
 
 
-def _read_absorptivity(path: Path) -> tuple[list[str], np.ndarray, np.ndarray]:
-    """Read an absorptivity table: names (m,), wavelengths (p,), values (m, p)."""
-    try:
-        table = pd.read_csv(path, index_col=0)
-        axis = table.columns.astype(float).to_numpy()
-        values = table.to_numpy(dtype=float)
-    except (OSError, ValueError) as exc:
-        raise FormatError(
-            f"{path}: cannot read the absorptivity table ({exc}); expected a CSV with the "
-            "analyte name in the first column and wavelengths in the header row"
-        ) from None
-    return [str(name) for name in table.index], axis, values
+def _check_out(out: Path | None) -> None:
+    if out is not None and not out.parent.is_dir():
+        raise DataError(f"--out {out}: the folder {out.parent} does not exist; create it first "
+                        "or correct the path (bandsolve does not create folders)")
 
 
-def _absorptivity_in_order(path: Path, analytes: list[AnalyteRange]) -> tuple[np.ndarray,
-                                                                               np.ndarray]:
-    names, axis, values = _read_absorptivity(path)
-    missing = [a.name for a in analytes if a.name not in names]
-    if missing:
-        raise DataError(f"{path}: no absorptivity row for {missing}; the first column must "
-                        f"name every analyte (found {names})")
-    return values[[names.index(a.name) for a in analytes]], axis
+def _stocks(args: argparse.Namespace) -> tuple[dict[str, Amount], float, float] | None:
+    """Stocks, final volume and pipetting minimum (mL), read before any work is done."""
+    if not args.stock:
+        return None
+    if args.volume is None:
+        raise DataError('stocks were given without --volume; add the final volume of each '
+                        'mixture, e.g. --volume "50 mL"')
+    stocks = {s.name: s for s in map(parse_amount, args.stock)}
+    return stocks, parse_volume(args.volume), parse_volume(args.min_pipette)
 
 
 def run(args: argparse.Namespace) -> int:
-    """Run ``bandsolve design``; returns the exit code."""
+    """Run ``bandsolve design``; returns the exit code.
+
+    Every input is checked (and the plan and preparation sheet computed) before anything is
+    printed or written, so a bad command gives one error line and no files.
+    """
+    _check_out(args.out)
     analytes = [parse_analyte_range(text) for text in args.analytes]
+    stock_options = _stocks(args)
     absorptivity = wavelengths = None
     if args.absorptivity is not None:
-        absorptivity, wavelengths = _absorptivity_in_order(args.absorptivity, analytes)
+        table = read_absorptivities(args.absorptivity)
+        absorptivity, wavelengths = absorptivities_for(analytes, table), table.axis
     plan = calibration_plan(
         analytes, levels=args.levels, n_runs=args.runs, n_validation=args.validation,
         absorptivity=absorptivity, wavelengths=wavelengths, path_length_cm=args.path_length,
+        validation_decimals=range_decimals(analytes, args.validation_figures),
         random_state=args.random_state, progress=progress_bar(args.quiet),
     )
+    sheet = None if stock_options is None else preparation_sheet(plan, *stock_options)
     print(plan.summary())
     print(SHORT_CAUTION)
-    sheet = None
-    if args.stock:
-        if args.volume is None:
-            raise DataError('stocks were given without --volume; add the final volume of each '
-                            'mixture, e.g. --volume "50 mL"')
-        stocks = {s.name: s for s in map(parse_amount, args.stock)}
-        sheet = preparation_sheet(plan, stocks, parse_volume(args.volume),
-                                  parse_volume(args.min_pipette))
+    if sheet is not None:
         print()
         print(sheet.summary())
     if args.out is None:
+        frame = plan.to_frame()
+        if sheet is not None:
+            volumes = sheet.to_frame(VOLUME_FIGURES)[list(sheet.volumes_ml.columns)]
+            frame = frame.join(volumes)
         print()
-        print(plan.to_frame().to_string())
+        print(frame.to_string())
         return 0
     write_plan_csv(plan, args.out)
     quality = args.out.with_name(f"{args.out.stem}-design.json")
