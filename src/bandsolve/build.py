@@ -4,15 +4,17 @@ from __future__ import annotations
 
 import dataclasses
 import platform
+import warnings
 from datetime import datetime, timezone
 from typing import Any
 
 import numpy as np
 
 from . import __version__
+from ._stats import noise_from_blanks
 from .cls import CLSRegressor
 from .concentrations import ConcentrationTable, align
-from .errors import BandsolveError, DataError, ModelError, where
+from .errors import BandsolveError, BandsolveWarning, DataError, ModelError, where
 from .model import Calibration
 from .preprocess import SpectralPreprocessor
 from .spectra import DEFAULT_CEILING_AU, SpectralSet
@@ -52,14 +54,38 @@ def training_arrays(spectra: SpectralSet, table: ConcentrationTable,
     spectra = spectra.to_absorbance()
     spectra.check_quantity()
     if blank is not None:
-        blank = blank.to_absorbance()
-        if blank.axis_unit != spectra.axis_unit:
-            blank = blank.convert_axis(spectra.axis_unit)
-        if not blank.same_grid(spectra.axis):
-            blank = blank.resample(spectra.axis)
-        spectra = spectra.subtract_blank(blank)
+        spectra = spectra.subtract_blank(_on_grid(blank, spectra))
     spectra, table = align(spectra, table)
     return spectra, np.asarray(table.values)
+
+
+#: Calibration residuals this many times the blank noise mean the model misses something.
+RESIDUAL_NOISE_FACTOR = 3.0
+
+
+def _check_residual_noise(est: CLSRegressor, blank_sd: float, source: str | None) -> None:
+    """Warn when CLS calibration residuals are far above the noise of replicate blanks.
+
+    CLS needs every absorber in the model; when one is missing (or a baseline effect), the
+    calibration residuals carry its spectrum and are much larger than instrument noise, yet
+    the residual limit, set from those same residuals, cannot see it.
+    """
+    residual_sd = float(np.sqrt(est.s2_cal_))
+    if np.isfinite(residual_sd) and residual_sd > RESIDUAL_NOISE_FACTOR * blank_sd:
+        warnings.warn(
+            f"{where(source)}CLS calibration residuals ({residual_sd:.3g} AU) are "
+            f"{residual_sd / blank_sd:.0f}× the noise of the replicate blanks "
+            f"({blank_sd:.3g} AU): an absorber or a baseline effect is missing from the "
+            "model; add it, try --baseline offset|linear, or compare with PLS "
+            "(bandsolve compare)", BandsolveWarning, stacklevel=3)
+
+
+def _on_grid(spectra: SpectralSet, like: SpectralSet) -> SpectralSet:
+    """``spectra`` as absorbance on the axis and unit of ``like``."""
+    spectra = spectra.to_absorbance()
+    if spectra.axis_unit != like.axis_unit:
+        spectra = spectra.convert_axis(like.axis_unit)
+    return spectra if spectra.same_grid(like.axis) else spectra.resample(like.axis)
 
 
 def check_ceiling(spectra: SpectralSet, mask: np.ndarray, ceiling: float) -> None:
@@ -113,6 +139,9 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
     Z = pre.transform(spectra.values)
     est = CLSRegressor(fit_intercept=intercept, baseline=baseline, wavelengths=pre.axis_out_,
                        alpha=alpha).fit(Z, C)
+    if blanks is not None:
+        _check_residual_noise(est, float(noise_from_blanks(
+            pre.transform(_on_grid(blanks, spectra).values))), spectra.source)
     settings = {"intercept": intercept, "baseline": baseline, "window": window,
                 "alpha": alpha, "blank_subtracted": blank is not None}
     limits = {"residual": {"method": "Box scaled chi-squared fitted to leave-one-out "
@@ -175,7 +204,16 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
     pre = SpectralPreprocessor(axis=absorptivities.axis, window=window).fit(
         absorptivities.values)
     K = pre.transform(absorptivities.values) * path_length_cm
-    est = CLSRegressor.from_pure_spectra(K, baseline=baseline, wavelengths=pre.axis_out_)
+    noise = None
+    if blanks is None:
+        warnings.warn("no replicate blank spectra: the model has no residual limit, so an "
+                      "unmodelled absorber will not be flagged; give --blanks", BandsolveWarning,
+                      stacklevel=2)
+    else:
+        blank_z = pre.transform(_on_grid(blanks, absorptivities).values)
+        noise = float(noise_from_blanks(blank_z))
+    est = CLSRegressor.from_pure_spectra(K, baseline=baseline, wavelengths=pre.axis_out_,
+                                         noise_sd=noise)
     m = K.shape[0]
     low, high = concentration_range or (0.0, np.inf)
     cal = Calibration(
@@ -185,7 +223,10 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
         settings={"from_absorptivities": True, "baseline": baseline, "window": window,
                   "path_length_cm": path_length_cm},
         path_length_cm=path_length_cm, ceiling=ceiling,
-        limits={"residual": {"method": "none (no calibration residuals)", "value": None}},
+        limits={"residual": {
+            "method": "none (no calibration residuals, no blanks)" if noise is None else
+            "chi-squared with p-m-q degrees of freedom, noise from replicate blanks",
+            "value": None if noise is None else est.residual_limit_}},
         provenance=provenance_record(provenance, 0),
     )
     return cal if blanks is None else with_merit(cal, None, None, blanks)

@@ -11,7 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg
+from scipy import linalg, stats
 from sklearn.base import BaseEstimator, RegressorMixin
 from sklearn.utils.validation import check_is_fitted, validate_data
 
@@ -155,13 +155,18 @@ class CLSRegressor(RegressorMixin, BaseEstimator):
 
     @classmethod
     def from_pure_spectra(cls, pure_spectra, *, baseline: str = "none", wavelengths=None,
-                          alpha: float = 0.01) -> CLSRegressor:
+                          alpha: float = 0.01, noise_sd: float | None = None) -> CLSRegressor:
         """A fitted model from known pure spectra (absorptivity × path length), no standards.
 
         Parameters
         ----------
         pure_spectra : array_like, shape (m, p)
             Absorbance per unit concentration of each analyte in the measuring cell.
+        noise_sd : float, optional
+            Per-channel noise SD of the spectra (AU), e.g. from replicate blanks. With it the
+            residual ratio compares ``rᵀr/(p − m − q)`` with ``noise_sd²`` against the
+            ``χ²_{p−m−q}/(p−m−q)`` upper 1 − α point (white noise); without it no residual
+            limit exists and unmodelled absorbers cannot be flagged.
         """
         model = cls(fit_intercept=False, baseline=baseline, wavelengths=wavelengths, alpha=alpha)
         K = np.asarray(pure_spectra, dtype=float)
@@ -172,9 +177,13 @@ class CLSRegressor(RegressorMixin, BaseEstimator):
         model.gram_inv_ = None
         model.n_calibration_ = 0
         model._set_spectra(K)
-        model.s2_cal_ = float("nan")
         model.cv_f_ratios_ = np.array([])
+        model.s2_cal_ = float("nan")
         model.residual_limit_ = float("nan")
+        dof = K.shape[1] - model.augmented_spectra_.shape[0]
+        if noise_sd is not None and noise_sd > 0 and dof > 0:
+            model.s2_cal_ = float(noise_sd) ** 2
+            model.residual_limit_ = float(stats.chi2.ppf(1 - alpha, dof) / dof)
         return model
 
     def _design(self, Y: np.ndarray) -> np.ndarray:

@@ -27,8 +27,14 @@ FLAG_CODES: dict[str, str] = {
         "Leverage above its limit: the sample is far from the calibration centre and has a "
         "strong influence on its own prediction (extrapolation)."
     ),
-    "above_range": "The concentration is above the highest calibrated value for that analyte.",
-    "below_range": "The concentration is below the lowest calibrated value for that analyte.",
+    "above_range": (
+        "The concentration is above the highest calibrated value for that analyte by more "
+        "than 2 standard errors (extrapolation)."
+    ),
+    "below_range": (
+        "The concentration is below the lowest calibrated value (when that is above zero) by "
+        "more than 2 standard errors."
+    ),
     "negative": (
         "The concentration is significantly below zero (more than 2 standard errors), "
         "which no real sample can have: check the blank, baseline or model."

@@ -179,10 +179,17 @@ class Calibration:
         if spectra.axis_unit != self.axis_unit:
             notes.append(f"axis converted from {spectra.axis_unit} to {self.axis_unit}")
             spectra = spectra.convert_axis(self.axis_unit)
-        if not spectra.same_grid(self.axis):
-            spectra = spectra.resample(self.axis)
-            notes.append("resampled onto the model grid by linear interpolation")
-        return np.asarray(spectra.values), notes
+        if spectra.same_grid(self.axis):
+            return np.asarray(spectra.values), notes
+        notes.append("resampled onto the model grid by linear interpolation")
+        pre = self.preprocessor
+        if pre.savgol_window is not None or pre.mask_.all():
+            return np.asarray(spectra.resample(self.axis).values), notes
+        # Only the window is used (no filter needs the points around it): the spectra must
+        # cover the window, not the whole calibration grid. Points outside it are never read.
+        X = np.zeros((spectra.n_samples, self.axis.size))
+        X[:, pre.mask_] = spectra.resample(self.axis[pre.mask_]).values
+        return X, notes
 
     # ------------------------------------------------------------------ prediction
     def predict(self, spectra: SpectralSet) -> pd.DataFrame:
@@ -285,9 +292,10 @@ class Calibration:
             cols[name_lo], cols[name_hi] = c - t[k] * se, c + t[k] * se
             lo, hi = self.calibrated_range[k]
             finite = np.isfinite(se)
-            checks += [(c > hi, f"above_range:{label}"),
-                       ((c < lo) & (lo > 0), f"below_range:{label}"),
-                       (finite & (c < -2 * np.where(finite, se, 0.0)), f"negative:{label}")]
+            margin = 2.0 * np.where(finite, se, 0.0)  # significantly outside, not by noise
+            checks += [(c - margin > hi, f"above_range:{label}"),
+                       ((c + margin < lo) & (lo > 0), f"below_range:{label}"),
+                       (finite & (c < -margin), f"negative:{label}")]
             missing_se |= ~finite
         checks.append((missing_se, "no_se"))
         cols["residual_ratio"] = d.residual_ratio

@@ -31,8 +31,11 @@ def cls_detail(model: CLSRegressor, H: np.ndarray, ss: np.ndarray) -> Detail:
         n_cal = model.n_calibration_
         lev_ratio = d.leverage / (LEVERAGE_FACTOR * model.gram_inv_.shape[0] / n_cal)
     if np.isnan(model.residual_limit_):
-        notes.append("no residual limit: the calibration left too few residual degrees of "
-                     "freedom to set one")
+        notes.append(
+            "no residual limit, so an unmodelled absorber cannot be flagged: rebuild with "
+            "replicate blank spectra (--blanks)" if model.gram_inv_ is None else
+            "no residual limit: the calibration left too few residual degrees of freedom "
+            "to set one; measure more standards than analytes")
     return Detail(
         concentrations=d.concentrations,
         standard_errors=d.standard_errors,

@@ -80,12 +80,13 @@ def main(argv: Sequence[str] | None = None) -> int:
     except BandsolveError as exc:
         print(f"bandsolve: error: {exc}", file=sys.stderr)
         return EXIT_INPUT
-    except (FileNotFoundError, IsADirectoryError, PermissionError) as exc:
-        print(f"bandsolve: error: {exc.filename}: {exc.strerror}", file=sys.stderr)
-        return EXIT_INPUT
     except BrokenPipeError:  # the reader of our output closed it (e.g. `| head`): not an error
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return EXIT_OK
+    except OSError as exc:  # files and folders: missing, not writable, a file where a folder is
+        where = f"{exc.filename}: " if exc.filename else ""
+        print(f"bandsolve: error: {where}{exc.strerror or exc}", file=sys.stderr)
+        return EXIT_INPUT
     except KeyboardInterrupt:
         print("bandsolve: interrupted", file=sys.stderr)
         return 130

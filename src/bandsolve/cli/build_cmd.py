@@ -36,7 +36,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("build", help="build a CLS or PLS calibration model",
                        description="Build a calibration and save it as a model file.",
                        epilog=EXAMPLES, formatter_class=argparse.RawDescriptionHelpFormatter)
-    p.add_argument("--method", choices=["cls", "pls"], default="cls")
+    p.add_argument("--method", choices=["cls", "pls"], default="cls",
+                   help="cls (classical least squares, the default) or pls")
     p.add_argument("--spectra", metavar="FILE", help="calibration spectra (file or folder)")
     p.add_argument("--concentrations", metavar="FILE", help="known concentrations (CSV)")
     p.add_argument("--absorptivity", metavar="FILE",
@@ -80,6 +81,26 @@ def register(sub: argparse._SubParsersAction) -> None:
     s.add_argument("--offset", action="store_true", help="remove each spectrum's mean offset")
     add_input_options(p)
     p.set_defaults(func=run, mode="pls2")
+    p.set_defaults(option_defaults={a.dest: p.get_default(a.dest) for a in p._actions})
+
+
+#: Options that belong to one method only; giving them to the other is a mistake to report.
+PLS_ONLY = ("components", "max_components", "cv", "select", "select_alpha", "mode", "scale",
+            "savgol_window", "derivative", "offset", "q_limit")
+CLS_ONLY = ("intercept", "baseline", "alpha", "absorptivity")
+
+
+def check_options(args: argparse.Namespace) -> None:
+    """Refuse options that the chosen method would silently ignore."""
+    defaults = args.option_defaults
+    other = PLS_ONLY if args.method == "cls" else CLS_ONLY
+    given = [name for name in other if getattr(args, name) != defaults.get(name)]
+    if given:
+        flags = ", ".join("--" + name.replace("_", "-") for name in given)
+        method = "pls" if args.method == "cls" else "cls"
+        raise BandsolveError(f"{flags} {'applies' if len(given) == 1 else 'apply'} only to "
+                             f"--method {method}; remove {'it' if len(given) == 1 else 'them'} "
+                             f"or choose --method {method}")
 
 
 def _fingerprints(args: argparse.Namespace) -> dict:
@@ -121,6 +142,7 @@ def split_groups(
 
 def build_from_args(args: argparse.Namespace) -> Calibration:
     """The calibration the options describe (no file written)."""
+    check_options(args)
     window = parse_window(args.window) if args.window else None
     prov = _fingerprints(args)
     blanks = read_spectra(args.blanks, **read_options(args)) if args.blanks else None
