@@ -25,13 +25,28 @@ _SPOOL_BYTES = 8 << 20
 
 
 def format_for(out: str | None, fmt: str | None) -> str:
-    """Output format: as given, else from the ``out`` file ending, else CSV."""
+    """Output format: as given, else from the ``out`` file ending, else CSV for standard output.
+
+    Raises
+    ------
+    FormatError
+        ``fmt`` is not a known format, or ``out`` has an ending that names none (``.xlsx``,
+        no ending) and no ``fmt`` was given: the results are never written in a format the
+        file name does not promise.
+    """
     if fmt:
         if fmt not in FORMATS:
             raise FormatError(f"unknown output format {fmt!r}; use one of {', '.join(FORMATS)}")
         return fmt
-    suffix = Path(out).suffix.lower().lstrip(".") if out not in (None, "-") else ""
-    return suffix if suffix in FORMATS else "csv"
+    if out in (None, "-"):
+        return "csv"
+    suffix = Path(out).suffix.lower().lstrip(".")
+    if suffix in FORMATS:
+        return suffix
+    ending = f"ending .{suffix}" if suffix else "no ending"
+    raise FormatError(f"{out}: results can be written as {', '.join(FORMATS)}, and {ending} "
+                      "names none of them; end the file name in "
+                      f"{', '.join('.' + f for f in FORMATS)} or add --format")
 
 
 class _TextWriter:

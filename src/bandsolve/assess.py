@@ -10,6 +10,9 @@ squares with t intervals on ``n_p − 2`` df and the joint F-test of ``b = 1, a 
 
 from __future__ import annotations
 
+import os
+import warnings
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -18,13 +21,64 @@ import pandas as pd
 from scipy import stats
 
 from .concentrations import ConcentrationTable, align, split_unit
-from .errors import DataError
+from .errors import BandsolveWarning, DataError
 from .flags import split_flags
 from .merit import RegressionStatistics, regression_statistics
 from .model import Calibration
 from .spectra import SpectralSet
 
-__all__ = ["AnalyteAssessment", "Assessment", "assess"]
+__all__ = ["AnalyteAssessment", "Assessment", "SpectraFiles", "assess", "calibration_files",
+           "read_spectra_files"]
+
+#: Why figures computed on the calibration samples themselves prove little.
+NOT_INDEPENDENT = "RMSEP on them is not an independent validation"
+
+
+@dataclass(frozen=True)
+class SpectraFiles:
+    """Spectra read from several files, and the files they came from (in order)."""
+
+    spectra: SpectralSet
+    files: tuple[str, ...]
+
+
+def read_spectra_files(inputs: Sequence[str], read_options: dict[str, Any] | None = None,
+                       pattern: str | None = None) -> SpectraFiles:
+    """Read files and folders (searched as by ``bandsolve predict``) into one set.
+
+    Parameters
+    ----------
+    inputs : sequence of str
+        Spectra files (each may hold many spectra) and folders, searched recursively by
+        :func:`bandsolve.predict.expand_inputs`.
+    read_options : dict, optional
+        Keyword arguments of :func:`bandsolve.io.read_spectra`.
+    pattern : str, optional
+        Glob applied inside folders.
+
+    Returns
+    -------
+    SpectraFiles
+        The sets stacked in file order (:func:`bandsolve.spectra.concat`: one grid, unit,
+        quantity and path length), and the files read.
+    """
+    from .io import read_spectra
+    from .predict import expand_inputs
+    from .spectra import concat
+
+    files = expand_inputs(inputs, pattern)
+    sets = [read_spectra(f, **(read_options or {})) for f in files]
+    return SpectraFiles(sets[0] if len(sets) == 1 else concat(sets), tuple(files))
+
+
+def calibration_files(cal: Calibration, files: Sequence[str]) -> tuple[str, ...]:
+    """The ``files`` whose SHA-256 equals that of a file the model was built from."""
+    from .bundle import sha256_file
+
+    known = {f.get("sha256") for f in cal.provenance.get("training_files") or []
+             if isinstance(f, dict)}
+    known.discard(None)
+    return tuple(f for f in files if known and os.path.isfile(f) and sha256_file(f) in known)
 
 
 @dataclass(frozen=True)
@@ -71,6 +125,9 @@ class Assessment:
         ``<label> error``, ``<label> SE``; then ``flags``.
     alpha : float
         Level of the confidence intervals and tests.
+    calibration_files : tuple of str
+        Given test files whose SHA-256 equals that of a file the model was built from (its
+        ``provenance["training_files"]``); empty for an independent test set.
     """
 
     method: str
@@ -80,6 +137,20 @@ class Assessment:
     flag_counts: dict[str, int]
     samples: pd.DataFrame
     alpha: float
+    calibration_files: tuple[str, ...] = ()
+
+    @property
+    def independent(self) -> bool:
+        """False when any test file is one of the model's calibration files."""
+        return not self.calibration_files
+
+    @property
+    def note(self) -> str:
+        """Why the figures are not an independent validation ('' when they are)."""
+        if self.independent:
+            return ""
+        return (f"{', '.join(self.calibration_files)}: these are the model's calibration "
+                f"data: {NOT_INDEPENDENT}")
 
     @property
     def fraction_flagged(self) -> float:
@@ -105,8 +176,10 @@ class Assessment:
     def summary(self) -> str:
         """A readable table with the conventions stated."""
         pct = round((1 - self.alpha) * 100)
-        lines = [f"Assessment on an independent test set ({self.method.upper()} model, "
-                 f"{self.n_samples} spectra)"]
+        kind = "an independent test set" if self.independent else "the calibration data"
+        lines = [f"Assessment on {kind} ({self.method.upper()} model, {self.n_samples} spectra)"]
+        if not self.independent:
+            lines.append(f"note: {self.note}")
         for a in self.analytes:
             s = a.statistics
             u = a.unit
@@ -139,6 +212,9 @@ class Assessment:
             "fraction_flagged": self.fraction_flagged,
             "flag_counts": dict(self.flag_counts),
             "alpha": self.alpha,
+            "independent": self.independent,
+            "calibration_files": list(self.calibration_files),
+            "note": self.note,
             "analytes": [{"analyte": a.analyte, "unit": a.unit,
                           "statistics": a.statistics.to_dict(), "rmsecv": a.rmsecv,
                           "rmsep_ratio": a.rmsep_ratio, "consistency_p": a.consistency_p}
@@ -171,7 +247,7 @@ def _reference(cal: Calibration, spectra: SpectralSet,
 
 
 def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
-           alpha: float = 0.05) -> Assessment:
+           alpha: float = 0.05, files: Sequence[str] = ()) -> Assessment:
     """Predict an independent test set and compare with its reference concentrations.
 
     Parameters
@@ -185,6 +261,10 @@ def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
         analyte with the same label (unit included).
     alpha : float
         Level of the confidence intervals and tests.
+    files : sequence of str
+        The files ``spectra`` and ``table`` were read from. When one of them is a calibration
+        file of the model (same SHA-256 as in ``cal.provenance["training_files"]``), a
+        :class:`BandsolveWarning` is issued and the assessment is marked not independent.
 
     Returns
     -------
@@ -221,5 +301,8 @@ def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
         for code in split_flags(text):
             counts[code] = counts.get(code, 0) + 1
     n_flagged = sum(1 for text in samples["flags"] if split_flags(text))
-    return Assessment(cal.method, tuple(results), n, n_flagged, counts,
-                      pd.DataFrame(samples), float(alpha))
+    result = Assessment(cal.method, tuple(results), n, n_flagged, counts,
+                        pd.DataFrame(samples), float(alpha), calibration_files(cal, files))
+    if not result.independent:
+        warnings.warn(result.note, BandsolveWarning, stacklevel=2)
+    return result

@@ -40,7 +40,7 @@ from . import __version__
 from .errors import DataError
 from .model import Calibration
 
-__all__ = ["LedgerRecorder", "list_runs", "list_inputs", "list_results"]
+__all__ = ["LedgerRecorder", "check_ledger", "list_runs", "list_inputs", "list_results"]
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS runs (
@@ -105,6 +105,7 @@ class LedgerRecorder:
         from .bundle import model_checksum
 
         self.path = Path(path)
+        check_ledger(self.path, new_ok=True)
         self.started = _now()
         self.model_path, self.batch, self.operator = model_path, batch, operator
         self.checksum = model.provenance.get("model_checksum") or model_checksum(model)
@@ -167,7 +168,7 @@ class LedgerRecorder:
         for attempt in range(_RETRIES):
             try:
                 return self._append(run, input_rows)
-            except sqlite3.OperationalError as exc:
+            except sqlite3.DatabaseError as exc:
                 if "locked" not in str(exc) and "busy" not in str(exc):
                     raise DataError(f"{self.path}: cannot write the results ledger "
                                     f"({exc})") from None
@@ -213,20 +214,79 @@ class LedgerRecorder:
 
 
 # ---------------------------------------------------------------------- reading
+def _not_a_ledger(path: str | os.PathLike[str], fix: str) -> DataError:
+    return DataError(f"{path} is not a bandsolve results ledger (SQLite); {fix}")
+
+
+def _tables(con: sqlite3.Connection, path: str | os.PathLike[str], fix: str) -> set[str]:
+    try:
+        rows = con.execute("SELECT name FROM sqlite_master WHERE type='table'").fetchall()
+    except sqlite3.OperationalError as exc:  # locked, unreadable: a ledger we cannot read now
+        raise DataError(f"{path}: cannot read the results ledger ({exc})") from None
+    except sqlite3.DatabaseError:  # "file is not a database": some other file
+        raise _not_a_ledger(path, fix) from None
+    return {r[0] for r in rows}
+
+
+def _open_ro(path: str | os.PathLike[str]) -> sqlite3.Connection:
+    return sqlite3.connect(f"file:{quote(str(Path(path).resolve()))}?mode=ro", uri=True,
+                           timeout=_BUSY_SECONDS)
+
+
+def check_ledger(path: str | os.PathLike[str], *, new_ok: bool = False) -> None:
+    """Refuse, before any work is done, a file that is not a results ledger.
+
+    Parameters
+    ----------
+    path : path-like
+        The ledger file.
+    new_ok : bool
+        Accept a path that does not exist yet, or an empty file (a ledger to be created).
+
+    Raises
+    ------
+    DataError
+        ``path`` is a folder, some other file (a CSV, a foreign SQLite database), or absent
+        (when ``new_ok`` is false).
+    """
+    fix = ("give a new file name or an existing ledger" if new_ok
+           else "give a ledger written by bandsolve predict --ledger")
+    p = Path(path)
+    if p.is_dir():
+        raise DataError(f"{path} is a folder, not a results ledger; {fix}")
+    if not p.exists():
+        if new_ok:
+            return
+        raise DataError(f"{path}: no such ledger; it is created by bandsolve predict --ledger")
+    if new_ok and p.stat().st_size == 0:
+        return
+    con = _open_ro(p)
+    try:
+        tables = _tables(con, path, fix)
+    finally:
+        con.close()
+    if not set(_TABLES) <= tables and (tables or not new_ok):
+        raise _not_a_ledger(path, fix)
+
+
 @contextlib.contextmanager
 def _connect_ro(path: str | os.PathLike[str]) -> Iterator[sqlite3.Connection]:
-    if not Path(path).is_file():
-        raise DataError(f"{path}: no such ledger; it is created by bandsolve predict --ledger")
-    con = sqlite3.connect(f"file:{quote(str(Path(path).resolve()))}?mode=ro", uri=True,
-                          timeout=_BUSY_SECONDS)
-    tables = {r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type='table'")}
+    check_ledger(path)
+    con = _open_ro(path)
     try:
-        if not set(_TABLES) <= tables:
-            raise DataError(f"{path}: not a bandsolve results ledger (tables "
-                            f"{sorted(tables)})")
         yield con
     finally:
         con.close()
+
+
+def _require_run(con: sqlite3.Connection, path: str | os.PathLike[str], run: int) -> None:
+    """DataError naming the recorded run ids when ``run`` is not one of them."""
+    low, high, n = con.execute("SELECT MIN(run_id), MAX(run_id), COUNT(*) FROM runs").fetchone()
+    if not con.execute("SELECT 1 FROM runs WHERE run_id = ?", (run,)).fetchone():
+        held = (f"it holds runs {low} to {high}" if n > 1 else f"it holds run {low}" if n
+                else "it holds no runs yet")
+        raise DataError(f"{path}: no run {run} in this ledger; {held} (list them with "
+                        f"bandsolve ledger {path})")
 
 
 def _since(value: str | None) -> str | None:
@@ -251,8 +311,9 @@ def list_runs(path: str | os.PathLike[str], *, since: str | None = None) -> pd.D
 
 
 def list_inputs(path: str | os.PathLike[str], run: int) -> pd.DataFrame:
-    """Inputs of one run with their SHA-256, status and failure reason."""
+    """Inputs of one run with their SHA-256, status and failure reason (DataError: no such run)."""
     with _connect_ro(path) as con:
+        _require_run(con, path, run)
         return pd.read_sql_query("SELECT * FROM inputs WHERE run_id = ? ORDER BY position",
                                  con, params=(run,))
 
@@ -264,7 +325,7 @@ def list_results(path: str | os.PathLike[str], *, run: int | None = None,
     Parameters
     ----------
     run : int, optional
-        Only this run.
+        Only this run (a DataError when the ledger holds no such run).
     since : str, optional
         Only runs started at or after this ISO date/time (UTC when no zone is given).
     sample : str, optional
@@ -283,6 +344,8 @@ def list_results(path: str | os.PathLike[str], *, run: int | None = None,
         "WHERE (? IS NULL OR r.run_id = ?) AND u.started >= COALESCE(?, '') "
         "AND (? IS NULL OR r.sample GLOB ?) ORDER BY r.run_id, r.row")
     with _connect_ro(path) as con:
+        if run is not None:
+            _require_run(con, path, run)
         rows = con.execute(query, (run, run, _since(since), sample, sample)).fetchall()
     head = ["run_id", "started", "batch", "operator", "model_checksum", "input", "input_sha256"]
     records = [dict(zip(head, r[:-1], strict=True)) | json.loads(r[-1]) for r in rows]

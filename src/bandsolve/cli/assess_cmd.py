@@ -5,10 +5,10 @@ from __future__ import annotations
 import argparse
 import json
 
-from ..assess import assess
+from ..assess import assess, read_spectra_files
 from ..bundle import load_model
 from ..cautions import SHORT_CAUTION
-from ..io import read_concentrations, read_spectra
+from ..io import read_concentrations
 from ._common import add_input_options, read_options, write_table
 
 EXAMPLES = """\
@@ -17,6 +17,11 @@ examples:
       --concentrations test_conc.csv
   bandsolve assess models/rinse-cls.bsm --spectra test/ --concentrations test_conc.csv \\
       --samples per-sample.csv --json > assessment.json
+  bandsolve assess models/rinse-pls.bsm --spectra day1.csv day2.csv --concentrations ref.csv
+
+--spectra takes files (each may hold many spectra) and folders, searched like predict's
+inputs; all are stacked into one test set. When a given file is one the model was built
+from, a warning says so: RMSEP on calibration data is not an independent validation.
 """
 
 
@@ -27,8 +32,10 @@ def register(sub: argparse._SubParsersAction) -> None:
                                    "intercept test and the share of flagged results.",
                        epilog=EXAMPLES, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("model", metavar="MODEL", help="model file written by bandsolve build")
-    p.add_argument("--spectra", metavar="FILE", required=True,
-                   help="test spectra (file or folder), not used to build the model")
+    p.add_argument("--spectra", metavar="FILE", required=True, nargs="+", action="extend",
+                   help="test spectra: files and folders (searched recursively), not used to "
+                        "build the model")
+    p.add_argument("--glob", metavar="PATTERN", help="file pattern inside folders")
     p.add_argument("--concentrations", metavar="FILE", required=True,
                    help="reference concentrations of the test samples (CSV)")
     p.add_argument("--samples", metavar="FILE",
@@ -42,9 +49,10 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     model = load_model(args.model)
-    spectra = read_spectra(args.spectra, **read_options(args))
+    test = read_spectra_files(args.spectra, read_options(args), pattern=args.glob)
     table = read_concentrations(args.concentrations)
-    result = assess(model, spectra, table, alpha=args.alpha)
+    result = assess(model, test.spectra, table, alpha=args.alpha,
+                    files=[*test.files, args.concentrations])
     if args.samples:
         write_table(result.samples, args.samples)
     if args.json:

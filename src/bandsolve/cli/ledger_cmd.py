@@ -33,6 +33,14 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(func=run)
 
 
+def _shown_columns(results) -> list[str]:
+    """run_id, sample, source, each analyte's concentration and SE, flags (as recorded)."""
+    analytes = [c for c in results.columns if f"{c} SE" in results.columns]
+    shown = ["run_id", "sample", "source", *(c for a in analytes for c in (a, f"{a} SE")),
+             "flags"]
+    return [c for c in shown if c in results.columns]
+
+
 def run(args: argparse.Namespace) -> int:
     if args.export or args.run is not None or args.sample:
         results = list_results(args.ledger, run=args.run, since=args.since, sample=args.sample)
@@ -42,12 +50,9 @@ def run(args: argparse.Namespace) -> int:
             eprint(f"{len(results)} result rows written to {args.export}")
             return 0
         if args.run is not None:
-            inputs = list_inputs(args.ledger, args.run)
-            print(inputs.fillna("-").to_string(index=False) if len(inputs)
-                  else f"no run {args.run}")
-        keep = [c for c in ("run_id", "sample", "source", "flags") if c in results]
-        print(results[keep].fillna("-").to_string(index=False) if len(results)
-              else "no matching results")
+            print(list_inputs(args.ledger, args.run).fillna("-").to_string(index=False))
+        print(results[_shown_columns(results)].fillna("-").to_string(index=False)
+              if len(results) else "no matching results")
         return 0
     runs = list_runs(args.ledger, since=args.since)
     if not len(runs):

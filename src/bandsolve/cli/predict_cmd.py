@@ -10,6 +10,7 @@ from .._output import FORMATS, format_for, open_writer
 from ..bundle import load_model
 from ..errors import FormatError
 from ..io.atomic import atomic_write
+from ..ledger import LedgerRecorder, check_ledger
 from ..predict import DEFAULT_CHUNK, result_table_columns, run_batch
 from ..progress import progress_bar
 from . import EXIT_FLAGGED, EXIT_PARTIAL
@@ -30,7 +31,8 @@ A .npy input is a spectral image (rows x columns x wavelengths, absorbance): --o
 folder that receives one concentration map per analyte and a flag map (see bandsolve.cube).
 
 exit codes: 0 all inputs predicted; 2 bad model or options; 3 some inputs could not be read
-(the rest were predicted); 4 with --fail-on-flags, some result carries a flag.
+(the rest were predicted; when none was, no results file is written); 4 with
+--fail-on-flags, some result carries a flag.
 """
 
 
@@ -74,11 +76,19 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(func=run_command)
 
 
+class _NothingPredicted(Exception):
+    """Abandons the results file (atomic_write removes it) when no spectrum was predicted."""
+
+
 def _summary_line(summary, out: str | None) -> str:
     n_ok = len(summary.inputs) - len(summary.failures)
+    if summary.n_predicted:
+        where = f"; results in {out}" if out not in (None, "-") else ""
+    else:
+        where = f"; nothing predicted, so {out} was not written" if out not in (None, "-") else ""
     return (f"{summary.n_predicted} spectra predicted from {n_ok} of {len(summary.inputs)} "
             f"inputs; {summary.n_flagged} flagged; {len(summary.failures)} could not be read"
-            + (f"; results in {out}" if out not in (None, "-") else ""))
+            + where)
 
 
 def _run_cubes(model, args: argparse.Namespace) -> int:
@@ -105,7 +115,26 @@ def run_command(args: argparse.Namespace) -> int:
     to_stdout = args.out in (None, "-")
     if fmt == "parquet" and to_stdout:
         raise FormatError("Parquet results need a file: add --out FILE.parquet")
+    if args.ledger:
+        check_ledger(args.ledger, new_ok=True)  # before any work: a bad ledger loses nothing
     stdin_text = sys.stdin.read() if "-" in args.inputs else None
+    try:
+        summary = _predict(model, args, fmt, stdin_text)
+    except _NothingPredicted as stop:
+        summary = stop.args[0]
+    for failure in summary.failures:
+        eprint(f"bandsolve: skipped {failure.input}: {failure.reason}")
+    eprint(_summary_line(summary, args.out))
+    if summary.failures or not summary.n_predicted:
+        return EXIT_PARTIAL
+    if args.fail_on_flags and summary.n_flagged:
+        return EXIT_FLAGGED
+    return 0
+
+
+def _predict(model, args: argparse.Namespace, fmt: str, stdin_text: str | None):
+    """Run the batch into the results file (or standard output) and the ledger."""
+    to_stdout = args.out in (None, "-")
     with contextlib.ExitStack() as stack:
         if to_stdout:
             handle = sys.stdout
@@ -117,8 +146,6 @@ def run_command(args: argparse.Namespace) -> int:
         sinks = [writer]
         recorder = None
         if args.ledger:
-            from ..ledger import LedgerRecorder
-
             recorder = LedgerRecorder(args.ledger, model, model_path=args.model,
                                       batch=args.batch, operator=args.operator,
                                       stdin_text=stdin_text)
@@ -132,11 +159,6 @@ def run_command(args: argparse.Namespace) -> int:
         if recorder is not None:
             run_id = recorder.finish(summary.inputs, summary.failures)
             eprint(f"recorded as run {run_id} in {args.ledger}")
-    for failure in summary.failures:
-        eprint(f"bandsolve: skipped {failure.input}: {failure.reason}")
-    eprint(_summary_line(summary, args.out))
-    if summary.failures:
-        return EXIT_PARTIAL
-    if args.fail_on_flags and summary.n_flagged:
-        return EXIT_FLAGGED
-    return 0
+        if not summary.n_predicted and not to_stdout:
+            raise _NothingPredicted(summary)
+    return summary
