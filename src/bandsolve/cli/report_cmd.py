@@ -13,6 +13,7 @@ from ..io import read_concentrations, read_spectra
 from ..predict import predict_inputs
 from ..progress import progress_bar
 from ..report import write_report
+from . import EXIT_OK, EXIT_PARTIAL
 from ._common import add_input_options, eprint, read_options
 
 EXAMPLES = """\
@@ -31,7 +32,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("report", help="write a self-contained HTML report of a model",
                        description="Write one HTML file (figures inline, no network requests, "
                                    "printable) describing a model, its figures of merit, its "
-                                   "validation and optionally a prediction batch.",
+                                   "validation and optionally a prediction batch. Batch "
+                                   "inputs that cannot be read are skipped, listed in the "
+                                   "report and on stderr, and the exit code is 3.",
                        epilog=EXAMPLES, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("model", metavar="MODEL", help="model file written by bandsolve build")
     p.add_argument("--out", metavar="REPORT.html", required=True, help="report file to write")
@@ -88,7 +91,7 @@ def run(args: argparse.Namespace) -> int:
     if args.batch:
         batch = predict_inputs(cal, args.batch, read_options=read_options(args))
         for failure in batch.failures:
-            eprint(f"bandsolve: warning: {failure.input}: {failure.reason}")
+            eprint(f"bandsolve: skipped {failure.input}: {failure.reason}")
     bar = progress_bar(args.quiet)
     path = write_report(cal, args.out, calibration_spectra=cal_spectra,
                         calibration_table=cal_table, assessment=assessment,
@@ -96,4 +99,5 @@ def run(args: argparse.Namespace) -> int:
                         validation_table=val_table, blanks=blanks, title=args.title,
                         progress=bar)
     eprint(f"Report written to {path}")
-    return 0
+    # As for predict: exit 3 when some batch inputs could not be read (listed in the report).
+    return EXIT_PARTIAL if batch is not None and batch.failures else EXIT_OK

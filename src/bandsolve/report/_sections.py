@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import base64
 import io
+import re
 from html import escape
 from typing import Any
 
@@ -36,8 +37,10 @@ table { border-collapse:collapse; margin:.6rem 0; font-size:.85rem; }
 th, td { border:1px solid var(--rule); padding:.25rem .5rem; text-align:left;
          font-variant-numeric:tabular-nums; }
 th { background:#eef3f8; }
-pre { background:#f6f6f6; border:1px solid var(--rule); padding:.6rem; overflow-x:auto;
-      font-size:.8rem; }
+pre { background:#f6f6f6; border:1px solid var(--rule); padding:.6rem; font-size:.8rem;
+      white-space:pre-wrap; overflow-wrap:anywhere; }
+pre.summary { margin-bottom:0; } table.summary { margin-top:0; }
+td code, li code { overflow-wrap:anywhere; } ul.skipped { font-weight:400; }
 figure { margin:1rem 0; } figure img { max-width:100%; height:auto; border:1px solid #eee; }
 figcaption { font-size:.85rem; color:var(--muted); }
 .banner { border:2px solid var(--warn); background:#fff4ec; padding:.6rem .9rem;
@@ -51,6 +54,8 @@ dd { margin:0 0 .5rem 1.5rem; }
   section { break-before:page; }
   section:first-of-type, section.banner-section { break-before:auto; }
   figure, table, pre { break-inside:avoid; }
+  pre { white-space:pre-wrap; overflow-wrap:anywhere; font-size:8pt; }
+  table { font-size:7.5pt; } th, td { padding:.15rem .3rem; }
   h2, h3 { break-after:avoid; }
   a { color:inherit; text-decoration:none; }
 }
@@ -71,7 +76,9 @@ def figure_html(item: ReportFigure) -> str:
 
 
 def _fmt(value: Any) -> str:
-    if value is None or (isinstance(value, float) and not np.isfinite(value)):
+    if value is None or (pd.api.types.is_scalar(value) and pd.isna(value)):
+        return "–"
+    if isinstance(value, float | np.floating) and not np.isfinite(value):
         return "–"
     if isinstance(value, float | np.floating):
         return f"{value:.4g}"
@@ -85,13 +92,54 @@ def kv_table(rows: list[tuple[str, Any]]) -> str:
     return f'<table class="kv">{body}</table>'
 
 
-def frame_table(frame: pd.DataFrame, index: bool = False) -> str:
-    return frame.to_html(index=index, escape=True, border=0, na_rep="–",
-                         float_format=lambda v: f"{v:.4g}")
+def frame_table(frame: pd.DataFrame) -> str:
+    """The frame as an HTML table: missing values as "–", a named or labelled index as the
+    first column, a plain row count (0, 1, 2, …) left out."""
+    if not isinstance(frame.index, pd.RangeIndex) or frame.index.name is not None:
+        frame = frame.rename_axis(frame.index.name or "").reset_index()
+    cells = frame.rename_axis(columns=None).astype(object).map(_fmt)
+    return cells.to_html(index=False, escape=True, border=0)
 
 
-def pre(text: str) -> str:
-    return f"<pre>{escape(text)}</pre>"
+#: Cells of a fixed-width text table are separated by two or more spaces.
+_GAP = re.compile(r" {2,}")
+
+
+def summary_html(text: str) -> str:
+    """A fixed-width summary for print: aligned column blocks become tables, the rest wraps.
+
+    A block is a run of at least two unindented lines splitting into the same number (three
+    or more) of cells at gaps of two or more spaces; its first line is the header.
+    """
+    lines = text.splitlines()
+    cells = [_GAP.split(line.strip()) for line in lines]
+    parts, prose, i = [], [], 0
+    while i < len(lines):
+        j = i + 1
+        while (j < len(lines) and len(cells[i]) >= 3 and len(cells[j]) == len(cells[i])
+               and not lines[j].startswith(" ")):
+            j += 1
+        if j - i < 2 or lines[i].startswith(" "):
+            prose.append(lines[i])
+            i += 1
+            continue
+        if prose:
+            parts.append(pre("\n".join(prose), "summary"))
+            prose = []
+        head = "".join(f"<th>{escape(c)}</th>" for c in cells[i])
+        body = "".join("<tr>" + "".join(f"<td>{escape(c)}</td>" for c in row) + "</tr>"
+                       for row in cells[i + 1:j])
+        parts.append(f'<table class="summary"><thead><tr>{head}</tr></thead>'
+                     f"<tbody>{body}</tbody></table>")
+        i = j
+    if prose:
+        parts.append(pre("\n".join(prose), "summary"))
+    return f'<div class="summary">{"".join(parts)}</div>'
+
+
+def pre(text: str, css_class: str | None = None) -> str:
+    cls = f' class="{css_class}"' if css_class else ""
+    return f"<pre{cls}>{escape(text)}</pre>"
 
 
 def note(text: str) -> str:
@@ -173,26 +221,48 @@ def merit_section(merit: FiguresOfMerit | None, origin: str) -> str:
         return note("No figures of merit are stored in this model and no blank spectra were "
                     "given, so none are reported. Give replicate blank spectra (--blanks) to "
                     "compute sensitivity, selectivity and detection limits.")
-    return f"<p>{escape(origin)}</p>" + pre(merit.summary())
+    return f"<p>{escape(origin)}</p>" + summary_html(merit.summary())
+
+
+#: Tables with more columns than this and no more rows are shown transposed (fit on A4).
+WIDE_COLUMNS = 12
 
 
 def result_section(result: Any, what: str, how: str) -> str:
     """Summary text and table of an assessment or comparison object (duck-typed)."""
     if result is None:
         return note(f"No {what} results are included in this report ({how}).")
-    return pre(result.summary()) + frame_table(result.to_frame(), index=True)
+    frame = result.to_frame()
+    if len(frame.columns) > WIDE_COLUMNS >= len(frame):
+        # one row per statistic, one column per analyte
+        frame = frame.T.rename_axis(index="statistic", columns=None)
+    return summary_html(result.summary()) + frame_table(frame)
 
 
-def batch_section(cal: Calibration, table: pd.DataFrame | None) -> str:
+def _skipped_html(failures: list[Any]) -> str:
+    if not failures:
+        return ""
+    items = "".join(f"<li><code>{escape(str(f.input))}</code>: {escape(str(f.reason))}</li>"
+                    for f in failures)
+    return (f'<div class="banner"><p>{len(failures)} batch input(s) could not be read and '
+            f"were skipped; their spectra are not in this table:</p>"
+            f'<ul class="skipped">{items}</ul></div>')
+
+
+def batch_section(cal: Calibration, table: pd.DataFrame | None,
+                  failures: list[Any] | None = None) -> str:
+    """Results of the batch; ``failures`` (objects with ``input`` and ``reason``) listed
+    first."""
+    skipped = _skipped_html(failures or [])
     if table is None:
-        return note("No prediction batch was included in this report.")
+        return skipped or note("No prediction batch was included in this report.")
     keep = ["sample"]
     for a in cal.analytes:
         name, se, lo, hi = result_columns(a)
         keep += [name, se, lo, hi]
     keep.append("flags")
     n_flag = int((table["flags"].fillna("") != "").sum())
-    return (f"<p>{len(table)} spectra predicted, {n_flag} flagged.</p>"
+    return (skipped + f"<p>{len(table)} spectra predicted, {n_flag} flagged.</p>"
             + frame_table(table[keep]))
 
 

@@ -351,6 +351,8 @@ def batch_figure(sample_ids: Sequence[str], estimates: np.ndarray, low: np.ndarr
         Estimates and interval ends in each analyte's unit (NaN ends: no interval drawn).
     flagged : sequence of bool, length n
         Samples with at least one flag (drawn as vermilion crosses).
+
+    One legend serves all panels; it sits right of the axes, so it never covers a point.
     """
     est = np.asarray(estimates, dtype=float).reshape(len(sample_ids), -1)
     lo = np.asarray(low, dtype=float).reshape(est.shape)
@@ -370,8 +372,10 @@ def batch_figure(sample_ids: Sequence[str], estimates: np.ndarray, low: np.ndarr
                             markersize=6, label=label)
         ax.axhline(0.0, color="0.6", linewidth=0.6)
         ax.set_ylabel(concentration_label(analyte), fontsize=8)
-        ax.legend(frameon=True, framealpha=0.8, fontsize=7, loc="best",
-                  title=interval if k == 0 else None, title_fontsize=7)
+    # One legend for all panels, outside the axes (right of them): it never hides a point.
+    handles, labels = axes[0].get_legend_handles_labels()
+    fig.legend(handles, labels, loc="outside right upper", frameon=False, fontsize=7,
+               title=f"bars:\n{interval}", title_fontsize=7)
     axes[-1].set_xticks(pos, list(sample_ids), rotation=60, ha="right", fontsize=7)
     axes[-1].set_xlabel("sample")
     fig.suptitle(title)

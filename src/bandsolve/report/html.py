@@ -113,7 +113,7 @@ def render_report(cal: Calibration, *, calibration_spectra: SpectralSet | None =
         "validation": _validation_text(assessment, val_set),
         "comparison": S.result_section(comparison, "method comparison",
                                        "use --compare SPECTRA CONC"),
-        "batch": S.batch_section(cal, table),
+        "batch": S.batch_section(cal, table, getattr(batch, "failures", None)),
         "flags": S.flags_section(),
         "cautions": S.cautions_section(),
     }
@@ -162,7 +162,8 @@ def write_report(cal: Calibration, path: str | Path, *,
         Objects with ``summary() -> str`` and ``to_frame() -> DataFrame`` (from
         :func:`bandsolve.assess.assess` and :func:`bandsolve.compare.compare_methods`).
     batch : BatchResult or DataFrame, optional
-        Prediction results (columns of :meth:`Calibration.predict`).
+        Prediction results (columns of :meth:`Calibration.predict`); the failures of a
+        BatchResult (inputs that could not be read) are listed with their reasons.
     validation_spectra, validation_table : optional
         Independent test samples for the predicted-against-reference, residual and outlier
         figures of the validation section (the table is optional).
