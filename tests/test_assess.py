@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 import argparse
+import hashlib
 import itertools
 import json
+import warnings
 
 import numpy as np
 import pytest
@@ -15,9 +17,9 @@ from bandsolve.assess import assess
 from bandsolve.build import build_cls
 from bandsolve.build_pls import build_pls
 from bandsolve.bundle import save_model
-from bandsolve.cli import assess_cmd
+from bandsolve.cli import assess_cmd, main
 from bandsolve.concentrations import ConcentrationTable
-from bandsolve.errors import DataError
+from bandsolve.errors import BandsolveWarning, DataError
 from bandsolve.io import write_concentrations_csv, write_spectra_csv
 from bandsolve.spectra import SpectralSet
 from bandsolve.validation import attach_merit
@@ -135,3 +137,74 @@ def test_command_line(tmp_path, model_and_test, capsys):
         expected["analytes"][0]["statistics"]["rmse"], rel=1e-12)
     assert printed["n_flagged"] == expected["n_flagged"]
     assert (tmp_path / "per-sample.csv").read_text().startswith("sample,A [mg/L] reference")
+
+
+def _subset(spectra, table, rows, source):
+    ids = [spectra.sample_ids[i] for i in rows]
+    return (SpectralSet(AXIS, spectra.values[rows], ids, source=source),
+            ConcentrationTable(ids, LABELS, np.asarray(table.values)[rows]))
+
+
+def test_folders_of_multi_spectrum_files_and_several_spectra_values(
+        tmp_path, model_and_test, capsys):
+    cal, spectra, table = model_and_test
+    save_model(cal, tmp_path / "m.bsm")
+    folder = tmp_path / "test"
+    (folder / "day2").mkdir(parents=True)
+    parts = {folder / "day1.csv": range(0, 8), folder / "day2" / "run.csv": range(8, 17),
+             tmp_path / "extra.csv": range(17, 25)}
+    for path, rows in parts.items():
+        write_spectra_csv(_subset(spectra, table, list(rows), str(path))[0], path)
+    write_concentrations_csv(table, tmp_path / "c.csv")
+    parser = argparse.ArgumentParser()
+    assess_cmd.register(parser.add_subparsers())
+    args = parser.parse_args(["assess", str(tmp_path / "m.bsm"), "--spectra", str(folder),
+                              str(tmp_path / "extra.csv"), "--concentrations",
+                              str(tmp_path / "c.csv"), "--json"])
+    assert args.func(args) == 0
+    printed = json.loads(capsys.readouterr().out)
+    expected = assess(cal, spectra, table).to_dict()  # the same 25 spectra in one set
+    assert printed["n_samples"] == 25
+    assert sorted(s["sample"] for s in printed["samples"]) == sorted(spectra.sample_ids)
+    for got, want in zip(printed["analytes"], expected["analytes"], strict=True):
+        # The CSV round trip is exact (17 significant digits), so only summation order differs.
+        assert got["statistics"]["rmse"] == pytest.approx(want["statistics"]["rmse"], rel=1e-9)
+    assert printed["independent"] is True and printed["note"] == ""
+
+
+def test_assessing_the_calibration_files_is_marked_not_independent(tmp_path, capsys):
+    rng = np.random.default_rng(13)
+    design = np.array(list(itertools.product([0.1, 0.55, 1.0], repeat=3)))
+    spectra, table = _set(rng, design, "cal")
+    write_spectra_csv(spectra, tmp_path / "cal.csv")
+    write_concentrations_csv(table, tmp_path / "cal_conc.csv")
+    # Fingerprints as bandsolve build records them; hashlib is the reference SHA-256
+    # (FIPS 180-4).
+    prints = [{"role": role, "name": name,
+               "sha256": hashlib.sha256((tmp_path / name).read_bytes()).hexdigest()}
+              for role, name in (("spectra", "cal.csv"), ("concentrations", "cal_conc.csv"))]
+    cal = build_cls(spectra, table, provenance={"training_files": prints})
+    with pytest.warns(BandsolveWarning, match="calibration data: RMSEP on them is not an "
+                                              "independent validation"):
+        result = assess(cal, spectra, table, files=[str(tmp_path / "cal.csv")])
+    assert not result.independent and result.calibration_files == (str(tmp_path / "cal.csv"),)
+    assert "not an independent validation" in result.summary()
+    assert "independent test set" not in result.summary()
+    assert result.to_dict()["independent"] is False and "calibration" in result.to_dict()["note"]
+    # Fresh test files with other bytes: independent, and no warning.
+    test_spectra, test_table = _set(rng, rng.uniform(0.1, 1.0, (10, 3)), "t")
+    write_spectra_csv(test_spectra, tmp_path / "t.csv")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        fresh = assess(cal, test_spectra, test_table, files=[str(tmp_path / "t.csv")])
+    assert fresh.independent and "independent test set" in fresh.summary()
+    # The command line compares the concentration file as well, and warns on stderr.
+    save_model(cal, tmp_path / "m.bsm")
+    assert main(["assess", str(tmp_path / "m.bsm"), "--spectra", str(tmp_path / "cal.csv"),
+                 "--concentrations", str(tmp_path / "cal_conc.csv"), "--json"]) == 0
+    captured = capsys.readouterr()
+    assert "these are the model's calibration data" in captured.err
+    printed = json.loads(captured.out)
+    assert printed["independent"] is False
+    assert sorted(printed["calibration_files"]) == sorted(
+        str(tmp_path / n) for n in ("cal.csv", "cal_conc.csv"))

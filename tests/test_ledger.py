@@ -20,6 +20,7 @@ from bandsolve.build import build_cls
 from bandsolve.bundle import save_model
 from bandsolve.cli import ledger_cmd, main
 from bandsolve.concentrations import ConcentrationTable
+from bandsolve.errors import DataError
 from bandsolve.io import write_spectra_csv
 from bandsolve.ledger import LedgerRecorder, list_inputs, list_results, list_runs
 from bandsolve.predict import run_batch
@@ -195,3 +196,74 @@ def test_killed_prediction_leaves_no_partial_output_and_no_partial_run(setup, tm
     assert not out.exists()
     assert ledger.read_bytes() == before
     assert len(list_runs(ledger)) == 1
+
+
+NOT_A_LEDGER = "is not a bandsolve results ledger (SQLite)"
+
+
+def test_a_file_that_is_not_a_ledger_is_refused_before_anything_is_predicted(
+        setup, tmp_path, capsys):
+    d, _ = setup
+    text = tmp_path / "notes.csv"
+    text.write_text("sample,A\nx,1\n")
+    foreign = tmp_path / "other.sqlite"  # a valid SQLite database of some other program
+    con = sqlite3.connect(foreign)
+    con.execute("CREATE TABLE items (name TEXT)")
+    con.commit()
+    con.close()
+    for bad in (text, foreign, tmp_path):
+        before = bad.read_bytes() if bad.is_file() else None
+        out = tmp_path / "q.csv"
+        # Exit code 2 for bad input (documented in bandsolve.cli), not 1 (internal error).
+        assert main(["predict", str(d / "m.bsm"), str(d / "a.csv"), "--ledger", str(bad),
+                     "--out", str(out)]) == 2
+        err = capsys.readouterr().err
+        assert err.count("\n") == 1 and "internal error" not in err
+        assert "give a new file name or an existing ledger" in err
+        assert not out.exists()  # refused before predicting: no output without its record
+        if before is not None:
+            assert bad.read_bytes() == before
+            assert NOT_A_LEDGER in err
+            assert main(["ledger", str(bad)]) == 2
+            assert NOT_A_LEDGER in capsys.readouterr().err
+    empty = tmp_path / "new.sqlite"
+    empty.touch()  # an empty file is an empty SQLite database: a new ledger (SQLite docs)
+    assert main(["predict", str(d / "m.bsm"), str(d / "a.csv"), "--ledger", str(empty)]) == 0
+    assert len(list_runs(empty)) == 1
+    capsys.readouterr()
+
+
+def test_a_run_that_does_not_exist_is_named(setup, tmp_path, capsys):
+    d, _ = setup
+    ledger = tmp_path / "l.sqlite"
+    assert main(["predict", str(d / "m.bsm"), str(d / "a.csv"), "--ledger", str(ledger)]) == 0
+    capsys.readouterr()
+    assert main(["ledger", str(ledger), "--run", "99"]) == 2
+    err = capsys.readouterr().err
+    assert "no run 99" in err and "run 1" in err
+    with pytest.raises(DataError, match="no run 99"):
+        list_results(ledger, run=99)
+    with pytest.raises(DataError, match="no run 99"):
+        list_inputs(ledger, 99)
+
+
+def test_run_listing_shows_the_recorded_concentrations_and_standard_errors(
+        setup, tmp_path, capsys):
+    d, _ = setup
+    ledger, out = tmp_path / "l.sqlite", tmp_path / "r.csv"
+    assert main(["predict", str(d / "m.bsm"), str(d / "a.csv"), "--ledger", str(ledger),
+                 "--out", str(out)]) == 0
+    capsys.readouterr()
+    assert main(["ledger", str(ledger), "--run", "1"]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    header = next(line for line in lines if "sample" in line and "source" in line)
+    for label in LABELS:
+        assert label in header and f"{label} SE" in header
+    table = pd.read_csv(out, keep_default_na=False)
+    wanted = [c for label in LABELS for c in (label, f"{label} SE")]
+    for _, row in table.iterrows():
+        shown = next(line.split() for line in lines if f" {row['sample']} " in line)
+        # columns: run_id, sample, source, then concentration and SE per analyte, flags;
+        # pandas prints 6 decimals (pandas display.precision default), hence 1e-6.
+        np.testing.assert_allclose([float(v) for v in shown[3:9]],
+                                   row[wanted].to_numpy(float), atol=1e-6)

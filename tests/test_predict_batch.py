@@ -10,11 +10,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from bandsolve._output import format_for
 from bandsolve.build import build_cls
 from bandsolve.bundle import save_model
 from bandsolve.cli import main
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.cube import FLAG_BITS, predict_cube
+from bandsolve.errors import FormatError
 from bandsolve.io import write_spectra_csv
 from bandsolve.predict import EVAL_ROWS, predict_inputs
 from bandsolve.spectra import SpectralSet
@@ -193,3 +195,43 @@ def test_spectral_image_gives_maps_equal_to_the_table(model, tmp_path):
     assert ((flags.reshape(-1) != 0) == (ref["flags"] != "").to_numpy()).all()
     np.save(tmp_path / "image.axis.npy", AXIS)  # a sidecar axis is used when present
     assert predict_cube(model, cube_path, tmp_path / "maps2").notes == ""
+
+
+def test_no_results_file_when_every_input_fails(folder, model_file, tmp_path, capsys):
+    d, _ = folder
+    out = tmp_path / "f.csv"
+    bad = [str(d / "corrupt.csv"), str(d / "short.csv")]
+    # Exit code 3 when inputs could not be read (documented in bandsolve.cli).
+    assert main(["predict", str(model_file), *bad, "--out", str(out)]) == 3
+    err = capsys.readouterr().err
+    assert not out.exists()
+    assert "0 spectra predicted" in err and f"{out} was not written" in err
+    assert "results in" not in err
+    out.write_text("yesterday's results\n")  # an older file is left as it was
+    assert main(["predict", str(model_file), *bad, "--out", str(out)]) == 3
+    assert out.read_text() == "yesterday's results\n"
+    capsys.readouterr()
+
+
+@pytest.mark.parametrize("name", ["r.xlsx", "r.txt", "results"])
+def test_an_unknown_output_ending_is_refused_unless_a_format_is_given(
+        name, folder, model_file, tmp_path, capsys):
+    d, _ = folder
+    out = tmp_path / name
+    # Exit code 2 for bad options (documented in bandsolve.cli).
+    assert main(["predict", str(model_file), str(d / "good1.csv"), "--out", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert not out.exists()
+    assert all(f in err for f in ("csv", "json", "parquet")) and "--format" in err
+    assert main(["predict", str(model_file), str(d / "good1.csv"), "--out", str(out),
+                 "--format", "json"]) == 0
+    assert len(json.loads(out.read_text())) == 5
+    capsys.readouterr()
+
+
+def test_known_endings_choose_the_format():
+    # The three endings the writers support, case-insensitive; standard output is CSV.
+    assert [format_for(n, None) for n in ("a.csv", "b.JSON", "c.parquet", None, "-")] == [
+        "csv", "json", "parquet", "csv", "csv"]
+    with pytest.raises(FormatError, match=r"\.xlsx.*\.csv, \.json, \.parquet"):
+        format_for("r.xlsx", None)
