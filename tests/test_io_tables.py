@@ -39,8 +39,8 @@ def test_concentrations_every_delimiter(tmp_path, text):
 
 def test_empty_cell_names_row_and_column(tmp_path):
     text = "# c\nsample,dye A [mg/L],dye B [mg/L]\nm1,1,2\nm2,,3\n"
-    with pytest.raises(FormatError, match=r"c\.csv, row 4: concentration in column "
-                                          r"'dye A \[mg/L\]' is empty"):
+    with pytest.raises(FormatError, match=r"c\.csv, row 4 \(sample 'm2'\): concentration in "
+                                          r"column 'dye A \[mg/L\]' is empty"):
         read_concentrations(_write(tmp_path, text))
 
 
@@ -68,6 +68,7 @@ _LABEL = st.text(string.ascii_letters + string.digits + " -_[]/", min_size=1,
                  max_size=14).filter(lambda s: s == s.strip())
 
 
+@pytest.mark.filterwarnings("ignore:.*state no unit:bandsolve.errors.BandsolveWarning")
 @settings(max_examples=40, deadline=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(st.lists(_LABEL, min_size=1, max_size=5, unique=True),

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import re
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -43,12 +43,17 @@ class ConcentrationTable:
         Concentrations in each analyte's unit.
     source : str, optional
         File the table came from, for messages.
+    labels : dict of str to sequence of str, optional
+        Text columns that are not analytes, such as a batch or day used as cross-validation
+        groups: column label → one text label per sample (length n, in ``sample_ids`` order).
+        Stored as tuples; empty by default.
     """
 
     sample_ids: tuple[str, ...]
     analytes: tuple[str, ...]
     values: np.ndarray
     source: str | None = None
+    labels: dict[str, tuple[str, ...]] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         ids = tuple(str(s) for s in self.sample_ids)
@@ -84,7 +89,16 @@ class ConcentrationTable:
                 f"{where(self.source, row=i + 2, sample=ids[i])}concentration of "
                 f"{analytes[j]!r} is missing or not a number; fill it in (0 for absent)"
             )
+        labels = {str(k): tuple(str(v) for v in col) for k, col in dict(self.labels).items()}
+        for name, col in labels.items():
+            if name in analytes:
+                raise DataError(f"{where(self.source)}column {name!r} is named both as an analyte "
+                                "and as a label column; give it one role")
+            if len(col) != len(ids):
+                raise DataError(f"{where(self.source)}label column {name!r} has {len(col)} "
+                                f"entries for {len(ids)} samples; give one label per sample")
         values.setflags(write=False)
+        object.__setattr__(self, "labels", labels)
         object.__setattr__(self, "sample_ids", ids)
         object.__setattr__(self, "analytes", analytes)
         object.__setattr__(self, "values", values)
@@ -100,14 +114,15 @@ class ConcentrationTable:
         return tuple(split_unit(a)[1] for a in self.analytes)
 
     def to_frame(self) -> pd.DataFrame:
-        """Table with the sample id as index and one column per analyte label."""
+        """Table with the sample id as index and one column per analyte label (label columns
+        are left out; they are in :attr:`labels`)."""
         return pd.DataFrame(
             np.array(self.values), index=pd.Index(self.sample_ids, name="sample"),
             columns=list(self.analytes),
         )
 
     def subset(self, ids: Sequence[str]) -> ConcentrationTable:
-        """Rows for ``ids``, in that order."""
+        """Rows for ``ids``, in that order (label columns included)."""
         pos = {s: i for i, s in enumerate(self.sample_ids)}
         missing = [s for s in ids if s not in pos]
         if missing:
@@ -115,7 +130,9 @@ class ConcentrationTable:
                 f"{where(self.source)}no concentration row for sample(s) {_few(missing)}"
             )
         idx = [pos[s] for s in ids]
-        return ConcentrationTable(tuple(ids), self.analytes, self.values[idx], self.source)
+        labels = {name: tuple(col[i] for i in idx) for name, col in self.labels.items()}
+        return ConcentrationTable(tuple(ids), self.analytes, self.values[idx], self.source,
+                                  labels)
 
 
 def align(

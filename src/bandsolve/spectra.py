@@ -15,12 +15,20 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ._spectra_checks import (
+    check_axis,
+    check_finite,
+    check_ids,
+    check_transmittance_scale,
+    digits_to_tell_apart,
+    warn_if_ambiguous_unit,
+)
 from .errors import BandsolveWarning, DataError, where
-from .units import convert_axis_values, guess_axis_unit, normalise_unit
+from .units import convert_axis_values, normalise_unit
 
 __all__ = [
-    "QUANTITIES", "DEFAULT_CEILING_AU", "SpectralSet", "concat", "window_mask",
-    "warn_if_ambiguous_unit",
+    "QUANTITIES", "DEFAULT_CEILING_AU", "TRANSMITTANCE_LIMIT", "END_SLACK_STEPS", "SpectralSet",
+    "concat", "window_mask", "warn_if_ambiguous_unit",
 ]
 
 #: Photometric quantities a set may hold. ``absorptivity`` is a pure-component spectrum
@@ -30,6 +38,15 @@ QUANTITIES = ("absorbance", "transmittance", "percent_transmittance", "absorptiv
 #: Default photometric ceiling in absorbance units. Above about 2 AU stray light and detector
 #: noise make readings non-linear on typical bench instruments (common practice).
 DEFAULT_CEILING_AU = 2.0
+
+#: Highest fractional transmittance accepted (×100 for percent transmittance). True T lies in
+#: 0-1; 5 % above 1 leaves room for noise and a slightly low reference (common practice).
+TRANSMITTANCE_LIMIT = 1.05
+
+#: Slack at each end of :meth:`SpectralSet.resample`, as a fraction of the end grid step: an
+#: axis written with few decimals (for example 1e7/λ rounded to 0.001 cm⁻¹) may miss the
+#: target end by a rounding error far below one step.
+END_SLACK_STEPS = 0.01
 
 
 @dataclass(frozen=True, eq=False)
@@ -89,11 +106,11 @@ class SpectralSet:
                 f"{where(src)}{len(ids)} sample ids for {values.shape[0]} spectra; give one id "
                 "per spectrum"
             )
-        _check_axis(axis, src)
+        check_axis(axis, src)
         if axis.size > 1 and axis[1] < axis[0]:
             axis, values = axis[::-1].copy(), values[:, ::-1].copy()
-        _check_ids(ids, src)
-        _check_finite(values, axis, ids, src)
+        check_ids(ids, src)
+        check_finite(values, axis, ids, src)
         quantity = str(self.quantity)
         if quantity not in QUANTITIES:
             raise DataError(f"{where(src)}unknown quantity {quantity!r}; use one of {QUANTITIES}")
@@ -150,13 +167,15 @@ class SpectralSet:
 
         A = -log10(T) (IUPAC Gold Book, "absorbance"). Values of T at or below zero have no
         absorbance; they are reported with the sample and axis point instead of becoming
-        infinities.
+        infinities. Transmittance above :data:`TRANSMITTANCE_LIMIT` (1.05, or 105 for percent
+        transmittance) is refused: it means the quantity was declared wrongly (percent read as
+        a fraction) or the reference measurement is off.
         """
         if self.quantity in ("absorbance", "absorptivity"):
             return self
-        t = np.array(self.values)
-        if self.quantity == "percent_transmittance":
-            t = t / 100.0
+        percent = self.quantity == "percent_transmittance"
+        check_transmittance_scale(self, TRANSMITTANCE_LIMIT * (100.0 if percent else 1.0))
+        t = np.array(self.values) / (100.0 if percent else 1.0)
         bad = t <= 0
         if bad.any():
             i, j = np.argwhere(bad)[0]
@@ -203,9 +222,10 @@ class SpectralSet:
         """Keep only axis points inside one or several closed ranges ``(low, high)``."""
         mask = window_mask(self.axis, ranges)
         if not mask.any():
+            shown = ", ".join(f"{lo:g}-{hi:g}" for lo, hi in _ranges(ranges))
             raise DataError(
-                f"{where(self.source)}no axis points inside the window {ranges}; the data span "
-                f"{self.axis[0]:g}-{self.axis[-1]:g} {self.axis_unit}"
+                f"{where(self.source)}no axis points inside the window {shown} {self.axis_unit};"
+                f" the data span {self.axis[0]:g}-{self.axis[-1]:g} {self.axis_unit}"
             )
         return self._new(axis=self.axis[mask], values=self.values[:, mask])
 
@@ -217,7 +237,9 @@ class SpectralSet:
         axis : array_like, shape (q,)
             Target axis in this set's unit.
         tolerance : float
-            Relative slack on the range ends (for rounding in files).
+            Relative slack on the range ends, added to :data:`END_SLACK_STEPS` of the grid
+            step at each end (for rounding in files); target points inside the slack are
+            clipped onto the measured end.
 
         Raises
         ------
@@ -228,19 +250,22 @@ class SpectralSet:
         target = np.asarray(axis, dtype=float)
         if target.ndim != 1 or target.size == 0:
             raise DataError(f"{where(self.source)}the target axis must be a non-empty 1-D list")
-        _check_axis(target, self.source)
+        check_axis(target, self.source)
         lo, hi = self.axis[0], self.axis[-1]
-        slack = tolerance * max(abs(lo), abs(hi), 1.0)
-        if target.min() < lo - slack or target.max() > hi + slack:
-            missing = []
-            if target.min() < lo - slack:
-                missing.append(f"{target.min():g}-{lo:g}")
-            if target.max() > hi + slack:
-                missing.append(f"{hi:g}-{target.max():g}")
+        relative = tolerance * max(abs(lo), abs(hi), 1.0)
+        steps = np.diff(self.axis) if self.n_points > 1 else np.zeros(1)
+        missing = []
+        if target.min() < lo - (relative + END_SLACK_STEPS * steps[0]):
+            missing.append((target.min(), lo))
+        if target.max() > hi + (relative + END_SLACK_STEPS * steps[-1]):
+            missing.append((hi, target.max()))
+        if missing:
+            d = digits_to_tell_apart(missing)
+            unit = self.axis_unit
+            gaps = " and ".join(f"{a:.{d}g}-{b:.{d}g}" for a, b in missing)
             raise DataError(
-                f"{where(self.source)}spectra cover {lo:g}-{hi:g} {self.axis_unit} but "
-                f"{' and '.join(missing)} {self.axis_unit} is needed; measure the full range "
-                "(bandsolve never extrapolates)"
+                f"{where(self.source)}spectra cover {lo:.{d}g}-{hi:.{d}g} {unit} but {gaps} "
+                f"{unit} is needed; measure the full range (bandsolve never extrapolates)"
             )
         target = np.clip(target, lo, hi)
         out = np.empty((self.n_samples, target.size))
@@ -307,13 +332,18 @@ class SpectralSet:
 def window_mask(axis: np.ndarray, ranges: Sequence[tuple[float, float]] | tuple[float, float]
                 ) -> np.ndarray:
     """Boolean mask of axis points inside any of the closed ranges ``(low, high)``."""
-    if len(ranges) == 2 and np.isscalar(ranges[0]):
-        ranges = [ranges]  # type: ignore[list-item]
     mask = np.zeros(np.shape(axis), dtype=bool)
-    for low, high in ranges:  # type: ignore[misc]
-        lo, hi = sorted((float(low), float(high)))
+    for lo, hi in _ranges(ranges):
         mask |= (axis >= lo) & (axis <= hi)
     return mask
+
+
+def _ranges(ranges: Sequence[tuple[float, float]] | tuple[float, float]
+            ) -> list[tuple[float, float]]:
+    """One range or several as a list of ``(low, high)`` float pairs, each sorted."""
+    if len(ranges) == 2 and np.isscalar(ranges[0]):
+        ranges = [ranges]  # type: ignore[list-item]
+    return [tuple(sorted((float(a), float(b)))) for a, b in ranges]  # type: ignore[misc]
 
 
 def concat(sets: Sequence[SpectralSet]) -> SpectralSet:
@@ -348,59 +378,3 @@ def concat(sets: Sequence[SpectralSet]) -> SpectralSet:
         path_length_cm=first.path_length_cm,
         source=", ".join(dict.fromkeys(str(s.source) for s in sets if s.source)) or None,
     )
-
-
-def _check_axis(axis: np.ndarray, src: str | None) -> None:
-    bad = np.flatnonzero(~np.isfinite(axis))
-    if bad.size:
-        raise DataError(f"{where(src)}axis value number {bad[0] + 1} is not a finite number")
-    if axis.size > 1:
-        d = np.diff(axis)
-        if np.any(d == 0):
-            j = int(np.flatnonzero(d == 0)[0])
-            raise DataError(
-                f"{where(src)}axis value {axis[j]:g} appears twice (points {j + 1} and {j + 2}); "
-                "each axis point must be unique"
-            )
-        if not (np.all(d > 0) or np.all(d < 0)):
-            j = int(np.flatnonzero(np.sign(d) != np.sign(d[0]))[0])
-            raise DataError(
-                f"{where(src)}axis is not monotonic: it turns at point {j + 2} ({axis[j + 1]:g}); "
-                "sort the columns or remove the out-of-order points"
-            )
-
-
-def _check_ids(ids: tuple[str, ...], src: str | None) -> None:
-    seen: dict[str, int] = {}
-    for i, s in enumerate(ids):
-        if not s.strip():
-            raise DataError(f"{where(src)}spectrum {i + 1} has an empty sample id; give every "
-                            "spectrum an id")
-        if s in seen:
-            raise DataError(
-                f"{where(src)}sample id {s!r} appears twice (spectra {seen[s] + 1} and {i + 1}); "
-                "give each spectrum a unique id, or average replicates (replicates='average')"
-            )
-        seen[s] = i
-
-
-def _check_finite(values: np.ndarray, axis: np.ndarray, ids: tuple[str, ...],
-                  src: str | None) -> None:
-    bad = ~np.isfinite(values)
-    if bad.any():
-        i, j = np.argwhere(bad)[0]
-        raise DataError(
-            f"{where(src, sample=ids[i])}value {values[i, j]} at {axis[j]:g} is not a finite "
-            f"number ({int(bad.sum())} such values in all); fix or remove that spectrum"
-        )
-
-
-def warn_if_ambiguous_unit(axis: np.ndarray, unit_given: bool, source: str | None) -> None:
-    """Warn when the axis unit was not stated and cannot be told from the axis range."""
-    if not unit_given and guess_axis_unit(axis) is None:
-        warnings.warn(
-            f"{where(source)}axis {np.min(axis):g}-{np.max(axis):g} could be nm or cm-1; nm is "
-            "assumed; state the unit (--axis-unit nm|um|cm-1) to settle it",
-            BandsolveWarning,
-            stacklevel=2,
-        )

@@ -32,22 +32,20 @@ class Options:
     def __post_init__(self) -> None:
         if self.replicates not in REPLICATE_MODES:
             raise DataError(
-                f"replicates={self.replicates!r} is not an option; use 'error' or 'average'"
+                f"replicates {self.replicates!r} is not an option; use 'error' or 'average'"
             )
         if self.axis_unit is not None:
             normalise_unit(self.axis_unit)
         if self.quantity is not None:
-            object.__setattr__(self, "quantity", normalise_quantity(self.quantity, "quantity="))
+            object.__setattr__(self, "quantity", normalise_quantity(self.quantity))
 
 
-def normalise_quantity(text: str, origin: str) -> str:
+def normalise_quantity(text: str) -> str:
     """Canonical quantity name for spellings like ``%T`` or ``percent transmittance``."""
     key = str(text).strip().lower().replace(" ", "_").replace("-", "_")
     key = _QUANTITY_ALIASES.get(key, key)
     if key not in QUANTITIES:
-        raise DataError(
-            f"{origin} unknown quantity {text!r}; use one of {', '.join(QUANTITIES)}"
-        )
+        raise DataError(f"unknown quantity {text!r}; use one of {', '.join(QUANTITIES)}")
     return key
 
 
@@ -105,7 +103,8 @@ def build(axis: np.ndarray, values: np.ndarray, ids: Sequence[str], places: Sequ
         a, b = repeated
         raise DataError(
             f"{where(source)}sample id {ids[b]!r} appears twice ({places[a]} and {places[b]}); "
-            "give each spectrum a unique id, or average the replicates (replicates='average')"
+            "give each spectrum a unique id, or average the replicates (--replicates average; "
+            "replicates='average' in Python)"
         )
     positions = [str(k) for k in range(len(ids))]
     return SpectralSet(sample_ids=positions, **common).average_by(ids)

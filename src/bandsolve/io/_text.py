@@ -92,7 +92,7 @@ def data_lines(lines: Iterable[str], meta: dict[str, str]) -> Iterator[tuple[int
         yield number, text
 
 
-def _is_number(cell: str, decimal: str) -> bool:
+def is_number(cell: str, decimal: str) -> bool:
     if decimal == ",":
         cell = cell.replace(",", ".")
     try:
@@ -116,7 +116,7 @@ def sniff(lines: Sequence[str], source: str) -> Dialect:
         cells = [c.strip() for r in rows for c in r]
         decimal = _decimal_mark(cells, delim)
         consistent = sum(len(r) == width for r in rows) / len(rows)
-        numeric = sum(_is_number(c, decimal) for c in cells) / max(len(cells), 1)
+        numeric = sum(is_number(c, decimal) for c in cells) / max(len(cells), 1)
         score = (consistent, numeric)
         if best is None or score > best[0]:
             best = (score, Dialect(delim, decimal))
@@ -155,8 +155,10 @@ def split_rows(numbered: Iterable[tuple[int, str]], dialect: Dialect, width: int
 
 
 def to_numbers(cells: Sequence[str], dialect: Dialect, *, source: str, line: int | None,
-               names: Sequence[str] | None = None, what: str = "value") -> np.ndarray:
-    """Parse cells as finite floats; errors name the line and the column (``names``).
+               names: Sequence[str] | None = None, what: str = "value",
+               sample: str | None = None) -> np.ndarray:
+    """Parse cells as finite floats; errors name the line, the ``sample`` (when the line
+    belongs to one) and the column (``names``).
 
     Raises
     ------
@@ -172,12 +174,12 @@ def to_numbers(cells: Sequence[str], dialect: Dialect, *, source: str, line: int
     if ok:
         return numbers
     for k, cell in enumerate(cells):
-        if _is_number(cell, dialect.decimal) and np.isfinite(float(texts[k])):
+        if is_number(cell, dialect.decimal) and np.isfinite(float(texts[k])):
             continue
         column = f" in column {names[k]!r}" if names is not None else f" (cell {k + 1})"
         problem = "is empty" if not cell else f"{cell[:40]!r} is not a finite number"
         raise FormatError(
-            f"{where(source, row=line)}{what}{column} {problem}; fill in a number "
+            f"{where(source, row=line, sample=sample)}{what}{column} {problem}; fill in a number "
             f"(decimal mark {dialect.decimal!r})"
         )
     raise FormatError(f"{where(source, row=line)}{what} could not be read as numbers")

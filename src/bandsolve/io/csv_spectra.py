@@ -86,7 +86,7 @@ def read_spectra_file(path: str | Path, **kwargs) -> SpectralSet:
 def _parse(numbered: list[tuple[int, str]], meta: dict[str, str], options: Options,
            layout: str, source: str) -> SpectralSet:
     if layout not in LAYOUTS:
-        raise FormatError(f"layout={layout!r} is not known; use one of {', '.join(LAYOUTS)}")
+        raise FormatError(f"layout {layout!r} is not known; use one of {', '.join(LAYOUTS)}")
     dialect = sniff([t for _, t in numbered], source)
     rows = split_rows(numbered, dialect, None, source)
     filled = options_from_file(options, meta, source)
@@ -132,7 +132,8 @@ def _detect(rows: list[Row], dialect: Dialect, source: str) -> str:
         return "wide"
     if first_col_axis and not header_numeric:
         return "transposed"
-    fix = "state the layout (layout='wide' or 'transposed', --layout on the command line)"
+    fix = ("state the layout (--layout wide or --layout transposed; layout='wide' or "
+           "layout='transposed' in Python)")
     if header_numeric and first_col_axis:
         raise FormatError(
             f"{where(source, row=rows[0].line)}both the header and the first column are numeric "
@@ -160,7 +161,8 @@ def _wide(rows: list[Row], dialect: Dialect, source: str):
                       what="header (axis value)")
     names = header.cells[1:]
     values = np.vstack([
-        to_numbers(r.cells[1:], dialect, source=source, line=r.line, names=names)
+        to_numbers(r.cells[1:], dialect, source=source, line=r.line, names=names,
+                   sample=r.cells[0] or None)
         for r in rows[1:]
     ])
     return axis, values, [r.cells[0] for r in rows[1:]], [f"row {r.line}" for r in rows[1:]]
@@ -191,7 +193,7 @@ def _long(rows: list[Row], dialect: Dialect, source: str):
     points: dict[str, dict[float, float]] = {}
     for r in rows:
         x, y = to_numbers(r.cells[1:], dialect, source=source, line=r.line,
-                          names=["axis", "signal"])
+                          names=["axis", "signal"], sample=r.cells[0] or None)
         spectrum = points.setdefault(r.cells[0], {})
         if x in spectrum:
             raise FormatError(f"{where(source, row=r.line, sample=r.cells[0])}axis value {x:g} "
