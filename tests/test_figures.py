@@ -166,6 +166,26 @@ def test_batch_intervals_and_flag_markers():
     _assert_units(fig)
 
 
+def test_batch_legend_covers_no_panel():
+    # Intervals spanning the whole value range at every sample leave no free corner inside
+    # the axes, so only a legend outside them can avoid hiding data (common practice).
+    rng = np.random.default_rng(7)
+    n = 40
+    est = rng.uniform(0.0, 10.0, (n, 2))
+    fig = F.batch_figure([f"s{i}" for i in range(n)], est, est - 10.0, est + 10.0, ANALYTES,
+                         rng.random(n) < 0.3)
+    renderer = fig.canvas.get_renderer()
+    fig.draw(renderer)
+    legends = [*fig.legends, *(ax.get_legend() for ax in fig.axes if ax.get_legend())]
+    assert len(legends) == 1  # one legend serves every panel
+    box = legends[0].get_window_extent(renderer)
+    assert [t.get_text() for t in legends[0].get_texts()] == ["estimate", "flagged sample"]
+    assert "95 % prediction interval" in legends[0].get_title().get_text()
+    for ax in fig.axes:
+        assert not box.overlaps(ax.get_window_extent(renderer))
+    assert fig.bbox.contains(box.x0, box.y0) and fig.bbox.contains(box.x1, box.y1)
+
+
 def test_figures_stay_out_of_pyplot():
     import matplotlib.pyplot as plt
 

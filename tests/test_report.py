@@ -10,6 +10,7 @@ import shutil
 import struct
 import subprocess
 import zlib
+from html import escape as html_escape
 from html.parser import HTMLParser
 from pathlib import Path
 
@@ -22,8 +23,9 @@ from bandsolve.build_pls import build_pls
 from bandsolve.demo import DEMO_LABEL, write_demo_data
 from bandsolve.flags import FLAG_CODES
 from bandsolve.io import read_concentrations, read_spectra
+from bandsolve.merit import FiguresOfMerit
 from bandsolve.predict import predict_inputs
-from bandsolve.report import SECTION_IDS, render_report, write_report
+from bandsolve.report import SECTION_IDS, _sections, render_report, write_report
 from bandsolve.report import _views as V
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
@@ -240,6 +242,104 @@ def test_cli_writes_the_report(demo, tmp_path):
     assert "batch-2-05" in text and 'id="fig-batch"' in text
 
 
+def _section(text: str, sid: str) -> str:
+    return re.search(rf'<section id="{sid}">(.*?)</section>', text, re.S).group(1)
+
+
+def test_summaries_wrap_and_aligned_columns_become_tables():
+    # Preformatted text must wrap instead of running past an A4 page (common practice).
+    styles = _sections.STYLE
+    pre_rules = re.findall(r"(?:^|\n)\s*pre\s*\{([^}]*)\}", styles)
+    assert len(pre_rules) == 2  # the screen rule and the print rule
+    for rule in pre_rules:
+        assert "white-space:pre-wrap" in rule and "overflow-wrap:anywhere" in rule
+    assert "overflow-x" not in styles
+    text = ("Title line\nname     A [u]   B [-]\ndye A    0.5      1\ndye B    2        -\n"
+            "  indented  detail  line  here\nσx from: blanks")
+    html = _sections.summary_html(text)
+    assert html.count("<th>") == 3 and "<th>A [u]</th>" in html and "<td>dye B</td>" in html
+    assert "<pre class=\"summary\">Title line</pre>" in html
+    assert "  indented  detail  line  here\nσx from: blanks</pre>" in html
+
+
+def test_frame_table_hides_a_plain_row_count_and_shows_missing_as_a_dash():
+    frame = pd.DataFrame({"method": ["CLS", "PLS"], "RMSEP": [None, 0.25]})
+    html = _sections.frame_table(frame)
+    heads = re.findall(r"<th>(.*?)</th>", html)
+    assert heads == ["method", "RMSEP"]  # no unnamed index column
+    assert "None" not in html and re.findall(r"<td>(.*?)</td>", html) == ["CLS", "–", "PLS",
+                                                                          "0.25"]
+    named = _sections.frame_table(frame.set_index("method"))
+    assert re.findall(r"<th>(.*?)</th>", named) == ["method", "RMSEP"]
+
+
+@pytest.fixture(scope="module")
+def printed_report(demo, tmp_path_factory):
+    from bandsolve.assess import assess
+    from bandsolve.compare import compare_methods
+
+    folder = tmp_path_factory.mktemp("printed")
+    bad = folder / "bad.csv"
+    bad.write_text("not,a spectrum\nx\n", encoding="utf-8")
+    batch = predict_inputs(demo["cls"], [str(demo["files"].routine[0]), str(bad)])
+    assert [f.input for f in batch.failures] == [str(bad)]
+    path = folder / "printed.html"
+    write_report(demo["cls"], path, assessment=assess(demo["cls"], *demo["val"]),
+                 comparison=compare_methods(*demo["cal"], n_permutations=99,
+                                            max_components=5),
+                 batch=batch)
+    return path, path.read_text(encoding="utf-8"), batch
+
+
+def test_comparison_table_without_index_or_none(printed_report):
+    _, text, _ = printed_report
+    part = _section(text, "comparison")
+    table = part.split("</div>")[-1]  # the results table follows the summary
+    heads = re.findall(r"<th>(.*?)</th>", table)
+    assert heads[:2] == ["analyte", "method"] and "RMSEP" in heads
+    cells = re.findall(r"<td>(.*?)</td>", part)
+    assert "None" not in cells and "–" in cells  # no test set: RMSEP is missing
+    assert ">None<" not in text
+
+
+def test_wide_assessment_table_is_shown_one_row_per_statistic(printed_report):
+    _, text, _ = printed_report
+    table = _section(text, "validation").split("</div>")[-1]
+    heads = re.findall(r"<th>(.*?)</th>", table)
+    assert heads == ["statistic", "dye A", "dye B", "dye C"]
+    rows = re.findall(r"<tr>\s*<td>(.*?)</td>", table)
+    # The last columns of the wide layout were the ones cut off at the page edge.
+    assert rows[0] == "unit" and rows[-2:] == ["RMSEP/RMSECV", "consistency p"]
+
+
+def test_skipped_batch_inputs_are_listed_with_their_reason(printed_report):
+    _, text, batch = printed_report
+    part = _section(text, "batch")
+    failure = batch.failures[0]
+    assert "1 batch input(s) could not be read and were skipped" in part
+    assert f"<code>{failure.input}</code>: {html_escape(failure.reason)}" in part
+
+
+def test_cli_reports_skipped_batch_inputs_and_exits_partial(demo, tmp_path, capsys):
+    from bandsolve.bundle import save_model
+    from bandsolve.cli import EXIT_PARTIAL, report_cmd
+
+    parser = argparse.ArgumentParser()
+    report_cmd.register(parser.add_subparsers())
+    model = tmp_path / "m.bsm"
+    save_model(demo["cls"], model)
+    bad = tmp_path / "bad.csv"
+    bad.write_text("not,a spectrum\nx\n", encoding="utf-8")
+    out = tmp_path / "r.html"
+    args = parser.parse_args(["report", str(model), "--batch", str(demo["files"].routine[1]),
+                              str(bad), "--quiet", "--out", str(out)])
+    assert args.func(args) == EXIT_PARTIAL == 3  # documented exit code of a partial batch
+    err = capsys.readouterr().err
+    assert f"bandsolve: skipped {bad}: " in err
+    batch = _section(out.read_text(encoding="utf-8"), "batch")
+    assert f"<code>{bad}</code>" in batch and "batch-2-05" in batch
+
+
 def _chromium() -> str | None:
     if Path("/usr/bin/chromium").exists():
         return "/usr/bin/chromium"
@@ -268,3 +368,26 @@ def test_headless_browser_renders_the_report(full_report, tmp_path):
     rendered = dom.stdout.decode("utf-8", errors="replace")
     for sid, _ in SECTION_IDS:
         assert f'id="{sid}"' in rendered
+
+
+def test_printed_pages_keep_every_word_of_the_summaries_and_tables(printed_report, demo,
+                                                                    tmp_path):
+    browser, to_text = _chromium(), shutil.which("pdftotext")
+    if browser is None or to_text is None:
+        pytest.skip("Chromium and pdftotext (poppler-utils) are needed for the print check")
+    path, _, _ = printed_report
+    pdf = tmp_path / "r.pdf"
+    run = subprocess.run([browser, "--headless", "--no-sandbox", "--disable-gpu",
+                          "--no-first-run", f"--user-data-dir={tmp_path / 'profile'}",
+                          "--no-pdf-header-footer", f"--print-to-pdf={pdf}", path.as_uri()],
+                         capture_output=True, timeout=180, check=False)
+    assert run.returncode == 0 and pdf.stat().st_size > 0
+    text = subprocess.run([to_text, str(pdf), "-"], capture_output=True, timeout=180,
+                          check=True).stdout.decode("utf-8")
+    # What runs past the printable width of an A4 page is clipped and so missing from the
+    # text of the PDF; every word of the model's figures-of-merit summary and every column
+    # of the assessment must be on paper.
+    printed = set(text.split())
+    words = set(FiguresOfMerit.from_dict(demo["cls"].merit).summary().split())
+    words |= {"RMSEP/RMSECV", "consistency", "Holm"}
+    assert not words - printed, sorted(words - printed)
