@@ -90,7 +90,8 @@ def test_single_spectrum_takes_the_file_stem(tmp_path, text):
 
 def test_ambiguous_layout_asks_for_layout(tmp_path):
     path = _write(tmp_path, "amb.csv", "x,1,2,3\n1,0.1,0.2,0.3\n2,0.2,0.3,0.4\n")
-    with pytest.raises(FormatError, match=r"amb\.csv, row 1.*ambiguous.*layout="):
+    with pytest.raises(FormatError, match=r"amb\.csv, row 1.*ambiguous.*--layout wide or "
+                                          r"--layout transposed; layout='wide'.*in Python"):
         read_spectra(path)
     s = read_spectra(path, layout="wide", axis_unit="nm")
     assert s.sample_ids == ("1", "2")
@@ -112,7 +113,8 @@ def test_bad_cells_are_named_by_line_and_column(tmp_path):
     text = "# comment\nsample,400,410\nA,0.1,0.2\nB,0.3,oops\n"
     with pytest.raises(FormatError, match=r"bad\.csv, row 4.*column '410'.*'oops'"):
         read_spectra(_write(tmp_path, "bad.csv", text))
-    with pytest.raises(FormatError, match=r"row 4.*column '410' is empty"):
+    with pytest.raises(FormatError, match=r"row 4 \(sample 'B'\): value in column '410' is "
+                                          r"empty"):
         read_spectra(_write(tmp_path, "bad.csv", "# c\nsample,400,410\nA,0.1,0.2\nB,0.3,\n"))
     with pytest.raises(FormatError, match=r"row 3: axis value \(cell 1\) 'x' is not a finite"):
         read_spectra(_write(tmp_path, "bad.csv", "nm,A\n400,0.1\nx,0.2\n"), layout="transposed")
@@ -120,9 +122,20 @@ def test_bad_cells_are_named_by_line_and_column(tmp_path):
         read_spectra(_write(tmp_path, "bad.csv", "sample,400,410\nA,0.1,0.2\nB,0.3\n"))
 
 
+def test_nan_cell_names_the_sample_in_wide_and_long_layouts(tmp_path):
+    wide = "sample,400,410\nA,0.1,0.2\nmix-7,nan,0.3\n"
+    with pytest.raises(FormatError, match=r"w\.csv, row 3 \(sample 'mix-7'\): value in column "
+                                          r"'400' 'nan' is not a finite number"):
+        read_spectra(_write(tmp_path, "w.csv", wide))
+    long = "sample,nm,A\nA,400,0.1\nA,410,0.2\nmix-7,400,0.1\nmix-7,410,inf\n"
+    with pytest.raises(FormatError, match=r"row 5 \(sample 'mix-7'\): value in column 'signal'"):
+        read_spectra(_write(tmp_path, "l.csv", long), layout="long")
+
+
 def test_duplicate_ids_error_or_average(tmp_path):
     path = _write(tmp_path, "r.csv", "sample,400,410\nA,1,2\nB,0,0\nA,3,4\n")
-    with pytest.raises(DataError, match=r"'A' appears twice \(row 2 and row 4\)"):
+    with pytest.raises(DataError, match=r"'A' appears twice \(row 2 and row 4\).*"
+                                        r"--replicates average; replicates='average' in Python"):
         read_spectra(path)
     s = read_spectra(path, replicates="average")
     assert s.sample_ids == ("A", "B")

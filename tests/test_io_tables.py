@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import string
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -11,7 +12,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from bandsolve.concentrations import ConcentrationTable
-from bandsolve.errors import FormatError
+from bandsolve.errors import BandsolveWarning, DataError, FormatError
 from bandsolve.io import read_absorptivities, read_concentrations, write_concentrations_csv
 
 DATA = Path(__file__).resolve().parents[1] / ".." / "shared" / "datasets"
@@ -101,3 +102,68 @@ def test_real_three_aromatics_concentrations():
     assert table.units == ("mol/L", "mol/L", "mol/L")
     assert table.values.shape == (15, 3)
     assert table.values.max() == pytest.approx(4e-4)  # 400 µmol/L top standard (SOURCE.md)
+
+
+def test_negative_concentration_names_file_row_sample_and_column(tmp_path):
+    text = "sample,dye A [mg/L],dye B [mg/L]\ncal-01,6,7.5\ncal-07,3,-3.0\n"
+    # a concentration is an amount per volume, never below zero (common practice)
+    with pytest.raises(DataError, match=r"neg\.csv, row 3 \(sample 'cal-07'\): concentration -3 "
+                                        r"in column 'dye B \[mg/L\]' is negative"):
+        read_concentrations(_write(tmp_path, text, "neg.csv"))
+
+
+def test_columns_without_unit_warn_once_naming_them(tmp_path):
+    text = "sample,dye A,dye B [mg/L],dye C\nm1,1,2,3\n"
+    with pytest.warns(BandsolveWarning) as record:
+        table = read_concentrations(_write(tmp_path, text, "u.csv"))
+    assert len(record) == 1
+    msg = str(record[0].message)
+    assert "'dye A', 'dye C'" in msg and "'dye A [mg/L]'" in msg and "dye B" not in msg
+    assert table.units == (None, "mg/L", None)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        read_concentrations(_write(tmp_path, "sample,dye A [g/L]\nm1,1\n", "ok.csv"))
+
+
+GROUPED = ("sample,dye A [mg/L],batch,dye B [mg/L]\ncal-01,6,day0,7.5\ncal-02,9,day1,2.5\n"
+           "cal-03,3,day0,0\n")
+
+
+def test_label_columns_are_read_as_text_and_left_out_of_the_analytes(tmp_path):
+    table = read_concentrations(_write(tmp_path, GROUPED, "g.csv"), label_columns=["batch"])
+    # expected: the cells typed into the file (common practice)
+    assert table.analytes == ("dye A [mg/L]", "dye B [mg/L]")
+    np.testing.assert_array_equal(table.values, [[6, 7.5], [9, 2.5], [3, 0]])
+    assert table.labels == {"batch": ("day0", "day1", "day0")}
+    sub = table.subset(["cal-03", "cal-01"])
+    assert sub.labels == {"batch": ("day0", "day0")}
+    assert sub.analytes == table.analytes
+    # numeric-looking labels stay text
+    nums = GROUPED.replace("day", "")
+    assert read_concentrations(_write(tmp_path, nums, "n.csv"),
+                               label_columns=("batch",)).labels["batch"] == ("0", "1", "0")
+
+
+def test_text_column_not_named_as_labels_says_how_to_read_it(tmp_path):
+    with pytest.raises(FormatError, match=r"g\.csv: column 'batch' holds text \('day0' in line "
+                                          r"2\).*--cv groups:batch.*label_columns=\['batch'\]"):
+        read_concentrations(_write(tmp_path, GROUPED, "g.csv"))
+
+
+def test_missing_or_empty_label_column_is_refused(tmp_path):
+    with pytest.raises(FormatError, match=r"g\.csv, row 1: no column 'Batch' to read labels "
+                                          r"from; the columns are 'dye A \[mg/L\]', 'batch'"):
+        read_concentrations(_write(tmp_path, GROUPED, "g.csv"), label_columns=["Batch"])
+    holed = GROUPED.replace("day1", "")
+    with pytest.raises(FormatError, match=r"row 3 \(sample 'cal-02'\): label column 'batch' is "
+                                          r"empty"):
+        read_concentrations(_write(tmp_path, holed, "h.csv"), label_columns=["batch"])
+
+
+def test_table_keeps_its_positional_api_and_checks_labels():
+    table = ConcentrationTable(["m1", "m2"], ["dye [mg/L]"], [[1.0], [2.0]], "c.csv")
+    assert table.source == "c.csv" and table.labels == {}
+    with pytest.raises(DataError, match=r"label column 'day' has 1 entries for 2 samples"):
+        ConcentrationTable(["m1", "m2"], ["dye [mg/L]"], [[1.0], [2.0]], labels={"day": ["d0"]})
+    with pytest.raises(DataError, match=r"'dye \[mg/L\]' is named both as an analyte"):
+        ConcentrationTable(["m1"], ["dye [mg/L]"], [[1.0]], labels={"dye [mg/L]": ["x"]})

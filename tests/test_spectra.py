@@ -68,7 +68,8 @@ def test_duplicate_and_non_monotonic_axis_are_named():
 
 
 def test_duplicate_ids_are_named():
-    with pytest.raises(DataError, match=r"'a' appears twice \(spectra 1 and 3\)"):
+    with pytest.raises(DataError, match=r"'a' appears twice \(spectra 1 and 3\).*"
+                                        r"--replicates average; replicates='average' in Python"):
         _set(np.ones((3, AXIS.size)), ids=["a", "b", "a"])
 
 
@@ -100,8 +101,11 @@ def test_window_with_several_ranges():
     w = _set().window([(400, 402), (408.0, 409.0)])
     np.testing.assert_array_equal(w.axis, [400, 401, 402, 408, 409])
     np.testing.assert_array_equal(window_mask(AXIS, (403, 403)), AXIS == 403)
-    with pytest.raises(DataError, match="no axis points inside"):
+    with pytest.raises(DataError, match=r"no axis points inside the window 500-600 nm; the "
+                                        r"data span 400-410 nm"):
         _set().window((500, 600))
+    with pytest.raises(DataError, match=r"window 800-900 nm, 950-990 nm;"):
+        _set().window([(800.0, 900.0), (990.0, 950.0)])
 
 
 def test_average_by_averages_replicates():
@@ -193,3 +197,62 @@ def test_convert_axis_reverses_order_for_wavenumbers():
     # ν̃ = 1e7 / λ[nm] (definition of wavenumber)
     np.testing.assert_allclose(s.axis, [1e7 / 500, 1e7 / 400])
     np.testing.assert_array_equal(s.values, [[2.0, 1.0]])
+
+
+def test_resample_accepts_wavenumbers_rounded_to_three_decimals():
+    nm = np.arange(380.0, 721.0, 2.0)
+    # ν̃ = 1e7 / λ[nm] (definition of wavenumber), written to the file with 3 decimals
+    wavenumbers = np.round(1e7 / nm, 3)
+    line = 0.1 + 0.002 * (1e7 / wavenumbers - 380.0)  # a straight line in nm
+    s = SpectralSet(wavenumbers, line, ["x"], axis_unit="cm-1", source="wn.csv")
+    back = s.convert_axis("nm")
+    # the rounding moves the ends off 380 and 720 by far less than one 2 nm step (arithmetic)
+    assert back.axis[0] != 380.0 and back.axis[-1] != 720.0
+    out = back.resample(nm)
+    np.testing.assert_array_equal(out.axis, nm)
+    # linear interpolation of a straight line is exact (theory); clipping moves the ends by
+    # under 1e-5 nm, i.e. under 2e-8 AU here
+    np.testing.assert_allclose(out.values[0], 0.1 + 0.002 * (nm - 380.0), atol=1e-7)
+
+
+def test_resample_slack_is_a_hundredth_of_the_end_step():
+    target = np.arange(380.0, 391.0, 2.0)  # data step 2 nm → slack 0.02 nm at each end
+    inside = SpectralSet(np.arange(380.01, 391.0, 2.0), np.ones((1, 6)), ["x"])
+    np.testing.assert_array_equal(inside.resample(target).axis, target)
+    short = SpectralSet(np.arange(380.03, 391.0, 2.0), np.ones((1, 6)), ["x"], source="s.csv")
+    with pytest.raises(DataError, match=r"s\.csv: spectra cover 380\.03-390\.03 nm but "
+                                        r"380-380\.03 nm is needed"):
+        short.resample(target)
+
+
+def test_resample_message_never_prints_an_empty_range():
+    # a fine grid (step 0.001 nm, slack 1e-5 nm) that starts 4e-4 nm above the target
+    s = SpectralSet(1000.0004 + 0.001 * np.arange(20), np.ones((1, 20)), ["x"])
+    with pytest.raises(DataError) as err:
+        s.resample(1000.0 + 0.001 * np.arange(10))
+    msg = str(err.value)
+    assert "1000-1000 " not in msg and "1000-1000.0004 nm is needed" in msg
+
+
+def test_transmittance_far_above_one_is_refused():
+    values = np.full((2, AXIS.size), 0.5)
+    values[1] = np.linspace(15.0, 99.0, AXIS.size)  # percent values declared as a fraction
+    s = _set(values, quantity="transmittance", source="t.csv")
+    with pytest.raises(DataError, match=r"t\.csv \(sample 'b'\): transmittance 15 at 400 nm is "
+                                        r"above 1\.05.*--quantity percent_transmittance"):
+        s.to_absorbance()
+    # slightly above 1 (noise on a 100 % baseline) still converts: A = -log10(T)
+    # (IUPAC Gold Book, "absorbance")
+    near = _set(np.full((2, AXIS.size), 1.04), quantity="transmittance").to_absorbance()
+    np.testing.assert_allclose(near.values, -np.log10(1.04))
+
+
+def test_percent_transmittance_above_105_is_refused():
+    values = np.full((2, AXIS.size), 50.0)
+    values[0, 5] = 250.0
+    s = _set(values, quantity="percent_transmittance", source="p.csv")
+    with pytest.raises(DataError, match=r"p\.csv \(sample 'a'\): percent transmittance 250 at "
+                                        r"405 nm is above 105 \(1 such values"):
+        s.to_absorbance()
+    ok = _set(np.full((2, AXIS.size), 104.0), quantity="percent_transmittance").to_absorbance()
+    np.testing.assert_allclose(ok.values, -np.log10(1.04))  # A = -log10(T) (IUPAC Gold Book)

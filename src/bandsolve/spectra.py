@@ -222,9 +222,9 @@ class SpectralSet:
         """Keep only axis points inside one or several closed ranges ``(low, high)``."""
         mask = window_mask(self.axis, ranges)
         if not mask.any():
-            shown = ", ".join(f"{lo:g}-{hi:g}" for lo, hi in _ranges(ranges))
+            shown = ", ".join(f"{lo:g}-{hi:g} {self.axis_unit}" for lo, hi in _ranges(ranges))
             raise DataError(
-                f"{where(self.source)}no axis points inside the window {shown} {self.axis_unit};"
+                f"{where(self.source)}no axis points inside the window {shown};"
                 f" the data span {self.axis[0]:g}-{self.axis[-1]:g} {self.axis_unit}"
             )
         return self._new(axis=self.axis[mask], values=self.values[:, mask])
@@ -238,8 +238,8 @@ class SpectralSet:
             Target axis in this set's unit.
         tolerance : float
             Relative slack on the range ends, added to :data:`END_SLACK_STEPS` of the grid
-            step at each end (for rounding in files); target points inside the slack are
-            clipped onto the measured end.
+            step at each end (for rounding in files); target points inside the slack take
+            the value at the measured end. The result lies on ``axis`` exactly.
 
         Raises
         ------
@@ -267,7 +267,8 @@ class SpectralSet:
                 f"{where(self.source)}spectra cover {lo:.{d}g}-{hi:.{d}g} {unit} but {gaps} "
                 f"{unit} is needed; measure the full range (bandsolve never extrapolates)"
             )
-        target = np.clip(target, lo, hi)
+        # Points inside the end slack take the end value (np.interp holds the end values), so
+        # the result lies exactly on the requested grid.
         out = np.empty((self.n_samples, target.size))
         for i, row in enumerate(self.values):
             out[i] = np.interp(target, self.axis, row)
