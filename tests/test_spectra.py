@@ -9,7 +9,13 @@ from hypothesis import strategies as st
 
 from bandsolve.concentrations import ConcentrationTable, align, split_unit
 from bandsolve.errors import BandsolveWarning, DataError
-from bandsolve.spectra import SpectralSet, concat, warn_if_ambiguous_unit, window_mask
+from bandsolve.spectra import (
+    SpectralSet,
+    concat,
+    describe_window,
+    warn_if_ambiguous_unit,
+    window_mask,
+)
 
 AXIS = np.arange(400.0, 411.0)  # 400..410 nm, 11 points
 
@@ -106,6 +112,7 @@ def test_window_with_several_ranges():
         _set().window((500, 600))
     with pytest.raises(DataError, match=r"window 800-900 nm, 950-990 nm;"):
         _set().window([(800.0, 900.0), (990.0, 950.0)])
+    assert describe_window((900, 800.0), "cm-1") == "800-900 cm-1"
 
 
 def test_average_by_averages_replicates():

@@ -28,7 +28,7 @@ from .units import convert_axis_values, normalise_unit
 
 __all__ = [
     "QUANTITIES", "DEFAULT_CEILING_AU", "TRANSMITTANCE_LIMIT", "END_SLACK_STEPS", "SpectralSet",
-    "concat", "window_mask", "warn_if_ambiguous_unit",
+    "concat", "window_mask", "describe_window", "warn_if_ambiguous_unit",
 ]
 
 #: Photometric quantities a set may hold. ``absorptivity`` is a pure-component spectrum
@@ -222,7 +222,7 @@ class SpectralSet:
         """Keep only axis points inside one or several closed ranges ``(low, high)``."""
         mask = window_mask(self.axis, ranges)
         if not mask.any():
-            shown = ", ".join(f"{lo:g}-{hi:g} {self.axis_unit}" for lo, hi in _ranges(ranges))
+            shown = describe_window(ranges, self.axis_unit)
             raise DataError(
                 f"{where(self.source)}no axis points inside the window {shown};"
                 f" the data span {self.axis[0]:g}-{self.axis[-1]:g} {self.axis_unit}"
@@ -337,6 +337,12 @@ def window_mask(axis: np.ndarray, ranges: Sequence[tuple[float, float]] | tuple[
     for lo, hi in _ranges(ranges):
         mask |= (axis >= lo) & (axis <= hi)
     return mask
+
+
+def describe_window(ranges: Sequence[tuple[float, float]] | tuple[float, float],
+                    unit: str) -> str:
+    """Ranges as people write them, e.g. ``"800-900 nm, 950-990 nm"`` (for messages)."""
+    return ", ".join(f"{lo:g}-{hi:g} {unit}" for lo, hi in _ranges(ranges))
 
 
 def _ranges(ranges: Sequence[tuple[float, float]] | tuple[float, float]
