@@ -86,3 +86,29 @@ def test_file_system_errors_are_one_line(tmp_path, capsys):
     assert main(["demo", "--out", str(blocker)]) == 2
     err = capsys.readouterr().err.strip()
     assert len(err.splitlines()) == 1 and "afile" in err and "Traceback" not in err
+
+
+def test_group_cross_validation_with_text_labels(tmp_path, capsys):
+    # Replicates of one physical sample share a text label; groups:COLUMN keeps them together.
+    import pandas as pd
+
+    rng = np.random.default_rng(4)
+    C = rng.uniform(0, 1, (24, 3))
+    ids = [f"m{i:02d}" for i in range(24)]
+    spectra = pd.DataFrame(C @ K + rng.normal(0, 0.002, (24, AXIS.size)),
+                           columns=[f"{w:g}" for w in AXIS])
+    spectra.insert(0, "sample", ids)
+    spectra.to_csv(tmp_path / "s.csv", index=False)
+    conc = pd.DataFrame(C, columns=["a [mg/L]", "b [mg/L]", "c [mg/L]"])
+    conc.insert(0, "sample", ids)
+    conc["day"] = [f"day{i % 4}" for i in range(24)]
+    conc.to_csv(tmp_path / "c.csv", index=False)
+    code = main(["build", "--method", "pls", "--spectra", str(tmp_path / "s.csv"),
+                 "--concentrations", str(tmp_path / "c.csv"), "--cv", "groups:day",
+                 "--out", str(tmp_path / "m.bsm")])
+    assert code == 0, capsys.readouterr().err
+    from bandsolve.bundle import load_model
+
+    model = load_model(tmp_path / "m.bsm")
+    assert model.analytes == ("a [mg/L]", "b [mg/L]", "c [mg/L]")  # the label is no analyte
+    assert model.selection["models"][0]["cv"] == "groups"

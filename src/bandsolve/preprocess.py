@@ -15,7 +15,7 @@ from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from .errors import ModelError
-from .spectra import window_mask
+from .spectra import describe_window, window_mask
 
 __all__ = ["SpectralPreprocessor", "parse_window"]
 
@@ -95,8 +95,8 @@ class SpectralPreprocessor(TransformerMixin, BaseEstimator):
             self.mask_ = window_mask(axis, self.window)
             if not self.mask_.any():
                 raise ModelError(
-                    f"the window {self.window} keeps no points of the axis "
-                    f"{axis.min():g}-{axis.max():g}"
+                    f"the window {describe_window(self.window, '')} keeps no points of the "
+                    f"axis {axis.min():g}-{axis.max():g}; choose ranges inside the measured axis"
                 )
         else:
             self.mask_ = np.ones(p, dtype=bool)

@@ -342,7 +342,8 @@ def window_mask(axis: np.ndarray, ranges: Sequence[tuple[float, float]] | tuple[
 def describe_window(ranges: Sequence[tuple[float, float]] | tuple[float, float],
                     unit: str) -> str:
     """Ranges as people write them, e.g. ``"800-900 nm, 950-990 nm"`` (for messages)."""
-    return ", ".join(f"{lo:g}-{hi:g} {unit}" for lo, hi in _ranges(ranges))
+    suffix = f" {unit}" if unit else ""
+    return ", ".join(f"{lo:g}-{hi:g}{suffix}" for lo, hi in _ranges(ranges))
 
 
 def _ranges(ranges: Sequence[tuple[float, float]] | tuple[float, float]

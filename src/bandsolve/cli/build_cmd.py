@@ -112,32 +112,28 @@ def _fingerprints(args: argparse.Namespace) -> dict:
     return {"training_files": files}
 
 
-def split_groups(
-    table: ConcentrationTable, cv: str
-) -> tuple[ConcentrationTable, np.ndarray | None]:
-    """Group labels for ``groups:COLUMN`` (a table column) or ``groups:~REGEX`` (sample ids)."""
+def read_with_groups(path: str, cv: str) -> tuple[ConcentrationTable, np.ndarray | None]:
+    """The concentration table and, for ``groups:COLUMN`` or ``groups:~REGEX``, group labels.
+
+    ``groups:COLUMN`` reads that column as text labels (not an analyte); ``groups:~REGEX``
+    takes each sample id's first capture group (or the whole match).
+    """
     if not cv.startswith("groups:"):
-        return table, None
+        return read_concentrations(path), None
     key = cv[len("groups:"):]
-    if key.startswith("~"):
-        rx = re.compile(key[1:])
-        labels = []
-        for s in table.sample_ids:
-            m = rx.search(s)
-            if m is None:
-                raise BandsolveError(
-                    f"sample id {s!r} does not match the group pattern {key[1:]!r}"
-                )
-            labels.append(m.group(1) if m.groups() else m.group(0))
-        return table, np.asarray(labels)
-    if key not in table.analytes:
-        raise BandsolveError(f"group column {key!r} is not in the concentration table "
-                             f"(columns: {', '.join(table.analytes)})")
-    j = table.analytes.index(key)
-    keep = [i for i in range(len(table.analytes)) if i != j]
-    rest = ConcentrationTable(table.sample_ids, [table.analytes[i] for i in keep],
-                              table.values[:, keep], table.source)
-    return rest, np.asarray(table.values[:, j])
+    if not key.startswith("~"):
+        table = read_concentrations(path, label_columns=[key])
+        return table, np.asarray(table.labels[key])
+    table = read_concentrations(path)
+    rx = re.compile(key[1:])
+    labels = []
+    for s in table.sample_ids:
+        m = rx.search(s)
+        if m is None:
+            raise BandsolveError(f"sample id {s!r} does not match the group pattern {key[1:]!r}; "
+                                 "write a pattern every calibration sample id matches")
+        labels.append(m.group(1) if m.groups() else m.group(0))
+    return table, np.asarray(labels)
 
 
 def build_from_args(args: argparse.Namespace) -> Calibration:
@@ -156,7 +152,8 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
     if not (args.spectra and args.concentrations):
         raise BandsolveError("give --spectra and --concentrations (or --absorptivity for CLS)")
     spectra = read_spectra(args.spectra, **read_options(args))
-    table = read_concentrations(args.concentrations)
+    table, groups = read_with_groups(args.concentrations,
+                                     args.cv if args.method == "pls" else "")
     blank = read_spectra(args.blank, **read_options(args)) if args.blank else None
     if args.method == "cls":
         return build_cls(spectra, table, intercept=args.intercept, baseline=args.baseline,
@@ -164,7 +161,6 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
                          ceiling=args.ceiling, provenance=prov)
     from ..build_pls import build_pls
 
-    table, groups = split_groups(table, args.cv)
     components = "auto" if args.components == "auto" else int(args.components)
     return build_pls(spectra, table, components=components, max_components=args.max_components,
                      cv=args.cv if groups is None else "groups", groups=groups,

@@ -11,7 +11,7 @@ from ..errors import BandsolveError
 from ..io import read_concentrations, read_spectra
 from ..preprocess import parse_window
 from ._common import add_input_options, read_options
-from .build_cmd import split_groups
+from .build_cmd import read_with_groups
 
 EXAMPLES = """\
 examples:
@@ -56,7 +56,7 @@ def run(args: argparse.Namespace) -> int:
         raise BandsolveError("give --test-spectra and --test-concentrations together")
     options = read_options(args)
     spectra = read_spectra(args.spectra, **options)
-    table, groups = split_groups(read_concentrations(args.concentrations), args.cv)
+    table, groups = read_with_groups(args.concentrations, args.cv)
     if groups is not None:  # group labels in the order of the spectra
         by_id = dict(zip(table.sample_ids, groups, strict=True))
         groups = [by_id.get(s, s) for s in spectra.sample_ids]
