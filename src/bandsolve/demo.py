@@ -167,7 +167,8 @@ def run_demo(folder: str | Path) -> DemoRun:
     prov = {"data_label": DEMO_LABEL, "training_files": [
         {"role": role, "name": p.name, "sha256": sha256_file(p)}
         for role, p in (("spectra", files.calibration_spectra),
-                        ("concentrations", files.calibration_concentrations))]}
+                        ("concentrations", files.calibration_concentrations),
+                        ("blanks", files.blanks))]}
     blanks = read_spectra(files.blanks)
     # The invented cell-positioning offset is modelled by an offset baseline term (it is what
     # `bandsolve compare` recommends on these data).
