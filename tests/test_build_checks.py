@@ -112,3 +112,39 @@ def test_group_cross_validation_with_text_labels(tmp_path, capsys):
     model = load_model(tmp_path / "m.bsm")
     assert model.analytes == ("a [mg/L]", "b [mg/L]", "c [mg/L]")  # the label is no analyte
     assert model.selection["models"][0]["cv"] == "groups"
+
+
+def test_two_standards_per_analyte_and_a_blank_build_cleanly():
+    # A common standards set: each analyte's standards are the only rows carrying it, so a
+    # leave-one-out fold can lack an analyte; the model must still build, with figures of merit.
+    rng = np.random.default_rng(5)
+    C = np.vstack([np.diag([v] * 3) for v in (0.4, 0.8)] + [np.zeros((1, 3))])
+    spectra = _set(C @ K + rng.normal(0, 0.002, (len(C), AXIS.size)), "std")
+    cal = build_cls(spectra, ConcentrationTable(spectra.sample_ids, ["a", "b", "c"], C))
+    assert cal.merit is not None
+    res = cal.predict(_set(np.array([[0.5, 0.2, 0.3]]) @ K, "u"))
+    np.testing.assert_allclose(res[["a", "b", "c"]].to_numpy()[0], [0.5, 0.2, 0.3], atol=0.02)
+
+
+def test_negative_flag_without_standard_error():
+    # Two wavelengths, two analytes: no SE; a clearly negative estimate is still flagged.
+    eps = SpectralSet(np.array([440.0, 545.0]), [[374.0, 9.0], [95.0, 2375.0]],
+                      ["x [mol/L]", "y [mol/L]"], quantity="absorptivity")
+    with pytest.warns(BandsolveWarning):
+        model = build_cls_from_absorptivities(eps, 1.0)
+    res = model.predict(SpectralSet(np.array([440.0, 545.0]), [[-0.3, 0.7]], ["u"]))
+    assert "negative:x [mol/L]" in res.loc[0, "flags"]
+
+
+def test_nan_in_a_spectrum_is_a_clear_error():
+    rng = np.random.default_rng(6)
+    C = rng.uniform(0, 1, (20, 3))
+    spectra = _set(C @ K + rng.normal(0, 0.002, (20, AXIS.size)), "cal")
+    from bandsolve.build_pls import build_pls
+
+    model = build_pls(spectra, ConcentrationTable(spectra.sample_ids, ["a", "b", "c"], C),
+                      components=3, cv="blinds:5")
+    X = spectra.values[:2].copy()
+    X[1, 10] = np.nan
+    with pytest.raises(Exception, match="NaN or infinite"):
+        model.detail(X)

@@ -16,6 +16,7 @@ from .cls import CLSRegressor
 from .concentrations import ConcentrationTable, align
 from .errors import BandsolveError, BandsolveWarning, DataError, ModelError, where
 from .model import Calibration
+from .model_detail import LEVERAGE_FACTOR
 from .preprocess import SpectralPreprocessor
 from .spectra import DEFAULT_CEILING_AU, SpectralSet
 
@@ -147,7 +148,7 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
     limits = {"residual": {"method": "Box scaled chi-squared fitted to leave-one-out "
                                      "calibration F ratios", "alpha": alpha,
                            "value": est.residual_limit_},
-              "leverage_factor": 3.0}
+              "leverage_factor": LEVERAGE_FACTOR}
     cal = Calibration(
         method="cls", analytes=table.analytes, axis=spectra.axis, axis_unit=spectra.axis_unit,
         preprocessor=pre, estimators=[est],

@@ -19,6 +19,7 @@ from .diagnostics import (
 )
 from .errors import ModelError
 from .model import Calibration
+from .model_detail import LEVERAGE_FACTOR
 from .pls import PLSRegressor
 from .preprocess import SpectralPreprocessor
 from .spectra import DEFAULT_CEILING_AU, SpectralSet
@@ -80,7 +81,7 @@ def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str =
         "q_limit": q.value,
         "q_method": q.method,
         "q_parameters": q.parameters,
-        "leverage_limit": leverage_limit(a, n, factor=3.0),
+        "leverage_limit": leverage_limit(a, n, factor=LEVERAGE_FACTOR),
         "msec": msec.tolist(),
         "rmsecv": cv_result.rmsecv[a - 1].tolist(),
     }
@@ -176,7 +177,7 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
         preprocessor=pre, estimators=models,
         calibrated_range=np.column_stack([C.min(axis=0), C.max(axis=0)]),
         settings=settings, path_length_cm=spectra.path_length_cm, ceiling=ceiling,
-        limits={"models": limits, "leverage_factor": 3.0},
+        limits={"models": limits, "leverage_factor": LEVERAGE_FACTOR},
         selection={"mode": mode, "models": evidence},
         provenance=provenance_record(provenance, len(C)),
     )

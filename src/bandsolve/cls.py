@@ -219,17 +219,25 @@ class CLSRegressor(RegressorMixin, BaseEstimator):
         return np.vstack([z**k for k in range(q)]) if q else np.empty((0, p))
 
     def _loo_f_ratios(self, X: np.ndarray, C: np.ndarray) -> np.ndarray:
-        """Leave-one-out F ratios by downdating CᵀC and CᵀA (METHODS §1b)."""
+        """Leave-one-out F ratios by downdating CᵀC and CᵀA (METHODS §1b).
+
+        A sample that alone carries an analyte (its only standard) cannot be left out: its
+        ratio is NaN and the limit is set from the others.
+        """
         gram, cross = C.T @ C, C.T @ X
-        out = np.empty(len(X))
+        baseline = self._baseline_rows(X.shape[1])
+        m = C.shape[1] - (1 if self.fit_intercept else 0)
+        out = np.full(len(X), np.nan)
         for i in range(len(X)):
             ci = C[i]
-            coef = linalg.solve(gram - np.outer(ci, ci), cross - np.outer(ci, X[i]),
-                                assume_a="pos")
-            m = coef.shape[0] - (1 if self.fit_intercept else 0)
-            K = np.vstack([coef[:m], self._baseline_rows(X.shape[1])])
-            a = X[i] - (coef[m] if self.fit_intercept else 0.0)
-            r = a - K.T @ linalg.solve(K @ K.T, K @ a, assume_a="pos")
+            try:
+                coef = linalg.solve(gram - np.outer(ci, ci), cross - np.outer(ci, X[i]),
+                                    assume_a="pos")
+                K = np.vstack([coef[:m], baseline])
+                a = X[i] - (coef[m] if self.fit_intercept else 0.0)
+                r = a - K.T @ linalg.solve(K @ K.T, K @ a, assume_a="pos")
+            except linalg.LinAlgError:
+                continue
             out[i] = r @ r / max(X.shape[1] - K.shape[0], 1) / self.s2_cal_
         return out
 
@@ -302,7 +310,8 @@ class CLSRegressor(RegressorMixin, BaseEstimator):
 
 
 def _residual_limit(f_ratios: np.ndarray, alpha: float) -> float:
-    """Box scaled-χ² limit of the leave-one-out F ratios; NaN with fewer than 3 of them."""
+    """Box scaled-χ² limit of the finite leave-one-out F ratios; NaN with fewer than 3."""
+    f_ratios = f_ratios[np.isfinite(f_ratios)]
     if f_ratios.size < 3:
         return float("nan")
     return f_limit_from_values(f_ratios, alpha, method="box").value

@@ -253,6 +253,11 @@ def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
                     random_state: int = 0) -> Comparison:
     """Compare CLS (without and with baseline terms) and PLS on identical folds.
 
+    The Holm correction runs across analytes for each CLS variant separately; the
+    recommendation then picks a variant, so with two variants the family-wise error rate of
+    the final choice can be up to twice the stated level. Read borderline p-values with that
+    in mind.
+
     Parameters
     ----------
     spectra, table : SpectralSet, ConcentrationTable

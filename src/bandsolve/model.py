@@ -265,14 +265,14 @@ class Calibration:
         scans, top = _scan_all(data, parts, mask if data is X else None)
         if data is not X:
             top = X.max(axis=1, where=mask, initial=-np.inf)
+        # A NaN or infinity anywhere in a used point reaches the sums of squares; checking
+        # them is cheaper than another pass over the spectra.
+        if not (all(np.isfinite(ss).all() for _, ss in scans) and np.isfinite(top).all()):
+            raise DataError("spectra contain NaN or infinite values; fix or remove them")
         if self.method == "cls":
             detail = cls_detail(self.estimators[0], *scans[0])
         else:
             detail = pls_detail(self.estimators, self.limits, scans)
-        # A NaN or infinity anywhere in a spectrum reaches its estimates; checking the small
-        # outputs is cheaper than another pass over the spectra.
-        if not (np.isfinite(detail.concentrations).all() and np.isfinite(top).all()):
-            raise DataError("spectra contain NaN or infinite values; fix or remove them")
         return dataclasses.replace(detail, max_absorbance=top)
 
     def _table(self, spectra: SpectralSet, d: Detail, over_ceiling: np.ndarray,
@@ -295,7 +295,7 @@ class Calibration:
             margin = 2.0 * np.where(finite, se, 0.0)  # significantly outside, not by noise
             checks += [(c - margin > hi, f"above_range:{label}"),
                        ((c + margin < lo) & (lo > 0), f"below_range:{label}"),
-                       (finite & (c < -margin), f"negative:{label}")]
+                       (c < -margin, f"negative:{label}")]
             missing_se |= ~finite
         checks.append((missing_se, "no_se"))
         cols["residual_ratio"] = d.residual_ratio

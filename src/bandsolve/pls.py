@@ -14,7 +14,7 @@ from sklearn.base import BaseEstimator, RegressorMixin, TransformerMixin
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from bandsolve._pls_kernels import gram_pls, kernel_pls
-from bandsolve._scan import ScanParts, scan
+from bandsolve._scan import ScanParts
 from bandsolve.errors import ModelError
 
 __all__ = ["PLSRegressor"]
@@ -265,16 +265,6 @@ class PLSRegressor(TransformerMixin, RegressorMixin, BaseEstimator):
             resid = block - (block @ rot) @ load.T
             out[start:start + _ROW_BLOCK] = np.einsum("ij,ij->i", resid, resid)
         return out
-
-    def detail_checked(self, X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Predictions (n, m), scores (n, A) and Q (n,) for a checked finite float array.
-
-        The batch-prediction path (:meth:`scan_parts` + :meth:`detail_from_scan`), with the
-        same results as :meth:`predict`, :meth:`transform` and :meth:`x_residual_ss` at
-        ``n_components_`` to rounding.
-        """
-        H, ss, _ = scan(X, self.scan_parts())
-        return self.detail_from_scan(H, ss)
 
     def scan_parts(self) -> ScanParts:
         """Product matrix ``[R/s, P/s, x̄/s²]`` and weights ``1/s²`` for :meth:`detail_from_scan`."""

@@ -134,7 +134,11 @@ def _pls_noise(cal: Calibration, Z: np.ndarray) -> NoiseEstimate:
 def _pls_signal(cal: Calibration, Z: np.ndarray, C: np.ndarray, blank_z: np.ndarray | None,
                 reference_variance: float | Sequence[float] | None) -> SignalFigures:
     noise = noise_from_blanks(blank_z) if blank_z is not None else _pls_noise(cal, Z)
-    blank = np.zeros(Z.shape[1]) if blank_z is None else blank_z.mean(axis=0)
+    # The blank composition's spectrum: the measured blank mean, unless the model subtracts a
+    # blank from every spectrum — then a routine blank becomes the zero spectrum.
+    subtracted = bool(cal.settings.get("blank_subtracted"))
+    blank = (np.zeros(Z.shape[1]) if blank_z is None or subtracted
+             else blank_z.mean(axis=0))
     coef, h0 = [], []
     for est in cal.estimators:
         b = np.asarray(est.coef_)
