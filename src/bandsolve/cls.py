@@ -16,7 +16,7 @@ from sklearn.base import BaseEstimator, RegressorMixin
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from ._scan import ScanParts, scan
-from .diagnostics import f_limit_from_values
+from .diagnostics import cls_calibration_variance, f_limit_from_values
 from .errors import ModelError
 
 __all__ = ["BASELINE_TERMS", "CLSRegressor", "CLSPrediction"]
@@ -129,7 +129,7 @@ class CLSRegressor(RegressorMixin, BaseEstimator):
         self._single_output = Y.ndim == 1
         Y = Y.reshape(len(Y), -1)
         C = self._design(Y)
-        n, p = X.shape
+        n = X.shape[0]
         if n < C.shape[1]:
             raise ModelError(
                 f"{n} calibration spectra cannot determine {C.shape[1]} model spectra; "
@@ -147,8 +147,8 @@ class CLSRegressor(RegressorMixin, BaseEstimator):
         coef = self.gram_inv_ @ (C.T @ X)
         self._set_spectra(coef)
         resid = X - C @ coef
-        dof_cal = p * (n - C.shape[1])
-        self.s2_cal_ = float(np.sum(resid**2) / dof_cal) if dof_cal > 0 else float("nan")
+        self.s2_cal_ = (cls_calibration_variance(resid, C.shape[1]) if n > C.shape[1]
+                        else float("nan"))
         self.cv_f_ratios_ = self._loo_f_ratios(X, C) if n > C.shape[1] + 1 else np.array([])
         self.residual_limit_ = _residual_limit(self.cv_f_ratios_, self.alpha)
         return self
