@@ -26,3 +26,17 @@ def test_batch_progress_counts_every_input(tmp_path):
 def test_bar_is_silent_when_not_a_terminal():
     assert progress_bar(stream=io.StringIO()) is None
     assert progress_bar(quiet=True) is None
+
+
+def test_compare_reports_each_stage():
+    from bandsolve.compare import compare_methods
+    from bandsolve.io import read_concentrations, read_spectra
+
+    demo = ROOT / "examples" / "rinse-water"
+    calls = []
+    compare_methods(read_spectra(demo / "calibration_spectra.csv"),
+                    read_concentrations(demo / "calibration_concentrations.csv"),
+                    cv="blinds:5", max_components=6, n_permutations=99,
+                    progress=lambda done, total, label: calls.append((done, total)))
+    # Two CLS variants, PLS, the tests and the evidence: five stages, counted in order.
+    assert calls == [(i, 5) for i in range(1, 6)]

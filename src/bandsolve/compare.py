@@ -42,6 +42,7 @@ from .crossval import (
 from .errors import DataError, ModelError
 from .pls import PLSRegressor
 from .preprocess import SpectralPreprocessor
+from .progress import ProgressCallback, step
 from .spectra import SpectralSet
 
 __all__ = ["AbsorberEvidence", "Comparison", "MethodResult", "PairedComparison",
@@ -250,7 +251,8 @@ def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
                     baseline: str = "linear", max_components: int = 15,
                     select: str = "randomization", select_alpha: float = 0.05,
                     alpha: float = 0.05, groups: Any = None, n_permutations: int = 999,
-                    random_state: int = 0) -> Comparison:
+                    random_state: int = 0,
+                    progress: ProgressCallback | None = None) -> Comparison:
     """Compare CLS (without and with baseline terms) and PLS on identical folds.
 
     The Holm correction runs across analytes for each CLS variant separately; the
@@ -281,6 +283,8 @@ def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
         Group labels for ``groups`` specs.
     n_permutations, random_state
         Randomization test settings.
+    progress : callable, optional
+        ``progress(done, total, label)`` after each stage (:mod:`bandsolve.progress`).
 
     Returns
     -------
@@ -308,14 +312,18 @@ def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
     if baseline != "none":
         variants[f"CLS+{baseline}"] = CLSRegressor(fit_intercept=intercept, baseline=baseline,
                                                    wavelengths=pre.axis_out_)
-    results = {name: cross_validate_estimator(est, Z, C, cv=fixed)
-               for name, est in variants.items()}
+    total = len(variants) + 3
+    results = {}
+    for i, (name, est) in enumerate(variants.items()):
+        results[name] = cross_validate_estimator(est, Z, C, cv=fixed)
+        step(progress, i + 1, total, f"cross-validating {name}")
     rmsecv = {name: res.rmsecv[0] for name, res in results.items()}
     errors = {name: res.errors[0] for name, res in results.items()}
     a_max = int(min(max_components, n - 2, p))
     if a_max < 1:
         raise ModelError(f"{n} calibration samples are too few for PLS; measure more mixtures")
     pls_cv = cross_validate_pls(Z, C, a_max, cv=fixed)
+    step(progress, len(variants) + 1, total, "cross-validating PLS")
     a = select_components(pls_cv, rule=select, alpha=select_alpha,
                           random_state=random_state).n_components
     pls_name = f"PLS ({a} comp.)"
@@ -338,12 +346,14 @@ def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
         tests += [PairedComparison(label, name, "test set" if test_errors else
                                    "cross-validation", float(s), float(x), float(y))
                   for label, s, x, y in zip(table.analytes, stat, pv, ph, strict=True)]
+    step(progress, len(variants) + 2, total, "randomization tests")
     plain = clone(variants["CLS"]).fit(Z, C)
     design = np.column_stack([C, np.ones(n)]) if intercept else C
     evidence = absorber_evidence(
         _cls_cv_residual_ss(variants["CLS"], Z, C, folds), C.shape[1],
         Z - C @ plain.pure_spectra_ - plain.background_, design,
         pls_cv.q_residuals[a - 1], a, C.shape[1], random_state)
+    step(progress, total, total, "absorber evidence")
     sq = {name: decide[name] ** 2 for name in names}
     recs = [_recommend(label, names, {nm: sq[nm][:, k] for nm in names},
                        [t for t in tests if t.analyte == label], evidence, alpha)

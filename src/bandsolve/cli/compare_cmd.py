@@ -10,6 +10,7 @@ from ..compare import compare_methods
 from ..errors import BandsolveError
 from ..io import read_concentrations, read_spectra
 from ..preprocess import parse_window
+from ..progress import progress_bar
 from ._common import add_input_options, read_options
 from .build_cmd import read_with_groups
 
@@ -47,6 +48,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--alpha", type=float, default=0.05,
                    help="level of the CLS-versus-PLS tests after Holm correction")
     p.add_argument("--json", action="store_true", help="machine-readable output")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
     add_input_options(p)
     p.set_defaults(func=run)
 
@@ -67,7 +69,7 @@ def run(args: argparse.Namespace) -> int:
         cv=args.cv if groups is None else "groups", groups=groups,
         window=parse_window(args.window) if args.window else None, intercept=args.intercept,
         baseline=args.baseline, max_components=args.max_components, select=args.select,
-        alpha=args.alpha)
+        alpha=args.alpha, progress=progress_bar(args.quiet))
     if args.json:
         print(json.dumps(result.to_dict(), indent=2))
     else:
