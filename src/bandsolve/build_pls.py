@@ -22,6 +22,7 @@ from .model import Calibration
 from .model_detail import LEVERAGE_FACTOR
 from .pls import PLSRegressor
 from .preprocess import SpectralPreprocessor
+from .progress import ProgressCallback, step
 from .spectra import DEFAULT_CEILING_AU, SpectralSet
 
 __all__ = ["build_pls", "fit_pls_with_limits"]
@@ -114,6 +115,7 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
               derivative: int = 0, offset: bool = False, blank: SpectralSet | None = None,
               blanks: SpectralSet | None = None, limit_alpha: float = 0.01,
               q_limit: str = "box", ceiling: float = DEFAULT_CEILING_AU,
+              progress: ProgressCallback | None = None,
               provenance: dict[str, Any] | None = None) -> Calibration:
     """Build a PLS calibration from calibration mixtures.
 
@@ -146,6 +148,8 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
         Significance level of the T², Q and flag limits.
     q_limit : {"jackson-mudholkar", "box"}
         How the Q limit is set (see :func:`fit_pls_with_limits`).
+    progress : callable, optional
+        ``progress(done, total, label)`` after each model (one per analyte for PLS1).
     """
     if mode not in ("pls1", "pls2"):
         raise ModelError(f"mode must be 'pls1' or 'pls2', not {mode!r}")
@@ -159,13 +163,14 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
     Z = pre.transform(spectra.values)
     targets = [C] if mode == "pls2" else [C[:, [k]] for k in range(C.shape[1])]
     models, limits, evidence = [], [], []
-    for Y in targets:
+    for i, Y in enumerate(targets):
         model, lim, ev = fit_pls_with_limits(
             Z, Y, components=components, max_components=max_components, cv=cv, groups=groups,
             select=select, alpha=alpha, scale=scale, limit_alpha=limit_alpha, q_limit=q_limit)
         models.append(model)
         limits.append(lim)
         evidence.append(ev)
+        step(progress, i + 1, len(targets), "cross-validating PLS")
     settings = {"mode": mode, "components": components, "max_components": max_components,
                 "cv": str(cv), "select": select, "alpha": alpha, "scale": scale,
                 "window": window, "savgol_window": savgol_window,

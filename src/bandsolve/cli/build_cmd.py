@@ -15,6 +15,7 @@ from ..errors import BandsolveError
 from ..io import read_absorptivities, read_concentrations, read_spectra
 from ..model import Calibration
 from ..preprocess import parse_window
+from ..progress import progress_bar
 from ._common import add_input_options, eprint, read_options
 
 EXAMPLES = """\
@@ -48,6 +49,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--blanks", metavar="FILE",
                    help="replicate blank spectra for the noise level of the figures of merit "
                         "(LOD, LOQ); without them it is estimated from calibration residuals")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument("--ceiling", type=float, default=2.0, metavar="AU",
                    help="photometric ceiling in absorbance units (default 2.0)")
     c = p.add_argument_group("CLS options")
@@ -168,7 +170,7 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
                      scale=args.scale, window=window, savgol_window=args.savgol_window,
                      derivative=args.derivative, offset=args.offset, blank=blank,
                      blanks=blanks, q_limit=args.q_limit, ceiling=args.ceiling,
-                     provenance=prov)
+                     provenance=prov, progress=progress_bar(args.quiet))
 
 
 def selection_table(cal: Calibration) -> str:
