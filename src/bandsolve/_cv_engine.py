@@ -92,6 +92,15 @@ def _fold_scale(ss_diag: np.ndarray, n_train: int, scale: bool) -> np.ndarray:
     return sd
 
 
+def _centre(engine: TallEngine | WideEngine, X: np.ndarray, Y: np.ndarray,
+            scale: bool) -> None:
+    """Centre X and Y once with the whole-set means (folds correct them by rank-one terms)."""
+    engine.x0 = X - X.mean(axis=0)
+    engine.y_offset = Y.mean(axis=0)
+    engine.y0 = Y - engine.y_offset
+    engine.scale = scale
+
+
 class TallEngine:
     """Downdated cross-products + improved kernel PLS (for n ≥ p).
 
@@ -104,10 +113,7 @@ class TallEngine:
     """
 
     def __init__(self, X: np.ndarray, Y: np.ndarray, scale: bool):
-        self.x0 = X - X.mean(axis=0)
-        self.y_offset = Y.mean(axis=0)
-        self.y0 = Y - self.y_offset
-        self.scale = scale
+        _centre(self, X, Y, scale)
         self.sxx = self.x0.T @ self.x0
         self.sxy = self.x0.T @ self.y0
         self.sx = self.x0.sum(axis=0)
@@ -144,10 +150,7 @@ class WideEngine:
     """
 
     def __init__(self, X: np.ndarray, Y: np.ndarray, scale: bool):
-        self.x0 = X - X.mean(axis=0)
-        self.y_offset = Y.mean(axis=0)
-        self.y0 = Y - self.y_offset
-        self.scale = scale
+        _centre(self, X, Y, scale)
         self.sx = self.x0.sum(axis=0)
         self.gram = None if scale else self.x0 @ self.x0.T
 
