@@ -13,16 +13,16 @@ import pytest
 from scipy import stats
 from sklearn.metrics import mean_squared_error, r2_score
 
-from bandsolve.assess import assess
-from bandsolve.build import build_cls
-from bandsolve.build_pls import build_pls
-from bandsolve.bundle import save_model
+from bandsolve.calibration.build import build_cls
+from bandsolve.calibration.build_pls import build_pls
+from bandsolve.calibration.merit import attach_merit
+from bandsolve.calibration.modelfile import save_model
 from bandsolve.cli import assess_cmd, main
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.errors import BandsolveWarning, DataError
+from bandsolve.evaluate.assess import assess
 from bandsolve.io import write_concentrations_csv, write_spectra_csv
 from bandsolve.spectra import SpectralSet
-from bandsolve.validation import attach_merit
 
 AXIS = np.linspace(400.0, 700.0, 121)
 K = np.vstack([np.exp(-0.5 * ((AXIS - c) / w) ** 2)  # broad overlapping bands, AU per mg/L

@@ -7,7 +7,7 @@ import warnings
 import numpy as np
 import pytest
 
-from bandsolve.build import build_cls, build_cls_from_absorptivities
+from bandsolve.calibration.build import build_cls, build_cls_from_absorptivities
 from bandsolve.cli import main
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.errors import BandsolveWarning
@@ -107,7 +107,7 @@ def test_group_cross_validation_with_text_labels(tmp_path, capsys):
                  "--concentrations", str(tmp_path / "c.csv"), "--cv", "groups:day",
                  "--out", str(tmp_path / "m.bsm")])
     assert code == 0, capsys.readouterr().err
-    from bandsolve.bundle import load_model
+    from bandsolve.calibration.modelfile import load_model
 
     model = load_model(tmp_path / "m.bsm")
     assert model.analytes == ("a [mg/L]", "b [mg/L]", "c [mg/L]")  # the label is no analyte
@@ -140,7 +140,7 @@ def test_nan_in_a_spectrum_is_a_clear_error():
     rng = np.random.default_rng(6)
     C = rng.uniform(0, 1, (20, 3))
     spectra = _set(C @ K + rng.normal(0, 0.002, (20, AXIS.size)), "cal")
-    from bandsolve.build_pls import build_pls
+    from bandsolve.calibration.build_pls import build_pls
 
     model = build_pls(spectra, ConcentrationTable(spectra.sample_ids, ["a", "b", "c"], C),
                       components=3, cv="blinds:5")

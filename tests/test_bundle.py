@@ -12,9 +12,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from bandsolve.build import build_cls, build_cls_from_absorptivities
-from bandsolve.build_pls import build_pls
-from bandsolve.bundle import SCHEMA_VERSION, load_model, model_checksum, save_model
+from bandsolve.calibration.build import build_cls, build_cls_from_absorptivities
+from bandsolve.calibration.build_pls import build_pls
+from bandsolve.calibration.modelfile import SCHEMA_VERSION, load_model, model_checksum, save_model
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.errors import ModelFileError
 from bandsolve.spectra import SpectralSet

@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
-from bandsolve.build import build_cls
+from bandsolve.calibration.build import build_cls
 from bandsolve.cls import CLSRegressor
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.errors import ModelError

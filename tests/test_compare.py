@@ -15,9 +15,9 @@ from scipy.ndimage import uniform_filter1d
 from sklearn.cross_decomposition import PLSRegression
 
 from bandsolve.cli import compare_cmd
-from bandsolve.compare import compare_methods, holm, paired_pvalues, residual_structure
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.crossval import make_splitter
+from bandsolve.evaluate.compare import compare_methods, holm, paired_pvalues, residual_structure
 from bandsolve.io import write_concentrations_csv, write_spectra_csv
 from bandsolve.spectra import SpectralSet
 

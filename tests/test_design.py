@@ -118,7 +118,7 @@ def test_twelve_columns_uncorrelated_but_linked_and_warned():
 
 
 def test_three_level_generator_is_primitive():
-    from bandsolve._design_points import CYCLIC_GENERATORS
+    from bandsolve.design.points import CYCLIC_GENERATORS
 
     alpha, beta = CYCLIC_GENERATORS[3]
     # Lidl & Niederreiter, Finite Fields (1997): an order-2 recurrence has the maximal period

@@ -6,8 +6,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
+from bandsolve.calibration.model import _flag_column
 from bandsolve.flags import FLAG_CODES, join_flags, split_flags
-from bandsolve.model import _flag_column
 
 
 @settings(max_examples=60, deadline=None)

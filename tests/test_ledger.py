@@ -16,14 +16,14 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from bandsolve.build import build_cls
-from bandsolve.bundle import save_model
+from bandsolve.batch.ledger import LedgerRecorder, list_inputs, list_results, list_runs
+from bandsolve.batch.predict import run_batch
+from bandsolve.calibration.build import build_cls
+from bandsolve.calibration.modelfile import save_model
 from bandsolve.cli import ledger_cmd, main
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.errors import DataError
 from bandsolve.io import write_spectra_csv
-from bandsolve.ledger import LedgerRecorder, list_inputs, list_results, list_runs
-from bandsolve.predict import run_batch
 from bandsolve.spectra import SpectralSet
 
 from .conftest import gaussian_bands

@@ -6,8 +6,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from bandsolve.build_pls import build_pls
-from bandsolve.bundle import load_model, save_model
+from bandsolve.calibration.build_pls import build_pls
+from bandsolve.calibration.modelfile import load_model, save_model
 from bandsolve.cli import main
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.spectra import SpectralSet

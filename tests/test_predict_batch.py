@@ -10,15 +10,15 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from bandsolve._output import format_for
-from bandsolve.build import build_cls
-from bandsolve.bundle import save_model
+from bandsolve.batch.images import FLAG_BITS, predict_cube
+from bandsolve.batch.predict import EVAL_ROWS, predict_inputs
+from bandsolve.batch.writers import format_for
+from bandsolve.calibration.build import build_cls
+from bandsolve.calibration.modelfile import save_model
 from bandsolve.cli import main
 from bandsolve.concentrations import ConcentrationTable
-from bandsolve.cube import FLAG_BITS, predict_cube
 from bandsolve.errors import FormatError
 from bandsolve.io import write_spectra_csv
-from bandsolve.predict import EVAL_ROWS, predict_inputs
 from bandsolve.spectra import SpectralSet
 
 from .conftest import gaussian_bands

@@ -6,8 +6,8 @@ import io
 import shutil
 from pathlib import Path
 
-from bandsolve.bundle import load_model
-from bandsolve.predict import predict_inputs, run_batch
+from bandsolve.batch.predict import predict_inputs, run_batch
+from bandsolve.calibration.modelfile import load_model
 from bandsolve.progress import progress_bar
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -29,7 +29,7 @@ def test_bar_is_silent_when_not_a_terminal():
 
 
 def test_compare_reports_each_stage():
-    from bandsolve.compare import compare_methods
+    from bandsolve.evaluate.compare import compare_methods
     from bandsolve.io import read_concentrations, read_spectra
 
     demo = ROOT / "examples" / "rinse-water"

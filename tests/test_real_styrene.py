@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from bandsolve.build import build_cls
+from bandsolve.calibration.build import build_cls
 from bandsolve.io import read_concentrations, read_spectra
 
 from .conftest import dataset

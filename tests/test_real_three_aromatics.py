@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from bandsolve.build import build_cls
+from bandsolve.calibration.build import build_cls
 from bandsolve.io import read_concentrations, read_spectra
 
 from .conftest import dataset

@@ -18,13 +18,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from bandsolve.build import build_cls
-from bandsolve.build_pls import build_pls
-from bandsolve.demo import DEMO_LABEL, write_demo_data
+from bandsolve.batch.predict import predict_inputs
+from bandsolve.calibration.build import build_cls
+from bandsolve.calibration.build_pls import build_pls
+from bandsolve.cli.demo_data import DEMO_LABEL, write_demo_data
 from bandsolve.flags import FLAG_CODES
 from bandsolve.io import read_concentrations, read_spectra
 from bandsolve.merit import FiguresOfMerit
-from bandsolve.predict import predict_inputs
 from bandsolve.report import SECTION_IDS, _sections, render_report, write_report
 from bandsolve.report import _views as V
 
@@ -230,7 +230,7 @@ def test_cli_writes_the_report(demo, tmp_path):
     report_cmd.register(parser.add_subparsers())
     files = demo["files"]
     model = tmp_path / "m.bsm"
-    from bandsolve.bundle import save_model
+    from bandsolve.calibration.modelfile import save_model
 
     save_model(demo["cls"], model)
     out = tmp_path / "r.html"
@@ -275,8 +275,8 @@ def test_frame_table_hides_a_plain_row_count_and_shows_missing_as_a_dash():
 
 @pytest.fixture(scope="module")
 def printed_report(demo, tmp_path_factory):
-    from bandsolve.assess import assess
-    from bandsolve.compare import compare_methods
+    from bandsolve.evaluate.assess import assess
+    from bandsolve.evaluate.compare import compare_methods
 
     folder = tmp_path_factory.mktemp("printed")
     bad = folder / "bad.csv"
@@ -321,7 +321,7 @@ def test_skipped_batch_inputs_are_listed_with_their_reason(printed_report):
 
 
 def test_cli_reports_skipped_batch_inputs_and_exits_partial(demo, tmp_path, capsys):
-    from bandsolve.bundle import save_model
+    from bandsolve.calibration.modelfile import save_model
     from bandsolve.cli import EXIT_PARTIAL, report_cmd
 
     parser = argparse.ArgumentParser()

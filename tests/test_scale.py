@@ -6,11 +6,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from bandsolve.build import build_cls
-from bandsolve.build_pls import build_pls
+from bandsolve.batch.predict import EVAL_ROWS, evaluate_set, predict_inputs
+from bandsolve.calibration.build import build_cls
+from bandsolve.calibration.build_pls import build_pls
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.io import write_spectra_csv
-from bandsolve.predict import EVAL_ROWS, evaluate_set, predict_inputs
 from bandsolve.spectra import SpectralSet
 
 from .conftest import gaussian_bands
@@ -19,7 +19,7 @@ da = pytest.importorskip("dask.array")
 dd = pytest.importorskip("dask.dataframe")
 distributed = pytest.importorskip("distributed")
 
-from bandsolve.scale import numeric_columns, predict_dask  # noqa: E402
+from bandsolve.batch.scaleout import numeric_columns, predict_dask  # noqa: E402
 
 AXIS = np.linspace(400.0, 700.0, 101)
 PURE = gaussian_bands(AXIS, (480, 530, 590), (40, 45, 40))

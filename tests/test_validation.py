@@ -10,14 +10,14 @@ import numpy as np
 import pytest
 from sklearn.cross_decomposition import PLSRegression
 
-from bandsolve.build import build_cls, build_cls_from_absorptivities
-from bandsolve.build_pls import build_pls
-from bandsolve.bundle import load_model, save_model
+from bandsolve.calibration.build import build_cls, build_cls_from_absorptivities
+from bandsolve.calibration.build_pls import build_pls
+from bandsolve.calibration.merit import attach_merit, calibration_merit
+from bandsolve.calibration.modelfile import load_model, save_model
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.errors import DataError
 from bandsolve.merit import FiguresOfMerit
 from bandsolve.spectra import SpectralSet
-from bandsolve.validation import attach_merit, calibration_merit
 
 DATASETS = Path(__file__).resolve().parents[1] / ".." / "shared" / "datasets"
 AXIS = np.linspace(400.0, 700.0, 151)

@@ -9,11 +9,11 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from .errors import BandsolveWarning, DataError, where
-from .units import guess_axis_unit
+from bandsolve.errors import BandsolveWarning, DataError, where
+from bandsolve.units import guess_axis_unit
 
 if TYPE_CHECKING:
-    from .spectra import SpectralSet
+    from bandsolve.spectra import SpectralSet
 
 __all__ = ["check_axis", "check_ids", "check_finite", "check_transmittance_scale",
            "digits_to_tell_apart", "warn_if_ambiguous_unit"]

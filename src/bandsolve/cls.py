@@ -15,9 +15,9 @@ from scipy import linalg, stats
 from sklearn.base import BaseEstimator, RegressorMixin
 from sklearn.utils.validation import check_is_fitted, validate_data
 
-from ._scan import ScanParts, scan
-from .diagnostics import cls_calibration_variance, f_limit_from_values
-from .errors import ModelError
+from bandsolve._scan import ScanParts, scan
+from bandsolve.diagnostics import cls_calibration_variance, f_limit_from_values
+from bandsolve.errors import ModelError
 
 __all__ = ["BASELINE_TERMS", "CLSRegressor", "CLSPrediction"]
 

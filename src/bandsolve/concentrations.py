@@ -9,8 +9,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from .errors import DataError, where
-from .spectra import SpectralSet
+from bandsolve.errors import DataError, where
+from bandsolve.spectra import SpectralSet
 
 __all__ = ["ConcentrationTable", "split_unit", "align"]
 

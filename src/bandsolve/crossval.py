@@ -27,14 +27,14 @@ from sklearn.model_selection import (
 )
 
 from bandsolve._cv_engine import CVResult, FoldOutput, TallEngine, WideEngine
-from bandsolve._cv_selection import (
+from bandsolve._threads import single_blas_thread
+from bandsolve.errors import DataError, ModelError
+from bandsolve.selection import (
     ComponentSelection,
     RandomizationResult,
     randomization_test,
     select_components,
 )
-from bandsolve._threads import single_blas_thread
-from bandsolve.errors import DataError, ModelError
 
 __all__ = [
     "CVResult",

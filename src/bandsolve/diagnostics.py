@@ -13,8 +13,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats
 
-from bandsolve._stats import as_float_array, check_alpha
 from bandsolve.errors import DataError, ModelFileError
+from bandsolve.merit.statistics import as_float_array, check_alpha
 
 __all__ = [
     "ResidualLimit",

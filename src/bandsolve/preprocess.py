@@ -14,8 +14,8 @@ from scipy.signal import savgol_filter
 from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.utils.validation import check_is_fitted, validate_data
 
-from .errors import ModelError
-from .spectra import describe_window, window_mask
+from bandsolve.errors import ModelError
+from bandsolve.spectra import describe_window, window_mask
 
 __all__ = ["SpectralPreprocessor", "parse_window"]
 

@@ -15,7 +15,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ._spectra_checks import (
+from bandsolve._spectra_checks import (
     check_axis,
     check_finite,
     check_ids,
@@ -23,8 +23,8 @@ from ._spectra_checks import (
     digits_to_tell_apart,
     warn_if_ambiguous_unit,
 )
-from .errors import BandsolveWarning, DataError, where
-from .units import convert_axis_values, normalise_unit
+from bandsolve.errors import BandsolveWarning, DataError, where
+from bandsolve.units import convert_axis_values, normalise_unit
 
 __all__ = [
     "QUANTITIES", "DEFAULT_CEILING_AU", "TRANSMITTANCE_LIMIT", "END_SLACK_STEPS", "SpectralSet",

@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import constants
 
-from .errors import DataError
+from bandsolve.errors import DataError
 
 __all__ = ["AXIS_UNITS", "normalise_unit", "convert_axis_values", "guess_axis_unit", "axis_label"]
 

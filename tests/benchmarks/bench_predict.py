@@ -28,11 +28,11 @@ from pathlib import Path
 
 import numpy as np
 
-from bandsolve.build import build_cls
-from bandsolve.build_pls import build_pls
+from bandsolve.batch.predict import predict_inputs
+from bandsolve.calibration.build import build_cls
+from bandsolve.calibration.build_pls import build_pls
+from bandsolve.calibration.model import EVAL_ROWS
 from bandsolve.concentrations import ConcentrationTable
-from bandsolve.model import EVAL_ROWS
-from bandsolve.predict import predict_inputs
 from bandsolve.spectra import SpectralSet
 
 

@@ -14,8 +14,8 @@ import traceback
 import warnings
 from collections.abc import Sequence
 
-from .. import __version__
-from ..errors import BandsolveError, BandsolveWarning
+from bandsolve import __version__
+from bandsolve.errors import BandsolveError, BandsolveWarning
 
 __all__ = ["main", "EXIT_OK", "EXIT_INTERNAL", "EXIT_INPUT", "EXIT_PARTIAL", "EXIT_FLAGGED"]
 
@@ -23,7 +23,7 @@ EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_PARTIAL, EXIT_FLAGGED = 0, 1, 2, 3, 4
 
 
 def _command_modules():
-    from . import (
+    from bandsolve.cli import (
         assess_cmd,
         build_cmd,
         compare_cmd,

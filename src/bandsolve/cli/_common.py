@@ -7,7 +7,7 @@ import sys
 
 import pandas as pd
 
-from ..io.atomic import atomic_write
+from bandsolve.io.atomic import atomic_write
 
 
 def add_input_options(parser: argparse.ArgumentParser) -> None:

@@ -5,11 +5,11 @@ from __future__ import annotations
 import argparse
 import json
 
-from ..assess import assess, read_spectra_files
-from ..bundle import load_model
-from ..cautions import SHORT_CAUTION
-from ..io import read_concentrations
-from ._common import add_input_options, read_options, write_table
+from bandsolve.calibration.modelfile import load_model
+from bandsolve.cautions import SHORT_CAUTION
+from bandsolve.cli._common import add_input_options, read_options, write_table
+from bandsolve.evaluate.assess import assess, read_spectra_files
+from bandsolve.io import read_concentrations
 
 EXAMPLES = """\
 examples:

@@ -8,15 +8,15 @@ from pathlib import Path
 
 import numpy as np
 
-from ..build import build_cls, build_cls_from_absorptivities
-from ..bundle import save_model, sha256_file
-from ..concentrations import ConcentrationTable
-from ..errors import BandsolveError
-from ..io import read_absorptivities, read_concentrations, read_spectra
-from ..model import Calibration
-from ..preprocess import parse_window
-from ..progress import progress_bar
-from ._common import add_input_options, eprint, read_options
+from bandsolve.calibration.build import build_cls, build_cls_from_absorptivities
+from bandsolve.calibration.model import Calibration
+from bandsolve.calibration.modelfile import save_model, sha256_file
+from bandsolve.cli._common import add_input_options, eprint, read_options
+from bandsolve.concentrations import ConcentrationTable
+from bandsolve.errors import BandsolveError
+from bandsolve.io import read_absorptivities, read_concentrations, read_spectra
+from bandsolve.preprocess import parse_window
+from bandsolve.progress import progress_bar
 
 EXAMPLES = """\
 examples:
@@ -161,7 +161,7 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
         return build_cls(spectra, table, intercept=args.intercept, baseline=args.baseline,
                          window=window, blank=blank, blanks=blanks, alpha=args.alpha,
                          ceiling=args.ceiling, provenance=prov)
-    from ..build_pls import build_pls
+    from bandsolve.calibration.build_pls import build_pls
 
     components = "auto" if args.components == "auto" else int(args.components)
     return build_pls(spectra, table, components=components, max_components=args.max_components,

@@ -5,14 +5,14 @@ from __future__ import annotations
 import argparse
 import json
 
-from ..cautions import SHORT_CAUTION
-from ..compare import compare_methods
-from ..errors import BandsolveError
-from ..io import read_concentrations, read_spectra
-from ..preprocess import parse_window
-from ..progress import progress_bar
-from ._common import add_input_options, read_options
-from .build_cmd import read_with_groups
+from bandsolve.cautions import SHORT_CAUTION
+from bandsolve.cli._common import add_input_options, read_options
+from bandsolve.cli.build_cmd import read_with_groups
+from bandsolve.errors import BandsolveError
+from bandsolve.evaluate.compare import compare_methods
+from bandsolve.io import read_concentrations, read_spectra
+from bandsolve.preprocess import parse_window
+from bandsolve.progress import progress_bar
 
 EXAMPLES = """\
 examples:

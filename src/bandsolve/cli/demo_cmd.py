@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import argparse
 
-from ..cautions import SHORT_CAUTION
-from ..demo import DEMO_LABEL, run_demo
-from ._common import eprint
+from bandsolve.cautions import SHORT_CAUTION
+from bandsolve.cli._common import eprint
+from bandsolve.cli.demo_data import DEMO_LABEL, run_demo
 
 
 def register(sub: argparse._SubParsersAction) -> None:

@@ -5,9 +5,9 @@ from __future__ import annotations
 import argparse
 import json
 
-from ..bundle import load_model
-from ..merit import FiguresOfMerit
-from ..model import Calibration
+from bandsolve.calibration.model import Calibration
+from bandsolve.calibration.modelfile import load_model
+from bandsolve.merit import FiguresOfMerit
 
 
 def register(sub: argparse._SubParsersAction) -> None:

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import argparse
 
-from ..io.atomic import atomic_write
-from ..ledger import list_inputs, list_results, list_runs
-from ._common import eprint
+from bandsolve.batch.ledger import list_inputs, list_results, list_runs
+from bandsolve.cli._common import eprint
+from bandsolve.io.atomic import atomic_write
 
 EXAMPLES = """\
 examples:

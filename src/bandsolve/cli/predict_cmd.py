@@ -6,15 +6,15 @@ import argparse
 import contextlib
 import sys
 
-from .._output import FORMATS, format_for, open_writer
-from ..bundle import load_model
-from ..errors import FormatError
-from ..io.atomic import atomic_write
-from ..ledger import LedgerRecorder, check_ledger
-from ..predict import DEFAULT_CHUNK, result_table_columns, run_batch
-from ..progress import progress_bar
-from . import EXIT_FLAGGED, EXIT_PARTIAL
-from ._common import add_input_options, eprint, read_options
+from bandsolve.batch.ledger import LedgerRecorder, check_ledger
+from bandsolve.batch.predict import DEFAULT_CHUNK, result_table_columns, run_batch
+from bandsolve.batch.writers import FORMATS, format_for, open_writer
+from bandsolve.calibration.modelfile import load_model
+from bandsolve.cli import EXIT_FLAGGED, EXIT_PARTIAL
+from bandsolve.cli._common import add_input_options, eprint, read_options
+from bandsolve.errors import FormatError
+from bandsolve.io.atomic import atomic_write
+from bandsolve.progress import progress_bar
 
 EXAMPLES = """\
 examples:
@@ -28,7 +28,7 @@ examples:
 Large wide CSV files are streamed --chunk-size spectra at a time; the numbers never depend
 on --chunk-size, --jobs or --scheduler. An input that fails contributes no rows.
 A .npy input is a spectral image (rows x columns x wavelengths, absorbance): --out names a
-folder that receives one concentration map per analyte and a flag map (see bandsolve.cube).
+folder that receives one concentration map per analyte and a flag map (see bandsolve.batch.images).
 
 exit codes: 0 all inputs predicted; 2 bad model or options; 3 some inputs could not be read
 (the rest were predicted; when none was, no results file is written); 4 with
@@ -92,7 +92,7 @@ def _summary_line(summary, out: str | None) -> str:
 
 
 def _run_cubes(model, args: argparse.Namespace) -> int:
-    from ..cube import predict_cube
+    from bandsolve.batch.images import predict_cube
 
     if not all(i.lower().endswith(".npy") for i in args.inputs) or args.out in (None, "-"):
         raise FormatError("spectral images (.npy) are predicted on their own, with --out "

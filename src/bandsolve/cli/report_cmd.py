@@ -8,13 +8,13 @@ import importlib.util
 from collections.abc import Callable
 from typing import Any
 
-from ..bundle import load_model
-from ..io import read_concentrations, read_spectra
-from ..predict import predict_inputs
-from ..progress import progress_bar
-from ..report import write_report
-from . import EXIT_OK, EXIT_PARTIAL
-from ._common import add_input_options, eprint, read_options
+from bandsolve.batch.predict import predict_inputs
+from bandsolve.calibration.modelfile import load_model
+from bandsolve.cli import EXIT_OK, EXIT_PARTIAL
+from bandsolve.cli._common import add_input_options, eprint, read_options
+from bandsolve.io import read_concentrations, read_spectra
+from bandsolve.progress import progress_bar
+from bandsolve.report import write_report
 
 EXAMPLES = """\
 examples:

@@ -10,12 +10,12 @@ from __future__ import annotations
 from collections.abc import Iterator
 from pathlib import Path
 
-from ..spectra import SpectralSet
-from .csv_spectra import iter_spectra_chunks as _iter_csv_chunks
-from .csv_spectra import read_spectra_text, write_spectra_csv
-from .jcamp import JCAMP_SUFFIXES, read_jcamp
-from .single import read_file, read_folder
-from .tables import read_absorptivities, read_concentrations, write_concentrations_csv
+from bandsolve.io.csv_spectra import iter_spectra_chunks as _iter_csv_chunks
+from bandsolve.io.csv_spectra import read_spectra_text, write_spectra_csv
+from bandsolve.io.jcamp import JCAMP_SUFFIXES, read_jcamp
+from bandsolve.io.single import read_file, read_folder
+from bandsolve.io.tables import read_absorptivities, read_concentrations, write_concentrations_csv
+from bandsolve.spectra import SpectralSet
 
 __all__ = [
     "read_spectra",

@@ -8,9 +8,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import BandsolveError, DataError, FormatError, where
-from ..spectra import QUANTITIES, SpectralSet, warn_if_ambiguous_unit
-from ..units import guess_axis_unit, normalise_unit
+from bandsolve.errors import BandsolveError, DataError, FormatError, where
+from bandsolve.spectra import QUANTITIES, SpectralSet, warn_if_ambiguous_unit
+from bandsolve.units import guess_axis_unit, normalise_unit
 
 _QUANTITY_ALIASES = {
     "a": "absorbance", "abs": "absorbance", "au": "absorbance",

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import FormatError, where
+from bandsolve.errors import FormatError, where
 
 # SQZ: absolute value whose first digit carries the sign; DIF: difference to the previous
 # value; DUP: total number of occurrences of the previous token (McDonald & Wilks 1988).

@@ -19,7 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import FormatError, where
+from bandsolve.errors import FormatError, where
 
 _DELIMITERS: tuple[str | None, ...] = ("\t", ";", ",", None)  # None: runs of whitespace
 _COMMA_DECIMAL = re.compile(r"^[+-]?\d*,\d+(?:[eE][+-]?\d+)?$")

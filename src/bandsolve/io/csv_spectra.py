@@ -26,11 +26,11 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import FormatError, where
-from ..spectra import SpectralSet
-from ._build import Options, build, final_checks, options_from_file
-from ._text import Dialect, Row, data_lines, read_text, sniff, split_rows, to_numbers
-from .atomic import atomic_write
+from bandsolve.errors import FormatError, where
+from bandsolve.io._build import Options, build, final_checks, options_from_file
+from bandsolve.io._text import Dialect, Row, data_lines, read_text, sniff, split_rows, to_numbers
+from bandsolve.io.atomic import atomic_write
+from bandsolve.spectra import SpectralSet
 
 __all__ = ["LAYOUTS", "read_spectra_text", "iter_spectra_chunks", "write_spectra_csv"]
 

@@ -25,11 +25,11 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import FormatError, where
-from ..spectra import SpectralSet
-from ._build import Options, build, final_checks
-from ._jcamp_data import Grid, decode_xydata, decode_xypoints
-from ._text import read_text
+from bandsolve.errors import FormatError, where
+from bandsolve.io._build import Options, build, final_checks
+from bandsolve.io._jcamp_data import Grid, decode_xydata, decode_xypoints
+from bandsolve.io._text import read_text
+from bandsolve.spectra import SpectralSet
 
 __all__ = ["JCAMP_SUFFIXES", "read_jcamp", "read_jcamp_text"]
 

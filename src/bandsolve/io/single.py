@@ -5,11 +5,11 @@ from __future__ import annotations
 import warnings
 from pathlib import Path
 
-from ..errors import BandsolveWarning, FormatError, where
-from ..spectra import SpectralSet, concat
-from ._build import Options, build, final_checks
-from .csv_spectra import read_spectra_file
-from .jcamp import JCAMP_SUFFIXES, read_jcamp
+from bandsolve.errors import BandsolveWarning, FormatError, where
+from bandsolve.io._build import Options, build, final_checks
+from bandsolve.io.csv_spectra import read_spectra_file
+from bandsolve.io.jcamp import JCAMP_SUFFIXES, read_jcamp
+from bandsolve.spectra import SpectralSet, concat
 
 __all__ = ["read_file", "read_folder"]
 

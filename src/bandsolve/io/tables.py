@@ -10,12 +10,21 @@ from pathlib import Path
 
 import numpy as np
 
-from ..concentrations import ConcentrationTable, split_unit
-from ..errors import BandsolveWarning, DataError, FormatError, where
-from ..spectra import SpectralSet
-from ._text import Dialect, Row, data_lines, is_number, read_text, sniff, split_rows, to_numbers
-from .atomic import atomic_write
-from .csv_spectra import read_spectra_text
+from bandsolve.concentrations import ConcentrationTable, split_unit
+from bandsolve.errors import BandsolveWarning, DataError, FormatError, where
+from bandsolve.io._text import (
+    Dialect,
+    Row,
+    data_lines,
+    is_number,
+    read_text,
+    sniff,
+    split_rows,
+    to_numbers,
+)
+from bandsolve.io.atomic import atomic_write
+from bandsolve.io.csv_spectra import read_spectra_text
+from bandsolve.spectra import SpectralSet
 
 __all__ = ["read_concentrations", "read_absorptivities", "write_concentrations_csv"]
 

@@ -8,6 +8,6 @@
 
 from __future__ import annotations
 
-from .html import SECTION_IDS, render_report, write_report
+from bandsolve.report.html import SECTION_IDS, render_report, write_report
 
 __all__ = ["SECTION_IDS", "render_report", "write_report"]

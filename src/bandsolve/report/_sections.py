@@ -12,12 +12,12 @@ import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
 
-from ..cautions import CAUTIONS
-from ..flags import FLAG_CODES
-from ..merit import FiguresOfMerit
-from ..model import Calibration, result_columns
-from ..units import axis_label
-from ._views import ReportFigure
+from bandsolve.calibration.model import Calibration, result_columns
+from bandsolve.cautions import CAUTIONS
+from bandsolve.flags import FLAG_CODES
+from bandsolve.merit import FiguresOfMerit
+from bandsolve.report._views import ReportFigure
+from bandsolve.units import axis_label
 
 #: Resolution of the embedded PNG figures (dots per inch).
 DPI = 110

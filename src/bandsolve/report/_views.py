@@ -12,13 +12,13 @@ import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
 
-from ..concentrations import ConcentrationTable, align, split_unit
-from ..errors import DataError, where
-from ..flags import split_flags
-from ..merit import FiguresOfMerit, cls_figures, cls_net_analyte_signal
-from ..model import Calibration, result_columns
-from ..spectra import SpectralSet
-from . import figures as F
+from bandsolve.calibration.model import Calibration, result_columns
+from bandsolve.concentrations import ConcentrationTable, align, split_unit
+from bandsolve.errors import DataError, where
+from bandsolve.flags import split_flags
+from bandsolve.merit import FiguresOfMerit, cls_figures, cls_net_analyte_signal
+from bandsolve.report import figures as F
+from bandsolve.spectra import SpectralSet
 
 
 @dataclass(frozen=True)

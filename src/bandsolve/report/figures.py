@@ -29,8 +29,8 @@ from matplotlib.collections import LineCollection
 from matplotlib.colors import Normalize
 from matplotlib.figure import Figure
 
-from ..concentrations import split_unit
-from ..units import axis_label
+from bandsolve.concentrations import split_unit
+from bandsolve.units import axis_label
 
 __all__ = [
     "LINE_STYLES",

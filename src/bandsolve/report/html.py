@@ -14,15 +14,15 @@ from typing import Any
 
 import pandas as pd
 
-from .. import __version__
-from ..concentrations import ConcentrationTable
-from ..io.atomic import atomic_write
-from ..merit import FiguresOfMerit
-from ..model import Calibration
-from ..progress import ProgressCallback, step
-from ..spectra import SpectralSet
-from . import _sections as S
-from . import _views as V
+from bandsolve import __version__
+from bandsolve.calibration.model import Calibration
+from bandsolve.concentrations import ConcentrationTable
+from bandsolve.io.atomic import atomic_write
+from bandsolve.merit import FiguresOfMerit
+from bandsolve.progress import ProgressCallback, step
+from bandsolve.report import _sections as S
+from bandsolve.report import _views as V
+from bandsolve.spectra import SpectralSet
 
 __all__ = ["SECTION_IDS", "render_report", "write_report"]
 
@@ -48,7 +48,7 @@ def _merit(cal: Calibration, spectra: SpectralSet | None, table: ConcentrationTa
         return FiguresOfMerit.from_dict(cal.merit), "Figures of merit stored with the model."
     if spectra is None and blanks is None:
         return None, cal.provenance.get("merit_note", "")
-    from ..validation import calibration_merit
+    from bandsolve.calibration.merit import calibration_merit
 
     noise = (f"{len(blanks.sample_ids)} replicate blank spectra" if blanks is not None
              else "the calibration residuals")
@@ -160,7 +160,8 @@ def write_report(cal: Calibration, path: str | Path, *,
         predictions, residuals and outlier map, and PLS selectivities.
     assessment, comparison : optional
         Objects with ``summary() -> str`` and ``to_frame() -> DataFrame`` (from
-        :func:`bandsolve.assess.assess` and :func:`bandsolve.compare.compare_methods`).
+        :func:`bandsolve.evaluate.assess.assess` and
+        :func:`bandsolve.evaluate.compare.compare_methods`).
     batch : BatchResult or DataFrame, optional
         Prediction results (columns of :meth:`Calibration.predict`); the failures of a
         BatchResult (inputs that could not be read) are listed with their reasons.
@@ -169,7 +170,7 @@ def write_report(cal: Calibration, path: str | Path, *,
         figures of the validation section (the table is optional).
     blanks : SpectralSet, optional
         Replicate blank spectra for the noise of the figures of merit, which are computed
-        (:func:`bandsolve.validation.calibration_merit`) when the model stores none and
+        (:func:`bandsolve.calibration.merit.calibration_merit`) when the model stores none and
         calibration data or blanks are given.
     title : str, optional
     progress : callable, optional

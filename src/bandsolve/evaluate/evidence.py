@@ -1,7 +1,7 @@
-"""Statistics behind :mod:`bandsolve.compare`: paired tests with a Holm correction, and the
+"""Statistics behind :mod:`bandsolve.evaluate.compare`: paired tests with a Holm correction, and the
 evidence that an absorber is missing from a CLS model.
 
-Public names are re-exported by :mod:`bandsolve.compare`.
+Public names are re-exported by :mod:`bandsolve.evaluate.compare`.
 """
 
 from __future__ import annotations
@@ -11,9 +11,9 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from .crossval import randomization_test
-from .diagnostics import q_limit_from_values
-from .errors import DataError
+from bandsolve.crossval import randomization_test
+from bandsolve.diagnostics import q_limit_from_values
+from bandsolve.errors import DataError
 
 __all__ = ["AbsorberEvidence", "ResidualStructure", "absorber_evidence", "holm",
            "paired_pvalues", "residual_structure"]

@@ -1,8 +1,8 @@
-"""Private helpers shared by :mod:`bandsolve.diagnostics` and :mod:`bandsolve.merit`.
+"""Statistics shared by figures of merit and diagnostics.
 
 Input checking at the public boundary; noise estimates, the statistics of predicted against
 reference values (:func:`regression_statistics`) and the single-wavelength baseline
-(:func:`univariate_calibration`), which :mod:`bandsolve.merit` re-exports.
+(:func:`univariate_calibration`).
 """
 
 from __future__ import annotations

@@ -10,7 +10,7 @@ from collections.abc import Callable, Sequence
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from bandsolve._design_units import AnalyteRange
+from bandsolve.design.amounts import AnalyteRange
 from bandsolve.errors import BandsolveWarning, DataError
 from bandsolve.progress import ProgressCallback, step
 

@@ -6,10 +6,17 @@ from typing import Any
 
 import numpy as np
 
-from .build import check_ceiling, provenance_record, training_arrays, with_merit
-from .concentrations import ConcentrationTable
-from .crossval import cross_validate_pls, select_components
-from .diagnostics import (
+from bandsolve.calibration.build import (
+    check_ceiling,
+    provenance_record,
+    training_arrays,
+    with_merit,
+)
+from bandsolve.calibration.detail import LEVERAGE_FACTOR
+from bandsolve.calibration.model import Calibration
+from bandsolve.concentrations import ConcentrationTable
+from bandsolve.crossval import cross_validate_pls, select_components
+from bandsolve.diagnostics import (
     ResidualLimit,
     leverage_limit,
     q_limit_from_values,
@@ -17,13 +24,11 @@ from .diagnostics import (
     residual_eigenvalues,
     t2_limit,
 )
-from .errors import ModelError
-from .model import Calibration
-from .model_detail import LEVERAGE_FACTOR
-from .pls import PLSRegressor
-from .preprocess import SpectralPreprocessor
-from .progress import ProgressCallback, step
-from .spectra import DEFAULT_CEILING_AU, SpectralSet
+from bandsolve.errors import ModelError
+from bandsolve.pls import PLSRegressor
+from bandsolve.preprocess import SpectralPreprocessor
+from bandsolve.progress import ProgressCallback, step
+from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
 
 __all__ = ["build_pls", "fit_pls_with_limits"]
 
@@ -143,7 +148,7 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
         Row-wise preprocessing (:class:`~bandsolve.preprocess.SpectralPreprocessor`).
     blank, blanks : SpectralSet, optional
         ``blank`` is subtracted from every spectrum; ``blanks`` are replicate blanks for σx of
-        the figures of merit (see :func:`bandsolve.build.build_cls`).
+        the figures of merit (see :func:`bandsolve.calibration.build.build_cls`).
     limit_alpha : float
         Significance level of the T², Q and flag limits.
     q_limit : {"jackson-mudholkar", "box"}

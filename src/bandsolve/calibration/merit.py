@@ -1,4 +1,5 @@
-"""Figures of merit of a built :class:`~bandsolve.model.Calibration`, stored in the model file.
+"""Figures of merit of a built :class:`~bandsolve.calibration.model.Calibration`, stored in the
+model file.
 
 :func:`calibration_merit` turns a fitted CLS or PLS calibration and its training data into a
 :class:`~bandsolve.merit.FiguresOfMerit` table (SEN, SEL, γ, LOD, LOQ, RMSEC, RMSECV and the
@@ -32,11 +33,12 @@ from typing import Any
 import numpy as np
 from sklearn.base import clone
 
-from .concentrations import ConcentrationTable, align, split_unit
-from .crossval import cross_validate_estimator
-from .diagnostics import leverage
-from .errors import DataError, ModelError
-from .merit import (
+from bandsolve.calibration.model import Calibration
+from bandsolve.concentrations import ConcentrationTable, align, split_unit
+from bandsolve.crossval import cross_validate_estimator
+from bandsolve.diagnostics import leverage
+from bandsolve.errors import DataError, ModelError
+from bandsolve.merit import (
     FiguresOfMerit,
     NoiseEstimate,
     SignalFigures,
@@ -49,8 +51,7 @@ from .merit import (
     regression_statistics,
     univariate_calibration,
 )
-from .model import Calibration
-from .spectra import SpectralSet
+from bandsolve.spectra import SpectralSet
 
 __all__ = ["attach_merit", "calibration_merit", "signal_unit"]
 
@@ -197,7 +198,8 @@ def calibration_merit(cal: Calibration, spectra: SpectralSet | None,
     Parameters
     ----------
     cal : Calibration
-        A CLS or PLS calibration from :mod:`bandsolve.build` / :mod:`bandsolve.build_pls`.
+        A CLS or PLS calibration from :mod:`bandsolve.calibration.build` /
+        :mod:`bandsolve.calibration.build_pls`.
     spectra : SpectralSet or None
         The calibration spectra exactly as the model was fitted to them (blank-subtracted if
         the model was built with a blank), n spectra; None only for a CLS model built from
@@ -271,7 +273,7 @@ def attach_merit(cal: Calibration, spectra: SpectralSet | None,
     """Return a copy of ``cal`` whose ``merit`` holds :func:`calibration_merit` as a dict.
 
     The dict is :meth:`FiguresOfMerit.to_dict` output (JSON-serialisable), so
-    :func:`bandsolve.bundle.save_model` stores it and
+    :func:`bandsolve.calibration.modelfile.save_model` stores it and
     ``FiguresOfMerit.from_dict(cal.merit)`` rebuilds the table.
 
     Parameters

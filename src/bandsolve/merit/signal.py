@@ -18,35 +18,20 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.linalg import solve_triangular
 
-from bandsolve._merit_table import AnalyteFigures, FiguresOfMerit, figures_of_merit
-from bandsolve._stats import (
-    NoiseEstimate,
-    RegressionStatistics,
-    UnivariateCalibration,
-    as_float_array,
-    noise_from_blanks,
-    noise_from_residuals,
-    regression_statistics,
-    univariate_calibration,
-)
 from bandsolve.errors import DataError, ModelError
+from bandsolve.merit.statistics import (
+    NoiseEstimate,
+    as_float_array,
+)
 
 __all__ = [
-    "AnalyteFigures",
-    "FiguresOfMerit",
-    "NoiseEstimate",
-    "RegressionStatistics",
+    "LOD_FACTOR",
+    "LOQ_FACTOR",
     "SignalFigures",
-    "UnivariateCalibration",
     "blank_leverage",
     "cls_figures",
     "cls_net_analyte_signal",
-    "figures_of_merit",
     "inverse_figures",
-    "noise_from_blanks",
-    "noise_from_residuals",
-    "regression_statistics",
-    "univariate_calibration",
 ]
 
 #: 3.3 = 2 × 1.645: false-positive and false-negative rates of 5 % each (IUPAC).

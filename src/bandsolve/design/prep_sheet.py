@@ -11,9 +11,9 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from bandsolve._design_plan import CalibrationPlan
-from bandsolve._design_units import Amount, concentration_factor
 from bandsolve.cautions import SHORT_CAUTION
+from bandsolve.design.amounts import Amount, concentration_factor
+from bandsolve.design.plan import CalibrationPlan
 from bandsolve.errors import DataError, where
 from bandsolve.io.atomic import atomic_write
 

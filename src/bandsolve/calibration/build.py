@@ -10,15 +10,15 @@ from typing import Any
 
 import numpy as np
 
-from . import __version__
-from ._stats import noise_from_blanks
-from .cls import CLSRegressor
-from .concentrations import ConcentrationTable, align
-from .errors import BandsolveError, BandsolveWarning, DataError, ModelError, where
-from .model import Calibration
-from .model_detail import LEVERAGE_FACTOR
-from .preprocess import SpectralPreprocessor
-from .spectra import DEFAULT_CEILING_AU, SpectralSet
+from bandsolve import __version__
+from bandsolve.calibration.detail import LEVERAGE_FACTOR
+from bandsolve.calibration.model import Calibration
+from bandsolve.cls import CLSRegressor
+from bandsolve.concentrations import ConcentrationTable, align
+from bandsolve.errors import BandsolveError, BandsolveWarning, DataError, ModelError, where
+from bandsolve.merit.statistics import noise_from_blanks
+from bandsolve.preprocess import SpectralPreprocessor
+from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
 
 __all__ = ["build_cls", "build_cls_from_absorptivities", "check_ceiling", "library_versions",
            "provenance_record", "training_arrays", "with_merit"]
@@ -161,13 +161,13 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
 
 def with_merit(cal: Calibration, spectra: SpectralSet | None,
                table: ConcentrationTable | None, blanks: SpectralSet | None) -> Calibration:
-    """The calibration with its figures of merit stored (see :mod:`bandsolve.validation`).
+    """The calibration with its figures of merit stored (see :mod:`bandsolve.calibration.merit`).
 
     When the data cannot support them (for example no replicate blanks and no calibration
     residual degrees of freedom to estimate the noise), the model is still built; the reason
     is kept in ``provenance["merit_note"]`` and ``merit`` stays None.
     """
-    from .validation import attach_merit
+    from bandsolve.calibration.merit import attach_merit
 
     try:
         return attach_merit(cal, spectra, table, blanks=blanks)

@@ -9,11 +9,11 @@ from typing import TYPE_CHECKING
 
 import pandas as pd
 
-from bandsolve._stats import RegressionStatistics, UnivariateCalibration
 from bandsolve.errors import DataError, ModelFileError
+from bandsolve.merit.statistics import RegressionStatistics, UnivariateCalibration
 
 if TYPE_CHECKING:  # only for annotations: merit imports this module
-    from bandsolve.merit import SignalFigures
+    from bandsolve.merit.signal import SignalFigures
 
 __all__ = ["AnalyteFigures", "FiguresOfMerit", "figures_of_merit"]
 

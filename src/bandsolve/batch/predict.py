@@ -28,10 +28,10 @@ from typing import Any, Protocol
 import numpy as np
 import pandas as pd
 
-from .errors import BandsolveError, DataError, FormatError
-from .model import EVAL_ROWS, Calibration, result_columns
-from .progress import ProgressCallback, step
-from .spectra import SpectralSet
+from bandsolve.calibration.model import EVAL_ROWS, Calibration, result_columns
+from bandsolve.errors import BandsolveError, DataError, FormatError
+from bandsolve.progress import ProgressCallback, step
+from bandsolve.spectra import SpectralSet
 
 __all__ = ["EVAL_ROWS", "BatchFailure", "BatchResult", "BatchSummary", "expand_inputs",
            "predict_inputs", "predict_sets", "run_batch", "result_table_columns", "iter_array_sets",
@@ -126,8 +126,8 @@ def expand_inputs(inputs: Sequence[str], pattern: str | None = None) -> list[str
 # ---------------------------------------------------------------------- reading
 def _streamable(item: str, options: dict[str, Any]) -> bool:
     """True when ``item`` can be streamed as a wide table with the same result as reading it."""
-    from .io import read_spectra_text
-    from .io.jcamp import JCAMP_SUFFIXES
+    from bandsolve.io import read_spectra_text
+    from bandsolve.io.jcamp import JCAMP_SUFFIXES
 
     path = Path(item)
     if path.suffix.lower() in JCAMP_SUFFIXES or options.get("replicates") == "average":
@@ -150,7 +150,7 @@ def _streamable(item: str, options: dict[str, Any]) -> bool:
 
 def _read_sets(item: str, options: dict[str, Any], stdin_text: str | None,
                chunk_size: int) -> Iterator[SpectralSet]:
-    from .io import iter_spectra_chunks, read_spectra, read_spectra_text
+    from bandsolve.io import iter_spectra_chunks, read_spectra, read_spectra_text
 
     if item == "-":
         yield read_spectra_text(stdin_text or "", source="<stdin>", **options)
@@ -175,7 +175,7 @@ def _rows(s: SpectralSet, start: int, stop: int) -> SpectralSet:
 
 def _regroup(sets: Iterable[SpectralSet], task_rows: int) -> Iterator[SpectralSet]:
     """Re-cut consecutive sets into sets of exactly ``task_rows`` rows (the last may be short)."""
-    from .spectra import concat
+    from bandsolve.spectra import concat
 
     pending: list[SpectralSet] = []
     held = 0

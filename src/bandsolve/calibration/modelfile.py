@@ -25,11 +25,11 @@ from typing import Any
 
 import numpy as np
 
-from .cls import CLSRegressor
-from .errors import ModelFileError
-from .io.atomic import atomic_write
-from .model import Calibration
-from .preprocess import SpectralPreprocessor
+from bandsolve.calibration.model import Calibration
+from bandsolve.cls import CLSRegressor
+from bandsolve.errors import ModelFileError
+from bandsolve.io.atomic import atomic_write
+from bandsolve.preprocess import SpectralPreprocessor
 
 __all__ = ["SCHEMA_VERSION", "save_model", "load_model", "sha256_file", "model_checksum"]
 
@@ -38,7 +38,7 @@ FORMAT_NAME = "bandsolve-model"
 
 
 def _estimator_classes() -> dict[str, type]:
-    from .pls import PLSRegressor
+    from bandsolve.pls import PLSRegressor
 
     return {"CLSRegressor": CLSRegressor, "PLSRegressor": PLSRegressor,
             "SpectralPreprocessor": SpectralPreprocessor}

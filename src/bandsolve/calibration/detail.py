@@ -6,8 +6,8 @@ from typing import Any
 
 import numpy as np
 
-from .cls import CLSRegressor
-from .model import Detail
+from bandsolve.calibration.model import Detail
+from bandsolve.cls import CLSRegressor
 
 __all__ = ["cls_detail", "pls_detail", "LEVERAGE_FACTOR"]
 
@@ -56,7 +56,7 @@ def pls_detail(models: list[Any], limits: dict[str, Any],
     the largest over the per-analyte models for PLS1. ``scans`` holds each model's scan
     products ``(H, ss)`` (:meth:`PLSRegressor.scan_parts`).
     """
-    from .diagnostics import hotelling_t2
+    from bandsolve.diagnostics import hotelling_t2
 
     n = scans[0][0].shape[0]
     concs, ses, dofs = [], [], []

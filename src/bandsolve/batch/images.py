@@ -9,7 +9,7 @@ another axis covering the model's range is resampled like any spectra.
 Output, in the output folder: ``<stem>.<analyte>.npy`` (rows × cols float64) per analyte
 (the analyte label made file-safe) and ``<stem>.flags.npy`` (rows × cols uint16), a bit mask
 with the bits of :data:`FLAG_BITS`. Pixels go through the same chunked, parallel path as
-batch prediction (:mod:`bandsolve.predict`), so the numbers equal those of the table.
+batch prediction (:mod:`bandsolve.batch.predict`), so the numbers equal those of the table.
 """
 
 from __future__ import annotations
@@ -22,10 +22,10 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import DataError, FormatError
-from .io.atomic import atomic_write
-from .model import Calibration
-from .predict import DEFAULT_CHUNK, iter_array_sets, predict_sets
+from bandsolve.batch.predict import DEFAULT_CHUNK, iter_array_sets, predict_sets
+from bandsolve.calibration.model import Calibration
+from bandsolve.errors import DataError, FormatError
+from bandsolve.io.atomic import atomic_write
 
 __all__ = ["FLAG_BITS", "CubeResult", "predict_cube", "flag_bits"]
 
@@ -57,7 +57,7 @@ class CubeResult:
 
 def flag_bits(flags: Sequence[str]) -> np.ndarray:
     """Bit masks (uint16) of ``;``-joined flag strings, per :data:`FLAG_BITS`."""
-    from .flags import split_flags
+    from bandsolve.flags import split_flags
 
     out = np.zeros(len(flags), dtype=np.uint16)
     for i, text in enumerate(flags):
@@ -97,7 +97,7 @@ def predict_cube(model: Calibration, path: str | os.PathLike[str],
     axis : array_like of shape (p,), optional
         Spectral axis of the cube in the model's unit.
     chunk_size, n_jobs
-        As in :func:`bandsolve.predict.run_batch`.
+        As in :func:`bandsolve.batch.predict.run_batch`.
 
     Returns
     -------

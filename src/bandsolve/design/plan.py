@@ -10,14 +10,14 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
-from bandsolve._design_points import (
+from bandsolve.design.amounts import AnalyteRange
+from bandsolve.design.points import (
     CYCLIC_GENERATORS,
     cyclic_design,
     d_efficiency,
     d_optimal_design,
     validation_set,
 )
-from bandsolve._design_units import AnalyteRange
 from bandsolve.errors import DataError
 from bandsolve.progress import ProgressCallback
 

@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .io.atomic import atomic_write
+from bandsolve.io.atomic import atomic_write
 
 __all__ = ["DEMO_LABEL", "DemoFiles", "write_demo_data", "demo_pure_spectra"]
 
@@ -90,7 +90,7 @@ def _write_conc(path: Path, frame: pd.DataFrame) -> None:
 
 def write_demo_data(folder: str | Path) -> DemoFiles:
     """Generate the invented demo files into ``folder`` (same content on every run)."""
-    from .design import calibration_plan, parse_analyte_range
+    from bandsolve.design import calibration_plan, parse_analyte_range
 
     folder = Path(folder)
     rng = np.random.default_rng(RANDOM_STATE)
@@ -154,11 +154,11 @@ def run_demo(folder: str | Path) -> DemoRun:
     Files go under ``folder``: the data, ``models/rinse-cls.bsm``, ``models/rinse-pls.bsm``,
     ``results.csv`` (CLS) and ``results-pls.csv``.
     """
-    from .build import build_cls
-    from .build_pls import build_pls
-    from .bundle import save_model, sha256_file
-    from .io import read_concentrations, read_spectra
-    from .predict import predict_inputs
+    from bandsolve.batch.predict import predict_inputs
+    from bandsolve.calibration.build import build_cls
+    from bandsolve.calibration.build_pls import build_pls
+    from bandsolve.calibration.modelfile import save_model, sha256_file
+    from bandsolve.io import read_concentrations, read_spectra
 
     folder = Path(folder)
     files = write_demo_data(folder)
@@ -193,10 +193,10 @@ def run_demo(folder: str | Path) -> DemoRun:
 
 def _write_report(folder: Path, model, spectra, table, files: DemoFiles, batch) -> Path:
     """The HTML report of the CLS model: validation, CLS-vs-PLS comparison, routine batch."""
-    from .assess import assess
-    from .compare import compare_methods
-    from .io import read_concentrations, read_spectra
-    from .report import write_report
+    from bandsolve.evaluate.assess import assess
+    from bandsolve.evaluate.compare import compare_methods
+    from bandsolve.io import read_concentrations, read_spectra
+    from bandsolve.report import write_report
 
     val_spectra = read_spectra(files.validation_spectra)
     val_table = read_concentrations(files.validation_concentrations)

@@ -3,13 +3,13 @@
 :func:`predict_dask` maps the model over row blocks of a Dask array (``map_blocks``) or the
 partitions of a Dask DataFrame (``map_partitions``); nothing is computed until you ask, so it
 runs on whatever scheduler is active (threads, processes, a ``dask.distributed`` cluster).
-Rows are always evaluated in the fixed blocks of :data:`bandsolve.predict.EVAL_ROWS` counted
+Rows are always evaluated in the fixed blocks of :data:`bandsolve.batch.predict.EVAL_ROWS` counted
 from row 0 (arrays are rechunked to whole blocks), so the numbers are bit-identical to
-:func:`bandsolve.predict.predict_inputs` on the same spectra. DataFrame partitions whose
+:func:`bandsolve.batch.predict.predict_inputs` on the same spectra. DataFrame partitions whose
 lengths are not whole blocks give results equal to rounding (about 1e-15 relative).
 
 For a batch of files on a cluster use ``bandsolve predict ... --scheduler ADDRESS``
-(:func:`bandsolve.predict.run_batch` with ``scheduler=``).
+(:func:`bandsolve.batch.predict.run_batch` with ``scheduler=``).
 """
 
 from __future__ import annotations
@@ -19,11 +19,11 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .cube import flag_bits
-from .errors import BandsolveError, DataError
-from .model import Calibration
-from .predict import EVAL_ROWS, evaluate_set, result_table_columns
-from .spectra import SpectralSet
+from bandsolve.batch.images import flag_bits
+from bandsolve.batch.predict import EVAL_ROWS, evaluate_set, result_table_columns
+from bandsolve.calibration.model import Calibration
+from bandsolve.errors import BandsolveError, DataError
+from bandsolve.spectra import SpectralSet
 
 __all__ = ["numeric_columns", "predict_dask"]
 
@@ -34,7 +34,7 @@ def numeric_columns(model: Calibration) -> list[str]:
     """Columns of the array :func:`predict_dask` returns for a Dask array, in order.
 
     The result-table columns that are numbers, then ``flag_bits`` (the flag bit mask of
-    :data:`bandsolve.cube.FLAG_BITS`, as a float).
+    :data:`bandsolve.batch.images.FLAG_BITS`, as a float).
     """
     return [c for c in result_table_columns(model) if c not in _TEXT] + ["flag_bits"]
 

@@ -36,9 +36,9 @@ from urllib.parse import quote
 
 import pandas as pd
 
-from . import __version__
-from .errors import DataError
-from .model import Calibration
+from bandsolve import __version__
+from bandsolve.calibration.model import Calibration
+from bandsolve.errors import DataError
 
 __all__ = ["LedgerRecorder", "check_ledger", "list_runs", "list_inputs", "list_results"]
 
@@ -83,7 +83,8 @@ def _json_value(v: Any) -> Any:
 
 
 class LedgerRecorder:
-    """A batch sink that records one run in a ledger (see :func:`bandsolve.predict.run_batch`).
+    """A batch sink that records one run in a ledger (see
+    :func:`bandsolve.batch.predict.run_batch`).
 
     Parameters
     ----------
@@ -102,7 +103,7 @@ class LedgerRecorder:
     def __init__(self, path: str | os.PathLike[str], model: Calibration, *,
                  model_path: str | None = None, batch: str | None = None,
                  operator: str | None = None, stdin_text: str | None = None) -> None:
-        from .bundle import model_checksum
+        from bandsolve.calibration.modelfile import model_checksum
 
         self.path = Path(path)
         check_ledger(self.path, new_ok=True)
@@ -148,7 +149,7 @@ class LedgerRecorder:
     def _sha(self, item: str) -> str | None:
         if item == "-":
             return self._stdin_sha
-        from .bundle import sha256_file
+        from bandsolve.calibration.modelfile import sha256_file
 
         try:
             return sha256_file(item) if os.path.isfile(item) else None

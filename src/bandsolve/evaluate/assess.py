@@ -20,12 +20,12 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .concentrations import ConcentrationTable, align, split_unit
-from .errors import BandsolveWarning, DataError
-from .flags import split_flags
-from .merit import RegressionStatistics, regression_statistics
-from .model import Calibration
-from .spectra import SpectralSet
+from bandsolve.calibration.model import Calibration
+from bandsolve.concentrations import ConcentrationTable, align, split_unit
+from bandsolve.errors import BandsolveWarning, DataError
+from bandsolve.flags import split_flags
+from bandsolve.merit import RegressionStatistics, regression_statistics
+from bandsolve.spectra import SpectralSet
 
 __all__ = ["AnalyteAssessment", "Assessment", "SpectraFiles", "assess", "calibration_files",
            "read_spectra_files"]
@@ -50,7 +50,7 @@ def read_spectra_files(inputs: Sequence[str], read_options: dict[str, Any] | Non
     ----------
     inputs : sequence of str
         Spectra files (each may hold many spectra) and folders, searched recursively by
-        :func:`bandsolve.predict.expand_inputs`.
+        :func:`bandsolve.batch.predict.expand_inputs`.
     read_options : dict, optional
         Keyword arguments of :func:`bandsolve.io.read_spectra`.
     pattern : str, optional
@@ -62,9 +62,9 @@ def read_spectra_files(inputs: Sequence[str], read_options: dict[str, Any] | Non
         The sets stacked in file order (:func:`bandsolve.spectra.concat`: one grid, unit,
         quantity and path length), and the files read.
     """
-    from .io import read_spectra
-    from .predict import expand_inputs
-    from .spectra import concat
+    from bandsolve.batch.predict import expand_inputs
+    from bandsolve.io import read_spectra
+    from bandsolve.spectra import concat
 
     files = expand_inputs(inputs, pattern)
     sets = [read_spectra(f, **(read_options or {})) for f in files]
@@ -73,7 +73,7 @@ def read_spectra_files(inputs: Sequence[str], read_options: dict[str, Any] | Non
 
 def calibration_files(cal: Calibration, files: Sequence[str]) -> tuple[str, ...]:
     """The ``files`` whose SHA-256 equals that of a file the model was built from."""
-    from .bundle import sha256_file
+    from bandsolve.calibration.modelfile import sha256_file
 
     known = {f.get("sha256") for f in cal.provenance.get("training_files") or []
              if isinstance(f, dict)}

@@ -24,21 +24,7 @@ Analyst, 122, 1521–1529.
 
 from __future__ import annotations
 
-from bandsolve._design_plan import (
-    AbsorbanceCheck,
-    CalibrationPlan,
-    DesignQuality,
-    calibration_plan,
-)
-from bandsolve._design_points import (
-    cyclic_design,
-    d_efficiency,
-    d_optimal_design,
-    level_values,
-    range_decimals,
-    validation_set,
-)
-from bandsolve._design_units import (
+from bandsolve.design.amounts import (
     Amount,
     AnalyteRange,
     absorptivities_for,
@@ -47,7 +33,21 @@ from bandsolve._design_units import (
     parse_analyte_range,
     parse_volume,
 )
-from bandsolve._prep_sheet import (
+from bandsolve.design.plan import (
+    AbsorbanceCheck,
+    CalibrationPlan,
+    DesignQuality,
+    calibration_plan,
+)
+from bandsolve.design.points import (
+    cyclic_design,
+    d_efficiency,
+    d_optimal_design,
+    level_values,
+    range_decimals,
+    validation_set,
+)
+from bandsolve.design.prep_sheet import (
     VOLUME_FIGURES,
     PipetteFlag,
     PreparationSheet,

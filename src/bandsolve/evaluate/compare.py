@@ -22,7 +22,17 @@ import pandas as pd
 from sklearn.base import clone
 from sklearn.model_selection import check_cv
 
-from ._compare_evidence import (
+from bandsolve.calibration.build import training_arrays
+from bandsolve.cls import BASELINE_TERMS, CLSRegressor
+from bandsolve.concentrations import ConcentrationTable
+from bandsolve.crossval import (
+    cross_validate_estimator,
+    cross_validate_pls,
+    make_splitter,
+    select_components,
+)
+from bandsolve.errors import DataError, ModelError
+from bandsolve.evaluate.evidence import (
     AbsorberEvidence,
     ResidualStructure,
     absorber_evidence,
@@ -30,20 +40,10 @@ from ._compare_evidence import (
     paired_pvalues,
     residual_structure,
 )
-from .build import training_arrays
-from .cls import BASELINE_TERMS, CLSRegressor
-from .concentrations import ConcentrationTable
-from .crossval import (
-    cross_validate_estimator,
-    cross_validate_pls,
-    make_splitter,
-    select_components,
-)
-from .errors import DataError, ModelError
-from .pls import PLSRegressor
-from .preprocess import SpectralPreprocessor
-from .progress import ProgressCallback, step
-from .spectra import SpectralSet
+from bandsolve.pls import PLSRegressor
+from bandsolve.preprocess import SpectralPreprocessor
+from bandsolve.progress import ProgressCallback, step
+from bandsolve.spectra import SpectralSet
 
 __all__ = ["AbsorberEvidence", "Comparison", "MethodResult", "PairedComparison",
            "Recommendation", "ResidualStructure", "compare_methods", "holm", "paired_pvalues",

@@ -18,12 +18,12 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ._scan import ScanParts, embed, scan
-from ._threads import single_blas_thread
-from .errors import DataError, ModelError, where
-from .flags import join_flags
-from .preprocess import SpectralPreprocessor
-from .spectra import DEFAULT_CEILING_AU, SpectralSet
+from bandsolve._scan import ScanParts, embed, scan
+from bandsolve._threads import single_blas_thread
+from bandsolve.errors import DataError, ModelError, where
+from bandsolve.flags import join_flags
+from bandsolve.preprocess import SpectralPreprocessor
+from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
 
 __all__ = ["EVAL_ROWS", "INTERVAL_LEVEL", "Calibration", "Detail", "result_columns"]
 
@@ -248,7 +248,7 @@ class Calibration:
         )
 
     def _detail_block(self, X: np.ndarray) -> Detail:
-        from .model_detail import cls_detail, pls_detail
+        from bandsolve.calibration.detail import cls_detail, pls_detail
 
         if self.method not in ("cls", "pls"):
             raise ModelError(f"unknown method {self.method!r} in the model")

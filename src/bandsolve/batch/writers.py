@@ -16,7 +16,7 @@ from typing import IO, Any
 
 import pandas as pd
 
-from .errors import FormatError
+from bandsolve.errors import FormatError
 
 __all__ = ["FORMATS", "open_writer", "format_for"]
 

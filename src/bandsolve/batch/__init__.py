@@ -1,0 +1,8 @@
+"""Running a frozen calibration on routine samples.
+
+* :mod:`~bandsolve.batch.predict` — files and folders in, one results table out.
+* :mod:`~bandsolve.batch.writers` — CSV, JSON and Parquet results writers.
+* :mod:`~bandsolve.batch.ledger` — the SQLite record of every run.
+* :mod:`~bandsolve.batch.images` — spectral images (``.npy`` cubes) to concentration maps.
+* :mod:`~bandsolve.batch.scaleout` — the same prediction on a Dask cluster.
+"""
