@@ -82,7 +82,7 @@ def test_statistics_agree_with_scikit_learn_and_scipy(model_and_test):
 def test_unseen_absorber_is_flagged_and_inflates_rmsep(model_and_test):
     cal, spectra, table = model_and_test
     result = assess(cal, spectra, table)
-    flags = result.samples["flags"]
+    flags = result.samples["flag_codes"]
     # An absorber of 0.3 AU at its peak leaves a residual ~100× the noise (theory): all five
     # are flagged; of 20 clean spectra at most a few (limit at α = 0.01) are.
     assert all("residual" in f for f in flags[:5])

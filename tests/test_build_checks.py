@@ -33,14 +33,14 @@ def test_absorptivity_model_flags_foreign_band_only_with_blanks():
     foreign = _set(clean.values + FOREIGN, "f")
     with pytest.warns(BandsolveWarning, match="no residual limit"):
         blind = build_cls_from_absorptivities(eps, 1.0)
-    assert not blind.predict(foreign)["flags"].str.contains("residual").any()
+    assert not blind.predict(foreign)["flag_codes"].str.contains("residual").any()
     assert "--blanks" in blind.predict(foreign)["notes"][0]
     with warnings.catch_warnings():
         warnings.simplefilter("error", BandsolveWarning)
         model = build_cls_from_absorptivities(eps, 1.0, blanks=blanks)
     # White noise: rᵀr/σ² ~ χ²(p − m); the limit at α = 0.01 flags ~1 % of clean spectra.
-    assert model.predict(clean)["flags"].str.contains("residual").mean() <= 0.04
-    assert model.predict(foreign)["flags"].str.contains("residual").all()
+    assert model.predict(clean)["flag_codes"].str.contains("residual").mean() <= 0.04
+    assert model.predict(foreign)["flag_codes"].str.contains("residual").all()
 
 
 def test_missing_absorber_in_cls_calibration_is_warned_with_blanks():
@@ -133,7 +133,7 @@ def test_negative_flag_without_standard_error():
     with pytest.warns(BandsolveWarning):
         model = build_cls_from_absorptivities(eps, 1.0)
     res = model.predict(SpectralSet(np.array([440.0, 545.0]), [[-0.3, 0.7]], ["u"]))
-    assert "negative:x [mol/L]" in res.loc[0, "flags"]
+    assert "negative:x [mol/L]" in res.loc[0, "flag_codes"]
 
 
 def test_nan_in_a_spectrum_is_a_clear_error():

@@ -58,7 +58,7 @@ def test_dichromate_permanganate_from_absorptivities(tmp_path):
     assert res.loc[0, "permanganate [mol/L]"] == pytest.approx(2.96e-4, rel=2e-3)
     # Two wavelengths, two unknowns: no SE is invented; the row says why.
     assert np.isnan(res.loc[0, "dichromate [mol/L] SE"])
-    assert "no_se" in res.loc[0, "flags"] and "degrees of freedom" in res.loc[0, "notes"]
+    assert "no_se" in res.loc[0, "flag_codes"] and "degrees of freedom" in res.loc[0, "notes"]
 
 
 def test_bad_input_is_one_line_without_traceback(harvey_files, capsys):
@@ -83,8 +83,8 @@ def test_demo_runs_end_to_end_and_flags_the_intruder(tmp_path, capsys):
     res = pd.read_csv(tmp_path / "demo" / "results.csv", keep_default_na=False)
     truth = pd.read_csv(tmp_path / "demo" / "routine_true_concentrations.csv", comment="#",
                         index_col="sample")
-    clean = res[res["flags"] == ""].set_index("sample")
-    flagged = set(res.loc[res["flags"].str.contains("residual"), "sample"])
+    clean = res[res["flag_codes"] == ""].set_index("sample")
+    flagged = set(res.loc[res["flag_codes"].str.contains("residual"), "sample"])
     # The invented scenario adds a fourth absorber to batch-2 samples 03 and 05 only.
     assert flagged == {"batch-2-03", "batch-2-05"}
     for label in truth.columns:

@@ -122,8 +122,8 @@ def test_unmodelled_absorber_is_flagged(three_bands):
     foreign = clean + 0.1 * np.exp(-0.5 * ((axis - 660) / 15) ** 2)
     ok = cal.predict(SpectralSet(axis, clean, [f"u{i}" for i in range(40)]))
     bad = cal.predict(SpectralSet(axis, foreign, [f"u{i}" for i in range(40)]))
-    assert (ok["flags"].str.contains("residual")).mean() <= 0.1  # α = 0.01 limit
-    assert (bad["flags"].str.contains("residual")).all()
+    assert (ok["flag_codes"].str.contains("residual")).mean() <= 0.1  # α = 0.01 limit
+    assert (bad["flag_codes"].str.contains("residual")).all()
 
 
 def test_collinear_design_refused():

@@ -26,3 +26,27 @@ def test_flag_column_equals_row_by_row_join(masks):
 def test_every_flag_code_is_explained():
     for code, text in FLAG_CODES.items():
         assert code and ";" not in code and len(text) > 20
+
+
+def test_flag_column_is_reachable_as_a_dataframe_attribute(three_bands):
+    # pandas documents DataFrame.flags as its own attribute (pandas >= 1.2, "Flags"), so a
+    # column of that name is shadowed: results.flags would not return the codes.
+    import numpy as np
+    import pandas as pd
+
+    from bandsolve.calibration.build import build_cls
+    from bandsolve.concentrations import ConcentrationTable
+    from bandsolve.flags import FLAG_COLUMN
+    from bandsolve.spectra import SpectralSet
+
+    assert FLAG_COLUMN not in dir(pd.DataFrame)
+    axis, K = three_bands
+    rng = np.random.default_rng(12345)
+    C = rng.uniform(0.1, 1.0, (12, 3))
+    X = C @ K + rng.normal(0, 1e-3, (12, axis.size))
+    ids = [f"s{i}" for i in range(12)]
+    model = build_cls(SpectralSet(axis, X, ids),
+                      ConcentrationTable(ids, ("a [mg/L]", "b [mg/L]", "c [mg/L]"), C))
+    results = model.predict(SpectralSet(axis, X[:2], ids[:2]))
+    assert list(results.flag_codes) == list(results[FLAG_COLUMN])
+    assert "flags" not in results.columns

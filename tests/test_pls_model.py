@@ -47,17 +47,17 @@ def test_in_model_samples_rarely_flagged_foreign_band_always(calibration):
     foreign = A + 0.05 * np.exp(-0.5 * ((axis - 650) / 15) ** 2)
     bad = cal.predict(SpectralSet(axis, foreign, ids))
     # Limits at α = 0.01 (Box 1954 / Tracy, Young & Mason 1992): about 1 % false alarms.
-    assert clean["flags"].str.contains("residual").mean() <= 0.04
-    assert clean["flags"].str.contains("t2").mean() <= 0.04
-    assert bad["flags"].str.contains("residual").all()
+    assert clean["flag_codes"].str.contains("residual").mean() <= 0.04
+    assert clean["flag_codes"].str.contains("t2").mean() <= 0.04
+    assert bad["flag_codes"].str.contains("residual").all()
 
 
 def test_extrapolation_flagged_by_t2(calibration):
     axis, K, _, cal = calibration
     C = np.array([[3.0, 3.0, 3.0], [2.5, 0.0, 2.5]])  # far outside the 0–1 calibration box
     res = cal.predict(SpectralSet(axis, C @ K, ["far1", "far2"]))
-    assert res["flags"].str.contains("t2").all()
-    assert res["flags"].str.contains("above_range").all()
+    assert res["flag_codes"].str.contains("t2").all()
+    assert res["flag_codes"].str.contains("above_range").all()
 
 
 def test_faber_bro_intervals_cover_truth(calibration):

@@ -148,14 +148,14 @@ def test_formats_hold_the_same_numbers(model_file, folder, tmp_path, capsys):
             pytest.importorskip("pyarrow")
             tables[fmt] = pd.read_parquet(out)
     numeric = [c for c in tables["csv"].columns
-               if c not in ("sample", "source", "flags", "notes", "t2_ratio")]
+               if c not in ("sample", "source", "flag_codes", "notes", "t2_ratio")]
     for fmt in ("json", "parquet"):
         assert list(tables[fmt].columns) == list(tables["csv"].columns)
         # CSV and JSON write shortest round-trip reprs, Parquet stores binary doubles
         # (IEEE 754-2008): all three give back the same doubles.
         np.testing.assert_array_equal(tables[fmt][numeric].to_numpy(float),
                                       tables["csv"][numeric].to_numpy(float))
-        assert list(tables[fmt]["flags"]) == list(tables["csv"]["flags"])
+        assert list(tables[fmt]["flag_codes"]) == list(tables["csv"]["flag_codes"])
     capsys.readouterr()
 
 
@@ -170,8 +170,8 @@ def test_fail_on_flags_exit_code_and_stdin(model_file, capsys, monkeypatch):
     # Exit code 4 with --fail-on-flags when a result is flagged (documented in bandsolve.cli).
     assert main(["predict", str(model_file), "-", "--fail-on-flags"]) == 4
     out = pd.read_csv(io.StringIO(capsys.readouterr().out), keep_default_na=False)
-    assert list(out["flags"] != "") == [False, True, False]
-    assert "residual" in out["flags"][1]
+    assert list(out["flag_codes"] != "") == [False, True, False]
+    assert "residual" in out["flag_codes"][1]
     monkeypatch.setattr("sys.stdin", io.StringIO(buf.getvalue()))
     assert main(["predict", str(model_file), "-"]) == 0
 
@@ -192,7 +192,7 @@ def test_spectral_image_gives_maps_equal_to_the_table(model, tmp_path):
     flags = np.load(res.flag_map)
     assert flags.dtype == np.uint16 and flags.shape == (rows, cols)
     assert flags.reshape(-1)[3] & FLAG_BITS["residual"]
-    assert ((flags.reshape(-1) != 0) == (ref["flags"] != "").to_numpy()).all()
+    assert ((flags.reshape(-1) != 0) == (ref["flag_codes"] != "").to_numpy()).all()
     np.save(tmp_path / "image.axis.npy", AXIS)  # a sidecar axis is used when present
     assert predict_cube(model, cube_path, tmp_path / "maps2").notes == ""
 

@@ -79,7 +79,7 @@ def test_dask_array_and_dataframe_equal_the_local_path(models, cluster, method):
     cols = numeric_columns(model)
     assert got.shape == (spectra.n_samples, len(cols))
     np.testing.assert_array_equal(got[:, :-1], ref[cols[:-1]].to_numpy(float))
-    assert ((got[:, -1] > 0) == (ref["flags"] != "").to_numpy()).all()
+    assert ((got[:, -1] > 0) == (ref["flag_codes"] != "").to_numpy()).all()
     table = table.reset_index(drop=True)
     assert list(table["sample"]) == list(ref["sample"])
     np.testing.assert_array_equal(table[cols[:-1]].to_numpy(float), ref[cols[:-1]].to_numpy(float))

@@ -1,4 +1,7 @@
-"""Result flags: short machine-readable codes in the ``flags`` column of every prediction.
+"""Result flags: short machine-readable codes in the ``flag_codes`` column of every prediction.
+
+The column was called ``flags`` in earlier versions; it was renamed because a pandas
+``DataFrame`` already has a ``flags`` attribute, so ``results.flags`` did not return it.
 
 The column is empty when nothing is wrong; otherwise it holds codes separated by ``;``. Codes
 about one analyte carry its name after a colon, e.g. ``above_range:dye B``.
@@ -8,9 +11,12 @@ from __future__ import annotations
 
 from collections.abc import Iterable
 
-__all__ = ["FLAG_CODES", "SEPARATOR", "join_flags", "split_flags"]
+__all__ = ["FLAG_CODES", "FLAG_COLUMN", "SEPARATOR", "join_flags", "split_flags"]
 
 SEPARATOR = ";"
+
+#: Name of the flag column in every results table (CSV header and DataFrame column).
+FLAG_COLUMN = "flag_codes"
 
 #: Every flag code and what it means for the result, in the chemist's terms.
 FLAG_CODES: dict[str, str] = {

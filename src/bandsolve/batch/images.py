@@ -25,6 +25,7 @@ import numpy as np
 from bandsolve.batch.predict import DEFAULT_CHUNK, iter_array_sets, predict_sets
 from bandsolve.calibration.model import Calibration
 from bandsolve.errors import DataError, FormatError
+from bandsolve.flags import FLAG_COLUMN
 from bandsolve.io.atomic import atomic_write
 
 __all__ = ["FLAG_BITS", "CubeResult", "predict_cube", "flag_bits"]
@@ -124,7 +125,7 @@ def predict_cube(model: Calibration, path: str | os.PathLike[str],
     for frame in predict_sets(model, sets, n_jobs):
         stop = start + len(frame)
         conc[start:stop] = frame[list(model.analytes)].to_numpy(dtype=float)
-        bits[start:stop] = flag_bits(frame["flags"].tolist())
+        bits[start:stop] = flag_bits(frame[FLAG_COLUMN].tolist())
         notes = str(frame["notes"].iloc[0])
         start = stop
     out = Path(out_folder)

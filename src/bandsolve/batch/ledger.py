@@ -39,6 +39,7 @@ import pandas as pd
 from bandsolve import __version__
 from bandsolve.calibration.model import Calibration
 from bandsolve.errors import DataError
+from bandsolve.flags import FLAG_COLUMN
 
 __all__ = ["LedgerRecorder", "check_ledger", "list_runs", "list_inputs", "list_results"]
 
@@ -133,7 +134,7 @@ class LedgerRecorder:
             clean = {k: _json_value(v) for k, v in record.items()}
             conc = {a: clean.get(a) for a in self.analytes}
             rows.append((self._position, str(clean["sample"]), clean.get("source"),
-                         clean.get("flags") or "", json.dumps(conc), json.dumps(clean)))
+                         clean.get(FLAG_COLUMN) or "", json.dumps(conc), json.dumps(clean)))
         self._spool.executemany(
             "INSERT INTO results (input_position, sample, source, flags, concentrations, "
             "record) VALUES (?, ?, ?, ?, ?, ?)", rows)

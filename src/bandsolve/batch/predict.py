@@ -30,6 +30,7 @@ import pandas as pd
 
 from bandsolve.calibration.model import EVAL_ROWS, Calibration, result_columns
 from bandsolve.errors import BandsolveError, DataError, FormatError
+from bandsolve.flags import FLAG_COLUMN
 from bandsolve.progress import ProgressCallback, step
 from bandsolve.spectra import SpectralSet
 
@@ -77,7 +78,7 @@ class BatchResult:
     @property
     def n_flagged(self) -> int:
         """Number of result rows with at least one flag."""
-        return int((self.table["flags"].astype(str) != "").sum()) if len(self.table) else 0
+        return int((self.table[FLAG_COLUMN].astype(str) != "").sum()) if len(self.table) else 0
 
 
 class Sink(Protocol):
@@ -94,7 +95,7 @@ def result_table_columns(model: Calibration) -> list[str]:
     cols = ["sample", "source"]
     for label in model.analytes:
         cols.extend(result_columns(label))
-    return [*cols, "residual_ratio", "t2_ratio", "leverage_ratio", "flags", "notes"]
+    return [*cols, "residual_ratio", "t2_ratio", "leverage_ratio", FLAG_COLUMN, "notes"]
 
 
 def expand_inputs(inputs: Sequence[str], pattern: str | None = None) -> list[str]:
@@ -349,7 +350,7 @@ def run_batch(model: Calibration, inputs: Sequence[str], sinks: Sequence[Sink], 
                     sink.discard_input()
                 continue
             pending += len(result)
-            summary.n_flagged += int((result["flags"] != "").sum())
+            summary.n_flagged += int((result[FLAG_COLUMN] != "").sum())
             for sink in sinks:
                 sink.write(result)
         close_current()

@@ -23,11 +23,12 @@ from bandsolve.batch.images import flag_bits
 from bandsolve.batch.predict import EVAL_ROWS, evaluate_set, result_table_columns
 from bandsolve.calibration.model import Calibration
 from bandsolve.errors import BandsolveError, DataError
+from bandsolve.flags import FLAG_COLUMN
 from bandsolve.spectra import SpectralSet
 
 __all__ = ["numeric_columns", "predict_dask"]
 
-_TEXT = ("sample", "source", "flags", "notes")
+_TEXT = ("sample", "source", FLAG_COLUMN, "notes")
 
 
 def numeric_columns(model: Calibration) -> list[str]:
@@ -47,7 +48,7 @@ def _numeric_block(block: np.ndarray, model: Calibration, axis: np.ndarray,
                           source="dask array")
     frame = evaluate_set(model, spectra)
     values = frame[numeric_columns(model)[:-1]].to_numpy(dtype=float)
-    return np.column_stack([values, flag_bits(frame["flags"].tolist()).astype(float)])
+    return np.column_stack([values, flag_bits(frame[FLAG_COLUMN].tolist()).astype(float)])
 
 
 def _frame_partition(part: pd.DataFrame, model: Calibration, axis: np.ndarray,

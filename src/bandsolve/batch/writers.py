@@ -17,6 +17,7 @@ from typing import IO, Any
 import pandas as pd
 
 from bandsolve.errors import FormatError
+from bandsolve.flags import FLAG_COLUMN
 
 __all__ = ["FORMATS", "open_writer", "format_for"]
 
@@ -135,7 +136,7 @@ class _ParquetWriter:
 
     def close(self) -> None:
         if self._writer is None:
-            text = ("sample", "source", "flags", "notes")
+            text = ("sample", "source", FLAG_COLUMN, "notes")
             empty = pd.DataFrame({c: pd.Series(dtype=str if c in text else float)
                                   for c in self.columns})
             self._writer = self._pq.ParquetWriter(self.handle, self._schema(empty))

@@ -21,7 +21,7 @@ from scipy import stats
 from bandsolve._scan import ScanParts, embed, scan
 from bandsolve._threads import single_blas_thread
 from bandsolve.errors import DataError, ModelError, where
-from bandsolve.flags import join_flags
+from bandsolve.flags import FLAG_COLUMN, join_flags
 from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
 
@@ -301,7 +301,7 @@ class Calibration:
         cols["residual_ratio"] = d.residual_ratio
         cols["t2_ratio"] = d.t2_ratio
         cols["leverage_ratio"] = d.leverage_ratio
-        cols["flags"] = _flag_column(n, checks)
+        cols[FLAG_COLUMN] = _flag_column(n, checks)
         cols["notes"] = ["; ".join(dict.fromkeys(notes))] * n
         return pd.DataFrame(cols)
 

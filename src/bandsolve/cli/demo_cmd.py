@@ -7,6 +7,7 @@ import argparse
 from bandsolve.cautions import SHORT_CAUTION
 from bandsolve.cli._common import eprint
 from bandsolve.cli.demo_data import DEMO_LABEL, run_demo
+from bandsolve.flags import FLAG_COLUMN
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -28,11 +29,11 @@ def run(args: argparse.Namespace) -> int:
     eprint(f"Calibration: {demo.files.calibration_spectra} with "
            f"{demo.files.calibration_concentrations}")
     analytes = [c for c in table.columns if c.endswith("]") and " SE" not in c][:3]
-    shown = table[["sample", *analytes, "residual_ratio", "flags"]].copy()
+    shown = table[["sample", *analytes, "residual_ratio", FLAG_COLUMN]].copy()
     for col in [*analytes, "residual_ratio"]:
         shown[col] = shown[col].map(lambda v: f"{v:.3g}")
     print(shown.to_string(index=False))
-    flagged = (table["flags"] != "").sum()
+    flagged = (table[FLAG_COLUMN] != "").sum()
     eprint(f"\n{len(table)} routine spectra predicted with the CLS model, {flagged} flagged "
            "(results carry standard errors and 95 % prediction intervals).")
     for name, path in demo.outputs.items():

@@ -6,6 +6,7 @@ import argparse
 
 from bandsolve.batch.ledger import list_inputs, list_results, list_runs
 from bandsolve.cli._common import eprint
+from bandsolve.flags import FLAG_COLUMN
 from bandsolve.io.atomic import atomic_write
 
 EXAMPLES = """\
@@ -37,7 +38,7 @@ def _shown_columns(results) -> list[str]:
     """run_id, sample, source, each analyte's concentration and SE, flags (as recorded)."""
     analytes = [c for c in results.columns if f"{c} SE" in results.columns]
     shown = ["run_id", "sample", "source", *(c for a in analytes for c in (a, f"{a} SE")),
-             "flags"]
+             FLAG_COLUMN]
     return [c for c in shown if c in results.columns]
 
 

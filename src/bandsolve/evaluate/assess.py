@@ -23,7 +23,7 @@ from scipy import stats
 from bandsolve.calibration.model import Calibration
 from bandsolve.concentrations import ConcentrationTable, align, split_unit
 from bandsolve.errors import BandsolveWarning, DataError
-from bandsolve.flags import split_flags
+from bandsolve.flags import FLAG_COLUMN, split_flags
 from bandsolve.merit import RegressionStatistics, regression_statistics
 from bandsolve.spectra import SpectralSet
 
@@ -295,12 +295,12 @@ def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
             p_value = float(stats.f.sf(ratio**2, n, n_cal)) if n_cal > 0 else None
         name, unit = split_unit(label)
         results.append(AnalyteAssessment(name, unit or "unit", s, cv, ratio, p_value))
-    samples["flags"] = predicted["flags"].tolist()
+    samples[FLAG_COLUMN] = predicted[FLAG_COLUMN].tolist()
     counts: dict[str, int] = {}
-    for text in samples["flags"]:
+    for text in samples[FLAG_COLUMN]:
         for code in split_flags(text):
             counts[code] = counts.get(code, 0) + 1
-    n_flagged = sum(1 for text in samples["flags"] if split_flags(text))
+    n_flagged = sum(1 for text in samples[FLAG_COLUMN] if split_flags(text))
     result = Assessment(cal.method, tuple(results), n, n_flagged, counts,
                         pd.DataFrame(samples), float(alpha), calibration_files(cal, files))
     if not result.independent:

@@ -14,7 +14,7 @@ from matplotlib.figure import Figure
 
 from bandsolve.calibration.model import Calibration, result_columns
 from bandsolve.cautions import CAUTIONS
-from bandsolve.flags import FLAG_CODES
+from bandsolve.flags import FLAG_CODES, FLAG_COLUMN
 from bandsolve.merit import FiguresOfMerit
 from bandsolve.report._views import ReportFigure
 from bandsolve.units import axis_label
@@ -260,8 +260,8 @@ def batch_section(cal: Calibration, table: pd.DataFrame | None,
     for a in cal.analytes:
         name, se, lo, hi = result_columns(a)
         keep += [name, se, lo, hi]
-    keep.append("flags")
-    n_flag = int((table["flags"].fillna("") != "").sum())
+    keep.append(FLAG_COLUMN)
+    n_flag = int((table[FLAG_COLUMN].fillna("") != "").sum())
     return (skipped + f"<p>{len(table)} spectra predicted, {n_flag} flagged.</p>"
             + frame_table(table[keep]))
 

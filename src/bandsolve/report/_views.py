@@ -15,7 +15,7 @@ from matplotlib.figure import Figure
 from bandsolve.calibration.model import Calibration, result_columns
 from bandsolve.concentrations import ConcentrationTable, align, split_unit
 from bandsolve.errors import DataError, where
-from bandsolve.flags import split_flags
+from bandsolve.flags import FLAG_COLUMN, split_flags
 from bandsolve.merit import FiguresOfMerit, cls_figures, cls_net_analyte_signal
 from bandsolve.report import figures as F
 from bandsolve.spectra import SpectralSet
@@ -238,7 +238,7 @@ def batch_view(cal: Calibration, table: pd.DataFrame) -> ReportFigure:
     est = table[[c[0] for c in cols]].to_numpy(float)
     low = table[[c[2] for c in cols]].to_numpy(float)
     high = table[[c[3] for c in cols]].to_numpy(float)
-    flagged = [bool(split_flags(f)) for f in table["flags"].fillna("")]
+    flagged = [bool(split_flags(f)) for f in table[FLAG_COLUMN].fillna("")]
     fig = F.batch_figure(list(table["sample"].astype(str)), est, low, high, cal.analytes,
                          flagged)
     return ReportFigure("fig-batch", "batch", "Prediction batch",
