@@ -24,6 +24,7 @@ from bandsolve.errors import DataError, ModelError, where
 from bandsolve.flags import FLAG_COLUMN, join_flags
 from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
+from bandsolve.transfer import Transfer
 
 __all__ = ["EVAL_ROWS", "INTERVAL_LEVEL", "Calibration", "Detail", "result_columns"]
 
@@ -135,6 +136,10 @@ class Calibration:
         Component-selection evidence and figures of merit (JSON-serialisable).
     provenance : dict
         Training-file fingerprints, creation time, library versions, data labels.
+    transfer : Transfer or None
+        For a model moved to another instrument: the map applied to that instrument's
+        spectra (or the correction applied to its predictions) before anything else, with
+        its record (:mod:`bandsolve.transfer`).
     """
 
     method: str
@@ -151,6 +156,7 @@ class Calibration:
     selection: dict[str, Any] | None = None
     merit: dict[str, Any] | None = None
     provenance: dict[str, Any] = field(default_factory=dict)
+    transfer: Transfer | None = None
 
     # ------------------------------------------------------------------ input checks
     def prepare(self, spectra: SpectralSet) -> tuple[np.ndarray, list[str]]:
@@ -183,10 +189,10 @@ class Calibration:
             return np.asarray(spectra.values), notes
         notes.append("resampled onto the model grid by linear interpolation")
         pre = self.preprocessor
-        if pre.savgol_window is not None or pre.mask_.all():
+        if pre.savgol_window is not None or pre.mask_.all() or self.transfer is not None:
             return np.asarray(spectra.resample(self.axis).values), notes
-        # Only the window is used (no filter needs the points around it): the spectra must
-        # cover the window, not the whole calibration grid. Points outside it are never read.
+        # Only the window is used (no filter or transfer map needs the points around it): the
+        # spectra must cover the window, not the whole grid. Points outside it are never read.
         X = np.zeros((spectra.n_samples, self.axis.size))
         X[:, pre.mask_] = spectra.resample(self.axis[pre.mask_]).values
         return X, notes
@@ -217,7 +223,8 @@ class Calibration:
         """Per-sample estimates and diagnostics for absorbance on the model grid (n × p).
 
         Rows are evaluated in fixed blocks of :data:`EVAL_ROWS` (counted from the first row),
-        so a spectrum's numbers never depend on how a batch was chunked.
+        so a spectrum's numbers never depend on how a batch was chunked. A transferred model
+        maps the spectra first and corrects the estimates last (:attr:`transfer`).
         """
         # Row-major layout always: products of column-major data (for example from a pandas
         # frame) round differently in the last bit, and results must not depend on layout.
@@ -225,6 +232,8 @@ class Calibration:
         if X.ndim != 2 or X.shape[1] != self.axis.size:
             raise DataError(f"expected spectra with {self.axis.size} points on the model grid, "
                             f"got an array of shape {X.shape}")
+        if self.transfer is not None:
+            return self._transferred_detail(X)
         starts = range(0, len(X), EVAL_ROWS)
         with single_blas_thread():
             if len(starts) < 2 * _CORES:
@@ -246,6 +255,18 @@ class Calibration:
             notes=first.notes,
             max_absorbance=np.concatenate([b.max_absorbance for b in blocks]),
         )
+
+    def _transferred_detail(self, X: np.ndarray) -> Detail:
+        """Detail of spectra from the instrument the model was transferred to."""
+        assert self.transfer is not None
+        # The photometric ceiling concerns what this instrument measured, not the mapped values.
+        top = X.max(axis=1, where=self.preprocessor.mask_, initial=-np.inf)
+        d = dataclasses.replace(self, transfer=None).detail(
+            np.ascontiguousarray(self.transfer.map_spectra(X)))
+        c, se = self.transfer.correct(d.concentrations, d.standard_errors)
+        note = f"spectra of another instrument, transferred by {self.transfer.method}"
+        return dataclasses.replace(d, concentrations=c, standard_errors=se,
+                                   notes=[*d.notes, note], max_absorbance=top)
 
     def _detail_block(self, X: np.ndarray) -> Detail:
         from bandsolve.calibration.detail import cls_detail, pls_detail
@@ -329,4 +350,4 @@ class Calibration:
             "selection": self.selection,
             "merit": self.merit,
             "provenance": self.provenance,
-        }
+        } | ({"transfer": self.transfer.describe()} if self.transfer is not None else {})

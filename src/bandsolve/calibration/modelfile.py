@@ -4,16 +4,18 @@ Loading never executes code from the file: there is no pickle anywhere. Arrays a
 ``numpy.load(allow_pickle=False)``, estimator classes come from a fixed list, and every
 member's SHA-256 is checked against the manifest before anything is used.
 
-Layout (schema 1)::
+Layout (schema 1; schema 2 when a transfer record is present)::
 
     manifest.json   format name, schema version, SHA-256 of every other member, content hash
     model.json      the calibration: method, analytes, axis, settings, limits, provenance,
-                    estimator parameters and fitted attributes (arrays by reference)
+                    estimator parameters and fitted attributes (arrays by reference), and
+                    for a model moved to another instrument its ``transfer`` record
     arrays/NAME.npy numeric arrays
 """
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import io
 import json
@@ -30,10 +32,14 @@ from bandsolve.cls import CLSRegressor
 from bandsolve.errors import ModelFileError
 from bandsolve.io.atomic import atomic_write
 from bandsolve.preprocess import SpectralPreprocessor
+from bandsolve.transfer import Transfer
 
 __all__ = ["SCHEMA_VERSION", "save_model", "load_model", "sha256_file", "model_checksum"]
 
-SCHEMA_VERSION = 1
+#: Newest schema this version reads. Schema 2 adds the optional ``transfer`` record; files
+#: without one are still written as schema 1, so older readers keep reading them, while a
+#: transferred model is refused by a reader that would ignore its transfer map.
+SCHEMA_VERSION = 2
 FORMAT_NAME = "bandsolve-model"
 
 
@@ -134,6 +140,8 @@ def _content(cal: Calibration) -> tuple[bytes, dict[str, bytes]]:
         "preprocessor": enc.estimator(cal.preprocessor, "preprocessor"),
         "estimators": [enc.estimator(e, f"estimator{i}") for i, e in enumerate(cal.estimators)],
     }
+    if cal.transfer is not None:  # only transferred models carry it: other checksums unchanged
+        doc["transfer"] = enc.encode(dataclasses.asdict(cal.transfer), "transfer")
     model_json = json.dumps(doc, indent=1, sort_keys=True, allow_nan=False).encode()
     members = {"model.json": model_json}
     for name, arr in enc.arrays.items():
@@ -161,7 +169,7 @@ def save_model(cal: Calibration, path: str | os.PathLike[str]) -> str:
     _, members = _content(cal)
     hashes = {k: hashlib.sha256(v).hexdigest() for k, v in members.items()}
     checksum = _content_hash(hashes)
-    manifest = {"format": FORMAT_NAME, "schema_version": SCHEMA_VERSION,
+    manifest = {"format": FORMAT_NAME, "schema_version": 2 if cal.transfer is not None else 1,
                 "checksum_algorithm": "sha256", "members": hashes, "checksum": checksum}
     with atomic_write(path, "wb") as handle:
         with zipfile.ZipFile(handle, "w", compression=zipfile.ZIP_DEFLATED) as zf:
@@ -234,6 +242,8 @@ def load_model(path: str | os.PathLike[str]) -> Calibration:
             selection=_decode(doc["selection"], arrays), merit=_decode(doc["merit"], arrays),
             provenance=dict(_decode(doc["provenance"], arrays),
                             model_checksum=manifest["checksum"]),
+            transfer=(Transfer(**_decode(doc["transfer"], arrays)) if "transfer" in doc
+                      else None),
         )
     except (KeyError, TypeError, json.JSONDecodeError) as exc:
         raise ModelFileError(f"{path}: model description incomplete ({exc})") from None

@@ -28,7 +28,7 @@ from bandsolve.merit import RegressionStatistics, regression_statistics
 from bandsolve.spectra import SpectralSet
 
 __all__ = ["AnalyteAssessment", "Assessment", "SpectraFiles", "assess", "calibration_files",
-           "read_spectra_files"]
+           "read_spectra_files", "reference_values"]
 
 #: Why figures computed on the calibration samples themselves prove little.
 NOT_INDEPENDENT = "RMSEP on them is not an independent validation"
@@ -229,8 +229,15 @@ def _stored_rmsecv(cal: Calibration) -> list[float | None]:
     return values if len(values) == cal.n_analytes else [None] * cal.n_analytes
 
 
-def _reference(cal: Calibration, spectra: SpectralSet,
-               table: ConcentrationTable) -> np.ndarray:
+def reference_values(cal: Calibration, spectra: SpectralSet,
+                     table: ConcentrationTable) -> np.ndarray:
+    """Reference concentrations (n × m) in the spectra's order and the model's analyte order.
+
+    Raises
+    ------
+    DataError
+        When ids do not match or the table lacks a column of the model (naming it).
+    """
     spectra, table = align(spectra, table)
     by_name = {split_unit(a)[0]: a for a in table.analytes}
     columns = []
@@ -276,7 +283,7 @@ def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
     calibration. Pure Appl. Chem. 78, 633-661.
     ICH Q2(R2) (2023). Validation of analytical procedures (accuracy on an independent set).
     """
-    reference = _reference(cal, spectra, table)
+    reference = reference_values(cal, spectra, table)
     predicted = cal.predict(spectra)
     n = len(predicted)
     n_cal = int(cal.provenance.get("n_calibration_samples") or 0)
