@@ -15,6 +15,7 @@ from bandsolve.calibration.build_pls import build_pls
 from bandsolve.calibration.modelfile import load_model, save_model
 from bandsolve.calibration.transferred import transfer_calibration
 from bandsolve.errors import DataError
+from bandsolve.flags import FLAG_COLUMN
 from bandsolve.transfer import (
     axis_shift,
     direct_standardization,
@@ -164,12 +165,12 @@ def test_without_transfer_errors_and_flags_are_reported_as_they_are():
     (none_shift, t_shift), (recal_shift, _), (pds_shift, t_pds) = _scenario(
         "cls", Instrument(shift=1.0, offset=0.02, slope=-0.01), 7)
     assert np.mean(none_shift / recal_shift) > 1.5
-    assert t_shift["flags"].str.contains("residual").mean() > 0.5
-    assert t_pds["flags"].str.contains("residual").mean() < 0.1
+    assert t_shift[FLAG_COLUMN].str.contains("residual").mean() > 0.5
+    assert t_pds[FLAG_COLUMN].str.contains("residual").mean() < 0.1
     assert np.all(pds_shift < none_shift)
     (none_gain, t_gain), (recal_gain, _), _ = _scenario("cls", Instrument(gain=0.95), 7)
     assert np.all(none_gain > 3 * recal_gain)
-    assert not t_gain["flags"].str.contains("residual").any()
+    assert not t_gain[FLAG_COLUMN].str.contains("residual").any()
 
 
 # ---------------------------------------------------------------------- transferred models
