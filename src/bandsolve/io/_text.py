@@ -1,13 +1,17 @@
-"""Shared plumbing of the text readers: decoding, comments, delimiter and decimal sniffing.
+"""Shared plumbing of the text readers: cells, comments, delimiter and decimal sniffing.
 
 Rules (common practice for spreadsheet and instrument exports):
 
 * Blank lines and lines starting with ``#`` are skipped. A comment of the form
-  ``# key: value`` is kept as metadata (lower-case key).
+  ``# key: value`` before the first data line is kept as metadata (lower-case key).
 * The delimiter is the first of tab, semicolon, comma or runs of whitespace that splits the
   first data line into several cells and, among those, gives the most numeric cells.
 * The decimal mark is a comma when the delimiter is not a comma and cells such as ``1,234``
   outnumber cells with a decimal point.
+* A cell may be enclosed in double quotes, which protect delimiters; a quote inside a quoted
+  cell is written twice (RFC 4180, Shafranovich 2005).
+
+Decoding (UTF-8, Latin-1, UTF-16 with byte-order mark) is done by :mod:`bandsolve.io._source`.
 """
 
 from __future__ import annotations
@@ -15,7 +19,6 @@ from __future__ import annotations
 import re
 from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 
@@ -26,6 +29,7 @@ _COMMA_DECIMAL = re.compile(r"^[+-]?\d*,\d+(?:[eE][+-]?\d+)?$")
 _DOT_DECIMAL = re.compile(r"^[+-]?\d*\.\d+(?:[eE][+-]?\d+)?$")
 _META = re.compile(r"^#\s*([A-Za-z_][A-Za-z0-9_ ]*?)\s*[:=]\s*(.*?)\s*$")
 _SNIFF_LINES = 50
+_SPACES = " \t"
 
 
 @dataclass(frozen=True)
@@ -36,9 +40,16 @@ class Dialect:
     decimal: str
 
     def split(self, line: str) -> list[str]:
-        """Cells of one line, stripped of spaces and of one pair of enclosing quotes."""
-        cells = line.split(self.delimiter)
-        return [_unquote(c.strip()) for c in cells]
+        """Cells of one line, stripped of outer spaces; quoted cells as in RFC 4180.
+
+        Raises
+        ------
+        ValueError
+            When a quoted cell is not closed on its line.
+        """
+        if '"' not in line:
+            return [c.strip() for c in line.split(self.delimiter)]
+        return [c.strip() for c in _quoted_cells(line, self.delimiter)]
 
 
 @dataclass(frozen=True)
@@ -49,47 +60,75 @@ class Row:
     cells: list[str]
 
 
-def _unquote(cell: str) -> str:
-    if len(cell) >= 2 and cell[0] == cell[-1] and cell[0] in "\"'":
-        return cell[1:-1].strip()
-    return cell
+def _quoted_cells(line: str, delimiter: str | None) -> list[str]:
+    """Cells of a line holding double quotes.
 
-
-def read_text(path: str | Path) -> str:
-    """Whole file as text: UTF-8 (with or without byte-order mark), else Latin-1.
-
-    Raises
-    ------
-    FormatError
-        When the file cannot be opened or holds binary data (NUL bytes).
+    The rules are those of pandas' C tokenizer with ``skipinitialspace=True``, so the compiled
+    reader and this one agree cell by cell: spaces before an opening quote are skipped, text
+    after a closing quote is kept, a quote inside an unquoted cell is an ordinary character.
     """
-    try:
-        data = Path(path).read_bytes()
-    except OSError as exc:
-        raise FormatError(f"{path}: cannot read the file ({exc.strerror or exc})") from None
-    if b"\x00" in data:
-        raise FormatError(
-            f"{where(str(path))}the file holds binary data (NUL bytes); export the spectra as "
-            "text (CSV) or JCAMP-DX"
-        )
-    try:
-        return data.decode("utf-8-sig")
-    except UnicodeDecodeError:
-        return data.decode("latin-1")
+    skip = _SPACES if delimiter is None else " "
+    ends = _SPACES if delimiter is None else delimiter
+    cells: list[str] = []
+    k, n = 0, len(line)
+    while True:
+        while k < n and line[k] in skip:
+            k += 1
+        text: list[str] = []
+        if k < n and line[k] == '"':
+            start, k = k, k + 1
+            while True:
+                if k >= n:
+                    raise ValueError(f"the quoted cell {line[start:start + 20]!r} is not closed "
+                                     "on its line")
+                if line[k] == '"' and line[k + 1:k + 2] == '"':
+                    text.append('"')
+                    k += 2
+                elif line[k] == '"':
+                    k += 1
+                    break
+                else:
+                    text.append(line[k])
+                    k += 1
+        while k < n and line[k] not in ends:
+            text.append(line[k])
+            k += 1
+        cells.append("".join(text))
+        if k >= n:
+            return cells
+        k += 1
+        if delimiter is None:
+            while k < n and line[k] in _SPACES:
+                k += 1
+            if k >= n:
+                return cells
 
 
-def data_lines(lines: Iterable[str], meta: dict[str, str]) -> Iterator[tuple[int, str]]:
-    """Yield ``(line_number, text)`` of data lines; ``# key: value`` comments go into ``meta``."""
-    for number, raw in enumerate(lines, start=1):
-        text = raw.strip().lstrip("\ufeff")
-        if not text:
-            continue
-        if text.startswith("#"):
-            m = _META.match(text)
-            if m:
-                meta.setdefault(m.group(1).strip().lower().replace(" ", "_"), m.group(2))
-            continue
-        yield number, text
+def data_text(raw: str) -> str:
+    """The data of one line: stripped text, or "" for a blank or comment line."""
+    text = raw.strip().lstrip("\ufeff")
+    return "" if text.startswith("#") else text
+
+
+def data_lines(lines: Iterable[str], meta: dict[str, str], start: int = 1
+               ) -> Iterator[tuple[int, str]]:
+    """Yield ``(line_number, text)`` of data lines; ``# key: value`` comments before the first
+    data line go into ``meta`` (later comments are skipped like any other)."""
+    header = True
+    for number, raw in enumerate(lines, start=start):
+        text = data_text(raw)
+        if text:
+            header = False
+            yield number, text
+        elif header:
+            read_meta(raw, meta)
+
+
+def read_meta(raw: str, meta: dict[str, str]) -> None:
+    """Add a ``# key: value`` comment line to ``meta`` (the first value of a key is kept)."""
+    m = _META.match(raw.strip().lstrip("\ufeff"))
+    if m:
+        meta.setdefault(m.group(1).strip().lower().replace(" ", "_"), m.group(2))
 
 
 def is_number(cell: str, decimal: str) -> bool:
@@ -109,11 +148,11 @@ def sniff(lines: Sequence[str], source: str) -> Dialect:
         raise FormatError(f"{where(source)}no data lines (the file is empty or all comments)")
     best: tuple[tuple[float, float], Dialect] | None = None
     for delim in _DELIMITERS:
-        rows = [line.split(delim) for line in sample]
+        rows = [_cells(line, Dialect(delim, ".")) for line in sample]
         width = len(rows[0])
         if width < 2:
             continue
-        cells = [c.strip() for r in rows for c in r]
+        cells = [c for r in rows for c in r]
         decimal = _decimal_mark(cells, delim)
         consistent = sum(len(r) == width for r in rows) / len(rows)
         numeric = sum(is_number(c, decimal) for c in cells) / max(len(cells), 1)
@@ -126,6 +165,13 @@ def sniff(lines: Sequence[str], source: str) -> Dialect:
             "semicolon, tab or spaces (sample id column, then one column per axis value)"
         )
     return best[1]
+
+
+def _cells(line: str, dialect: Dialect) -> list[str]:
+    try:
+        return dialect.split(line)
+    except ValueError:
+        return line.split(dialect.delimiter)
 
 
 def _decimal_mark(cells: Sequence[str], delimiter: str | None) -> str:
@@ -141,7 +187,11 @@ def split_rows(numbered: Iterable[tuple[int, str]], dialect: Dialect, width: int
     """Split lines into cells; every row must have ``width`` cells (the first row's if None)."""
     rows: list[Row] = []
     for number, text in numbered:
-        cells = dialect.split(text)
+        try:
+            cells = dialect.split(text)
+        except ValueError as exc:
+            raise FormatError(f"{where(source, row=number)}{exc}; close the quote (a quote "
+                              "inside a quoted cell is written twice)") from None
         if width is None:
             width = len(cells)
         if len(cells) != width:

@@ -13,30 +13,104 @@ single
     Two numeric columns, axis and signal (an optional text header is ignored); the sample id
     is the file name without extension.
 
-``layout="auto"`` decides from the header and the first column and refuses when more than one
-layout fits. Header comment lines ``# axis_unit: cm-1``, ``# quantity: transmittance`` and
-``# path_length_cm: 1.0`` are honoured for options the caller leaves as None.
+``layout="auto"`` decides from the first :data:`HEAD_LINES` data lines and refuses when more
+than one layout fits. Header comment lines ``# axis_unit: cm-1``, ``# quantity:
+transmittance`` and ``# path_length_cm: 1.0`` before the table are honoured for options the
+caller leaves as None.
+
+One reader, whatever the size
+-----------------------------
+A file read whole and the same file streamed (:func:`iter_spectra_chunks`) go through the
+same steps: the bytes and their decoding (:mod:`bandsolve.io._source`), the first lines
+(delimiter, decimal mark, layout, header), and for wide tables the same row parser
+(:mod:`bandsolve.io._wide`) and the same check for repeated ids across the whole file. So
+both accept or refuse the same files and return the same numbers; a streamed file may have
+yielded some chunks before its error is found.
 """
 
 from __future__ import annotations
 
-import io
-from collections.abc import Iterator, Sequence
+import itertools
+import warnings
+from collections.abc import Iterator
+from dataclasses import dataclass
 from pathlib import Path
+from typing import BinaryIO
 
 import numpy as np
 
-from bandsolve.errors import FormatError, where
+from bandsolve.errors import BandsolveWarning, FormatError, where
 from bandsolve.io._build import Options, build, final_checks, options_from_file
-from bandsolve.io._text import Dialect, Row, data_lines, read_text, sniff, split_rows, to_numbers
+from bandsolve.io._layouts import PARSERS, detect_layout
+from bandsolve.io._source import BLOCK_BYTES, Block, TextSource, as_source
+from bandsolve.io._text import Dialect, data_lines, data_text, read_meta, sniff, split_rows
+from bandsolve.io._wide import IdGuard, WideTable, header_of, parse_rows, row_blocks
 from bandsolve.io.atomic import atomic_write
 from bandsolve.spectra import SpectralSet
 
-__all__ = ["LAYOUTS", "read_spectra_text", "iter_spectra_chunks", "write_spectra_csv"]
+__all__ = ["LAYOUTS", "HEAD_LINES", "read_spectra_text", "read_spectra_file",
+           "iter_spectra_chunks", "write_spectra_csv"]
 
 LAYOUTS = ("auto", "wide", "transposed", "long", "single")
+#: Data lines read to choose the delimiter, the decimal mark and the layout.
+HEAD_LINES = 64
 
 
+@dataclass
+class _Opened:
+    """A text file after its first lines: how it is written, and the blocks still to read."""
+
+    src: TextSource
+    layout: str
+    dialect: Dialect
+    options: Options
+    head: list
+    blocks: Iterator[Block]
+
+    def wide_table(self) -> WideTable:
+        return header_of(split_rows(self.head[:2], self.dialect, None, self.src.source),
+                         self.dialect, self.src.source)
+
+
+def _open(src: TextSource, layout: str, options: Options) -> _Opened:
+    if layout not in LAYOUTS:
+        raise FormatError(f"layout {layout!r} is not known; use one of {', '.join(LAYOUTS)}")
+    blocks = src.blocks()
+    taken: list[Block] = []
+    meta: dict[str, str] = {}
+    head: list[tuple[int, str]] = []
+    for block in blocks:
+        taken.append(block)
+        for number, raw in _lines(block, src):
+            text = data_text(raw)
+            if text:
+                head.append((number, text))
+            elif not head:
+                read_meta(raw, meta)
+            if len(head) >= HEAD_LINES:
+                break
+        if len(head) >= HEAD_LINES:
+            break
+    source = src.source
+    dialect = sniff([t for _, t in head], source)
+    rows = split_rows(head, dialect, None, source)
+    filled = options_from_file(options, meta, source)
+    if layout == "auto":
+        layout = detect_layout(rows, dialect, source)
+    return _Opened(src, layout, dialect, filled, head, itertools.chain(taken, blocks))
+
+
+def _lines(block: Block, src: TextSource) -> Iterator[tuple[int, str]]:
+    """Numbered lines of a block, decoded one at a time (the head needs only a few)."""
+    start, number, data = 0, block.first_line, block.data
+    while start < len(data):
+        end = data.find(b"\n", start)
+        end = len(data) if end < 0 else end
+        yield number, src.decode(data[start:end])
+        start, number = end + 1, number + 1
+
+
+# ---------------------------------------------------------------------- whole files
 def read_spectra_text(text: str, source: str = "<stdin>", *, layout: str = "auto",
                       axis_unit: str | None = None, quantity: str | None = None,
                       path_length_cm: float | None = None, replicates: str = "error",
@@ -73,168 +147,87 @@ def read_spectra_text(text: str, source: str = "<stdin>", *, layout: str = "auto
         Naming the source, the line and/or sample, and how to fix it.
     """
     options = Options(axis_unit, quantity, path_length_cm, replicates)
-    meta: dict[str, str] = {}
-    numbered = list(data_lines(io.StringIO(text), meta))
-    return final_checks(_parse(numbered, meta, options, layout, source))
+    with as_source(text, source) as src:
+        return _read_whole(src, layout, options)
 
 
-def read_spectra_file(path: str | Path, **kwargs) -> SpectralSet:
-    """Read a delimited text file of spectra; options as in :func:`read_spectra_text`."""
-    return read_spectra_text(read_text(path), source=str(path), **kwargs)
+def read_spectra_file(file: str | Path | BinaryIO, source: str | None = None, *,
+                      layout: str = "auto", axis_unit: str | None = None,
+                      quantity: str | None = None, path_length_cm: float | None = None,
+                      replicates: str = "error") -> SpectralSet:
+    """Read a delimited text file of spectra (a path, or a binary file open for reading such
+    as :class:`bandsolve.io.fingerprint.HashingReader`); options as in
+    :func:`read_spectra_text`."""
+    options = Options(axis_unit, quantity, path_length_cm, replicates)
+    with TextSource(file, source) as src:
+        return _read_whole(src, layout, options)
 
 
-def _parse(numbered: list[tuple[int, str]], meta: dict[str, str], options: Options,
-           layout: str, source: str) -> SpectralSet:
-    if layout not in LAYOUTS:
-        raise FormatError(f"layout {layout!r} is not known; use one of {', '.join(LAYOUTS)}")
-    dialect = sniff([t for _, t in numbered], source)
-    rows = split_rows(numbered, dialect, None, source)
-    filled = options_from_file(options, meta, source)
-    if layout == "auto":
-        layout = _detect(rows, dialect, source)
-    parser = {"wide": _wide, "transposed": _transposed, "long": _long, "single": _single}[layout]
-    axis, values, ids, places = parser(rows, dialect, source)
-    return build(axis, values, ids, places, filled, source,
-                 unit_from="argument" if options.axis_unit else "file")
+def _read_whole(src: TextSource, layout: str, options: Options) -> SpectralSet:
+    opened = _open(src, layout, options)
+    if opened.layout != "wide":
+        return _read_rest(opened)
+    table = opened.wide_table()
+    parts = list(_wide_parts(opened, table, guard=options.replicates == "error"))
+    values = np.vstack([v for v, _, _ in parts])
+    ids = [s for _, part, _ in parts for s in part]
+    places = [f"row {n}" for _, _, lines in parts for n in lines.tolist()]
+    return final_checks(build(table.axis, values, ids, places, opened.options, src.source,
+                              unit_from=_unit_from(options)))
 
 
-def _numeric(cells: Sequence[str], dialect: Dialect) -> bool:
-    try:
-        to_numbers(cells, dialect, source="", line=None)
-    except FormatError:
-        return False
-    return True
+def _unit_from(options: Options) -> str:
+    return "argument" if options.axis_unit else "file"
 
 
-def _monotonic(cells: Sequence[str], dialect: Dialect) -> bool:
-    if not _numeric(cells, dialect):
-        return False
-    d = np.diff(to_numbers(cells, dialect, source="", line=None))
-    return bool(np.all(d > 0) or np.all(d < 0))
+def _read_rest(opened: _Opened) -> SpectralSet:
+    """A non-wide table: every line, parsed by the layout's line-by-line parser."""
+    src = opened.src
+    numbered = [line for block in opened.blocks
+                for line in data_lines(src.decode(block.data).split("\n"), {},
+                                       start=block.first_line)]
+    rows = split_rows(numbered, opened.dialect, None, src.source)
+    axis, values, ids, places = PARSERS[opened.layout](rows, opened.dialect, src.source)
+    return final_checks(build(axis, values, ids, places, opened.options, src.source,
+                              unit_from=_unit_from(opened.options)))
 
 
-def _detect(rows: list[Row], dialect: Dialect, source: str) -> str:
-    width = len(rows[0].cells)
-    first_col = [r.cells[0] for r in rows[1:]]
-    header_numeric = _numeric(rows[0].cells[1:], dialect)
-    if width == 2 and all(_numeric(r.cells, dialect) for r in rows[1:]) and (
-        len(rows) > 1 or header_numeric
-    ):
-        return "single"
-    # Long: ids repeat down the first column; the first line is a text header or itself a
-    # data line whose id recurs (a wide header's first cell does not reappear as an id).
-    if width == 3 and len(first_col) > len(set(first_col)) and (
-        not header_numeric or rows[0].cells[0] in first_col
-    ) and all(_numeric(r.cells[1:], dialect) for r in rows[1:]):
-        return "long"
-    first_col_axis = len(first_col) > 1 and _monotonic(first_col, dialect)
-    if header_numeric and not first_col_axis:
-        return "wide"
-    if first_col_axis and not header_numeric:
-        return "transposed"
-    fix = ("state the layout (--layout wide or --layout transposed; layout='wide' or "
-           "layout='transposed' in Python)")
-    if header_numeric and first_col_axis:
-        raise FormatError(
-            f"{where(source, row=rows[0].line)}both the header and the first column are numeric "
-            f"axes, so the layout is ambiguous; {fix}"
-        )
-    raise FormatError(
-        f"{where(source, row=rows[0].line)}cannot tell the layout: expected a header of axis "
-        "values (wide), a numeric first column with sample ids in the header (transposed), "
-        f"three columns id/axis/signal (long) or two numeric columns (single); {fix}"
+def _wide_parts(opened: _Opened, table: WideTable, guard: bool = True
+                ) -> Iterator[tuple[np.ndarray, list[str], np.ndarray]]:
+    """Values, ids and line numbers of a wide table's rows, block by block."""
+    ids_seen = IdGuard(opened.src.source) if guard else None
+    last = None
+    for block in row_blocks(opened.blocks, opened.src, table.header_line):
+        values, ids = parse_rows(table, block)
+        if ids_seen is not None:
+            ids_seen.add(ids, block.lines)
+        last = block
+        yield values, ids, block.lines
+    if last is not None and last.unterminated:
+        warn_unterminated(opened.src.source, int(last.lines[-1]))
+
+
+def warn_unterminated(source: str, line: int) -> None:
+    """Warn that the last line of a file has no line end (the file may have been cut)."""
+    warnings.warn(
+        f"{where(source, row=line)}the last line has no line end, so the file may have been "
+        "cut short while it was written; check that its last value is complete",
+        BandsolveWarning, stacklevel=3,
     )
 
 
-def _need_data(rows: list[Row], source: str, layout: str) -> None:
-    if len(rows) < 2:
-        raise FormatError(
-            f"{where(source, row=rows[0].line)}a {layout} table needs a header line and at "
-            "least one data line"
-        )
-
-
-def _wide(rows: list[Row], dialect: Dialect, source: str):
-    _need_data(rows, source, "wide")
-    header = rows[0]
-    axis = to_numbers(header.cells[1:], dialect, source=source, line=header.line,
-                      what="header (axis value)")
-    names = header.cells[1:]
-    values = np.vstack([
-        to_numbers(r.cells[1:], dialect, source=source, line=r.line, names=names,
-                   sample=r.cells[0] or None)
-        for r in rows[1:]
-    ])
-    return axis, values, [r.cells[0] for r in rows[1:]], [f"row {r.line}" for r in rows[1:]]
-
-
-def _transposed(rows: list[Row], dialect: Dialect, source: str):
-    _need_data(rows, source, "transposed")
-    ids = rows[0].cells[1:]
-    axis = np.concatenate([
-        to_numbers(r.cells[:1], dialect, source=source, line=r.line, what="axis value")
-        for r in rows[1:]
-    ])
-    values = np.vstack([
-        to_numbers(r.cells[1:], dialect, source=source, line=r.line, names=ids)
-        for r in rows[1:]
-    ]).T
-    return axis, values, ids, [f"column {k + 2}" for k in range(len(ids))]
-
-
-def _long(rows: list[Row], dialect: Dialect, source: str):
-    if len(rows[0].cells) != 3:
-        raise FormatError(f"{where(source)}the long layout needs exactly three columns: sample "
-                          "id, axis value, signal")
-    if not _numeric(rows[0].cells[1:], dialect):
-        rows = rows[1:]  # header line
-    if not rows:
-        raise FormatError(f"{where(source)}no data lines after the header")
-    points: dict[str, dict[float, float]] = {}
-    for r in rows:
-        x, y = to_numbers(r.cells[1:], dialect, source=source, line=r.line,
-                          names=["axis", "signal"], sample=r.cells[0] or None)
-        spectrum = points.setdefault(r.cells[0], {})
-        if x in spectrum:
-            raise FormatError(f"{where(source, row=r.line, sample=r.cells[0])}axis value {x:g} "
-                              "appears twice for this sample; remove the repeated line")
-        spectrum[x] = y
-    ids = list(points)
-    axis = np.array(sorted(points[ids[0]]))
-    for s in ids[1:]:
-        if len(points[s]) != axis.size or not np.array_equal(sorted(points[s]), axis):
-            raise FormatError(
-                f"{where(source, sample=s)}{len(points[s])} axis points that differ from the "
-                f"{axis.size} points of sample {ids[0]!r}; every sample needs the same axis"
-            )
-    values = np.array([[points[s][x] for x in axis] for s in ids])
-    return axis, values, ids, [f"sample block {s!r}" for s in ids]
-
-
-def _single(rows: list[Row], dialect: Dialect, source: str):
-    if len(rows[0].cells) != 2:
-        raise FormatError(f"{where(source)}a single-spectrum file needs two columns (axis, "
-                          f"signal), found {len(rows[0].cells)}")
-    if not _numeric(rows[0].cells, dialect):
-        rows = rows[1:]
-    if not rows:
-        raise FormatError(f"{where(source)}no data lines after the header")
-    table = np.array([
-        to_numbers(r.cells, dialect, source=source, line=r.line, names=["axis", "signal"])
-        for r in rows
-    ])
-    stem = Path(source).stem if not source.startswith("<") else "spectrum"
-    return table[:, 0], table[:, 1][np.newaxis, :], [stem or "spectrum"], ["the file"]
-
-
-def iter_spectra_chunks(path: str | Path, chunk_size: int, *, axis_unit: str | None = None,
+# ---------------------------------------------------------------------- streaming
+def iter_spectra_chunks(file: str | Path | BinaryIO, chunk_size: int, *,
+                        layout: str = "auto", axis_unit: str | None = None,
                         quantity: str | None = None, path_length_cm: float | None = None,
+                        source: str | None = None, budget: int = BLOCK_BYTES,
                         ) -> Iterator[SpectralSet]:
-    """Stream a wide CSV file as sets of at most ``chunk_size`` spectra.
+    """Stream a text file of spectra as sets of at most ``chunk_size`` spectra.
 
-    Lines are read one at a time, so memory stays bounded by ``chunk_size`` whatever the file
-    length. Options as in :func:`read_spectra_text`; replicate ids are not merged across
-    chunks. Only the wide layout can be streamed.
+    A wide table is read ``budget`` bytes at a time, so memory is bounded by bytes whatever
+    the file length; other layouts are read whole and yielded as one set. The file is read
+    exactly as :func:`read_spectra_file` reads it (see the module notes); an id repeated
+    anywhere in the file is an error, found when the repeat is reached.
 
     Yields
     ------
@@ -243,35 +236,22 @@ def iter_spectra_chunks(path: str | Path, chunk_size: int, *, axis_unit: str | N
     """
     if not isinstance(chunk_size, int) or chunk_size < 1:
         raise FormatError(f"chunk_size must be a positive whole number, got {chunk_size!r}")
-    source = str(path)
-    try:
-        handle = open(path, encoding="utf-8-sig", errors="replace", newline="")
-    except OSError as exc:
-        raise FormatError(f"{source}: cannot read the file ({exc.strerror or exc})") from None
-    with handle:
-        meta: dict[str, str] = {}
-        lines = data_lines(handle, meta)
-        head = [next(lines, None), next(lines, None)]
-        numbered = [h for h in head if h is not None]
-        dialect = sniff([t for _, t in numbered], source)
-        header = split_rows(numbered[:1], dialect, None, source)[0]
-        options = options_from_file(Options(axis_unit, quantity, path_length_cm), meta, source)
-        block = split_rows(numbered[1:], dialect, len(header.cells), source)
-        checked = False
-        while True:
-            for number, text in lines:
-                block.extend(split_rows([(number, text)], dialect, len(header.cells), source))
-                if len(block) >= chunk_size:
-                    break
-            if not block:
-                if not checked:
-                    raise FormatError(f"{where(source)}no spectra after the header line")
-                return
-            axis, values, ids, places = _wide([header, *block], dialect, source)
-            chunk = build(axis, values, ids, places, options, source,
-                          unit_from="argument" if axis_unit else "file")
-            yield chunk if checked else final_checks(chunk)
-            checked, block = True, []
+    options = Options(axis_unit, quantity, path_length_cm)
+    with TextSource(file, source, budget) as src:
+        opened = _open(src, layout, options)
+        if opened.layout != "wide":
+            yield _read_rest(opened)
+            return
+        table = opened.wide_table()
+        first = True
+        for values, ids, lines in _wide_parts(opened, table):
+            for start in range(0, len(ids), chunk_size):
+                stop = start + chunk_size
+                chunk = build(table.axis, values[start:stop], ids[start:stop],
+                              [f"row {n}" for n in lines[start:stop].tolist()], opened.options,
+                              src.source, unit_from=_unit_from(options))
+                yield final_checks(chunk) if first else chunk
+                first = False
 
 
 def write_spectra_csv(spectra: SpectralSet, path: str | Path, layout: str = "wide") -> None:

@@ -28,7 +28,7 @@ import numpy as np
 from bandsolve.errors import FormatError, where
 from bandsolve.io._build import Options, build, final_checks
 from bandsolve.io._jcamp_data import Grid, decode_xydata, decode_xypoints
-from bandsolve.io._text import read_text
+from bandsolve.io._source import read_text
 from bandsolve.spectra import SpectralSet
 
 __all__ = ["JCAMP_SUFFIXES", "read_jcamp", "read_jcamp_text"]

@@ -12,12 +12,12 @@ import numpy as np
 
 from bandsolve.concentrations import ConcentrationTable, split_unit
 from bandsolve.errors import BandsolveWarning, DataError, FormatError, where
+from bandsolve.io._source import read_text
 from bandsolve.io._text import (
     Dialect,
     Row,
     data_lines,
     is_number,
-    read_text,
     sniff,
     split_rows,
     to_numbers,
