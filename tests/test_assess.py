@@ -74,7 +74,7 @@ def test_statistics_agree_with_scikit_learn_and_scipy(model_and_test):
         # RPD = SD(reference)/SEP (Williams 1987, from memory).
         assert s.rpd == pytest.approx(np.std(y, ddof=1) / np.std(e, ddof=1), rel=1e-12)
         # Consistency check: F = RMSEP²/RMSECV² on (n_p, n_cal) df (common practice).
-        cv = cal.merit["analytes"][k]["rmsecv"]
+        cv = cal.merit.analytes[k].rmsecv
         assert result.analytes[k].consistency_p == pytest.approx(
             stats.f.sf((s.rmse / cv) ** 2, 25, 64), rel=1e-9)
 

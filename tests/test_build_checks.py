@@ -111,7 +111,7 @@ def test_group_cross_validation_with_text_labels(tmp_path, capsys):
 
     model = load_model(tmp_path / "m.bsm")
     assert model.analytes == ("a [mg/L]", "b [mg/L]", "c [mg/L]")  # the label is no analyte
-    assert model.selection["models"][0]["cv"] == "groups"
+    assert model.selection.models[0].cv == "groups"
 
 
 def test_two_standards_per_analyte_and_a_blank_build_cleanly():

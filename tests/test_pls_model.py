@@ -36,7 +36,7 @@ def calibration():
 def test_chosen_components_match_the_number_of_absorbers(calibration):
     # Three absorbers and white noise: rank-3 signal, so 3 components (Beer's law mixtures).
     *_, cal = calibration
-    assert cal.selection["models"][0]["n_components"] == 3
+    assert cal.selection.models[0].n_components == 3
 
 
 def test_in_model_samples_rarely_flagged_foreign_band_always(calibration):

@@ -24,7 +24,6 @@ from bandsolve.calibration.build_pls import build_pls
 from bandsolve.cli.demo_data import DEMO_LABEL, write_demo_data
 from bandsolve.flags import FLAG_CODES
 from bandsolve.io import read_concentrations, read_spectra
-from bandsolve.merit import FiguresOfMerit
 from bandsolve.report import SECTION_IDS, _sections, render_report, write_report
 from bandsolve.report import _views as V
 
@@ -216,7 +215,7 @@ def test_cls_net_analyte_signal_is_orthogonal_to_the_other_pure_spectra(demo):
     # Lorber 1986: s*_k is orthogonal to every other column of S; SEL = ‖s*_k‖/‖s_k‖ ≤ 1.
     cal = demo["cls"]
     nas, sel = V.net_signal(cal, None)
-    K = cal.estimators[0].pure_spectra_
+    K = cal.estimators[0].component_spectra()
     for k in range(len(K)):
         others = np.delete(K, k, axis=0)
         np.testing.assert_allclose(others @ nas[k], 0.0, atol=1e-12)
@@ -388,6 +387,6 @@ def test_printed_pages_keep_every_word_of_the_summaries_and_tables(printed_repor
     # text of the PDF; every word of the model's figures-of-merit summary and every column
     # of the assessment must be on paper.
     printed = set(text.split())
-    words = set(FiguresOfMerit.from_dict(demo["cls"].merit).summary().split())
+    words = set(demo["cls"].merit.summary().split())
     words |= {"RMSEP/RMSECV", "consistency", "Holm"}
     assert not words - printed, sorted(words - printed)

@@ -12,7 +12,7 @@ from scipy.spatial.distance import pdist, squareform
 
 from bandsolve.calibration.build import build_cls
 from bandsolve.calibration.build_pls import build_pls
-from bandsolve.calibration.modelfile import load_model, save_model
+from bandsolve.calibration.modelfile import SCHEMA_VERSION, load_model, save_model
 from bandsolve.calibration.transferred import transfer_calibration
 from bandsolve.errors import DataError
 from bandsolve.flags import FLAG_COLUMN
@@ -216,7 +216,7 @@ def test_transferred_model_file_round_trip(moved, tmp_path):
     path = tmp_path / "moved.bsm"
     save_model(moved_model, path)
     with zipfile.ZipFile(path) as zf:
-        assert json.loads(zf.read("manifest.json"))["schema_version"] == 2
+        assert json.loads(zf.read("manifest.json"))["schema_version"] == SCHEMA_VERSION
     again = load_model(path)
     a, b = moved_model.predict(test), again.predict(test)
     np.testing.assert_array_equal(a["a [mg/L]"], b["a [mg/L]"])

@@ -107,7 +107,7 @@ def test_pls_figures_match_scikit_learn():
     rng = np.random.default_rng(4)
     spectra, table, blanks = _sets(rng)
     cal = build_pls(spectra, table, cv="blinds:10")
-    a = cal.estimators[0].n_components_
+    a = cal.selection.models[0].n_components
     assert a == 3  # three independent absorbers (theory)
     X, C = spectra.values, DESIGN
     n = len(C)
@@ -137,14 +137,15 @@ def test_merit_round_trips_through_the_model_file(tmp_path):
     for cal in (build_cls(spectra, table), build_pls(spectra, table)):
         # Models store merit at build time (σx from residuals); attach_merit returns a copy
         # with σx from the blanks and leaves the input untouched.
-        before = FiguresOfMerit.from_dict(cal.merit)
+        before = cal.merit
         stored = attach_merit(cal, spectra, table, blanks=blanks)
-        assert FiguresOfMerit.from_dict(cal.merit) == before
+        assert cal.merit == before
+        assert FiguresOfMerit.from_dict(before.to_dict()) == before
         assert "σx from: residuals" in before.summary()
         path = tmp_path / f"{cal.method}.bsm"
         save_model(stored, path)
-        loaded = FiguresOfMerit.from_dict(load_model(path).merit)
-        assert loaded == FiguresOfMerit.from_dict(stored.merit)
+        loaded = load_model(path).merit
+        assert loaded == stored.merit
         assert "σx from: blank replicates" in loaded.summary()
 
 

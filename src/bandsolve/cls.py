@@ -9,6 +9,7 @@ is resolved by ``ĉ = (K̂K̂ᵀ)⁻¹K̂a`` (Haaland & Thomas 1988).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import ClassVar
 
 import numpy as np
 from scipy import linalg, stats
@@ -16,8 +17,10 @@ from sklearn.base import BaseEstimator, RegressorMixin
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from bandsolve._scan import ScanParts, scan
+from bandsolve._state import RecordedState
 from bandsolve.diagnostics import cls_calibration_variance, f_limit_from_values
 from bandsolve.errors import ModelError
+from bandsolve.merit.signal import cls_net_analyte_signal
 
 __all__ = ["BASELINE_TERMS", "CLSRegressor", "CLSPrediction"]
 
@@ -63,7 +66,7 @@ class CLSPrediction:
     note: str = ""
 
 
-class CLSRegressor(RegressorMixin, BaseEstimator):
+class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
     """CLS (K-matrix) calibration with optional background and baseline terms.
 
     Parameters
@@ -113,6 +116,15 @@ class CLSRegressor(RegressorMixin, BaseEstimator):
     >>> np.round(model.predict(np.array([[0.72, 1.02, 1.26]])), 6)
     array([[0.6, 1.2]])
     """
+
+    STATE_FIELDS: ClassVar[dict[str, str]] = {
+        "pure_spectra": "pure_spectra_", "background": "background_",
+        "gram_inv": "gram_inv_", "n_calibration": "n_calibration_",
+        "calibration_variance": "s2_cal_", "residual_limit": "residual_limit_",
+        "loo_f_ratios": "cv_f_ratios_", "n_baseline_terms": "n_baseline_terms_",
+        "augmented_spectra": "augmented_spectra_", "augmented_gram_inv": "aug_gram_inv_",
+        "n_features_in": "n_features_in_", "single_output": "_single_output",
+    }
 
     def __init__(self, fit_intercept: bool = False, baseline: str = "none",
                  wavelengths=None, alpha: float = 0.01):
@@ -300,6 +312,80 @@ class CLSRegressor(RegressorMixin, BaseEstimator):
             note = (f"no standard error: {K.shape[1]} wavelengths for {m + q} unknowns leave no "
                     "residual degrees of freedom; use more wavelengths")
         return CLSPrediction(conc, se, dof, rss, ratio, lev, coef[:, m:], note)
+
+    # ------------------------------------------------------------------ what the model holds
+    @property
+    def from_standards(self) -> bool:
+        """True when K was estimated from standards (False: from absorptivities)."""
+        check_is_fitted(self, "pure_spectra_")
+        return self.gram_inv_ is not None
+
+    @property
+    def n_parameters(self) -> int:
+        """m′: model spectra estimated per channel (analytes, plus one with an intercept)."""
+        check_is_fitted(self, "pure_spectra_")
+        return self.pure_spectra_.shape[0] + int(bool(self.fit_intercept))
+
+    @property
+    def residual_limit(self) -> float:
+        """Limit of the residual F ratio (NaN when it could not be set)."""
+        check_is_fitted(self, "pure_spectra_")
+        return float(self.residual_limit_)
+
+    @property
+    def calibration_variance(self) -> float:
+        """Calibration residual variance per channel s²_cal (AU²; NaN without residuals)."""
+        check_is_fitted(self, "pure_spectra_")
+        return float(self.s2_cal_)
+
+    def component_spectra(self) -> np.ndarray:
+        """K̂, shape (m, p): absorbance per unit concentration of each analyte."""
+        check_is_fitted(self, "pure_spectra_")
+        return self.pure_spectra_.copy()
+
+    def model_spectra(self) -> np.ndarray:
+        """``K_aug``, shape (m + q, p): the pure spectra followed by the q baseline rows."""
+        check_is_fitted(self, "pure_spectra_")
+        return self.augmented_spectra_.copy()
+
+    def leverage_limit(self, factor: float) -> float:
+        """Leverage warning limit ``factor · m′ / n`` (Hoaglin & Welsch 1978); NaN without
+        standards."""
+        if not self.from_standards:
+            return float("nan")
+        return factor * self.gram_inv_.shape[0] / self.n_calibration_
+
+    def blank_leverage(self) -> float:
+        """h0 of the blank composition ``c0 = 0`` (1 for the intercept column), ``c0ᵀ(CᵀC)⁻¹c0``.
+
+        0 for a model from absorptivities or without an intercept.
+        """
+        if not (self.from_standards and self.fit_intercept):
+            return 0.0
+        return float(self.gram_inv_[-1, -1])
+
+    def residuals(self, X) -> np.ndarray:
+        """Spectral residuals ``x − bg − K_augᵀ[ĉ; baseline]`` of new spectra, shape (n, p)."""
+        d = self.predict_detail(X)
+        X = np.asarray(X, dtype=float)
+        coef = np.hstack([d.concentrations, d.baseline])
+        return X - self.background_ - coef @ self.augmented_spectra_
+
+    def calibration_residuals(self, X, Y) -> np.ndarray:
+        """Residuals ``A − C K̂ − bg`` of spectra with known concentrations Y (n × m), (n, p)."""
+        check_is_fitted(self, "pure_spectra_")
+        Y = np.asarray(Y, dtype=float).reshape(len(X), -1)
+        return np.asarray(X, dtype=float) - Y @ self.pure_spectra_ - self.background_
+
+    def net_analyte_signal(self) -> np.ndarray:
+        """Net analyte signal vectors at unit concentration, shape (m, p).
+
+        The part of each pure spectrum orthogonal to all other rows of ``K_aug`` (other
+        analytes and baseline terms); Lorber 1986, Anal. Chem. 58, 1167–1172.
+        """
+        aug = self.model_spectra()
+        return np.vstack([cls_net_analyte_signal(aug.T, k)
+                          for k in range(self.pure_spectra_.shape[0])])
 
     def __sklearn_tags__(self):
         tags = super().__sklearn_tags__()

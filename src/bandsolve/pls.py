@@ -8,6 +8,8 @@ are kept in ``coef_path_`` so that predictions for fewer components need no refi
 from __future__ import annotations
 
 import numbers
+from dataclasses import dataclass
+from typing import ClassVar
 
 import numpy as np
 from sklearn.base import BaseEstimator, RegressorMixin, TransformerMixin
@@ -15,9 +17,12 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 
 from bandsolve._pls_kernels import gram_pls, kernel_pls
 from bandsolve._scan import ScanParts
+from bandsolve._state import RecordedState
+from bandsolve.diagnostics import hotelling_t2
+from bandsolve.diagnostics import leverage as score_leverage
 from bandsolve.errors import ModelError
 
-__all__ = ["PLSRegressor"]
+__all__ = ["PLSPrediction", "PLSRegressor"]
 
 _ALGORITHMS = ("auto", "kernel", "wide")
 _ROW_BLOCK = 4096  # rows per block when forming residuals, to bound memory for large batches
@@ -40,7 +45,33 @@ def column_scale(xc: np.ndarray) -> np.ndarray:
     return sd
 
 
-class PLSRegressor(TransformerMixin, RegressorMixin, BaseEstimator):
+@dataclass(frozen=True)
+class PLSPrediction:
+    """Predictions and per-sample statistics from :meth:`PLSRegressor.detail_from_scan`.
+
+    Attributes
+    ----------
+    concentrations : ndarray, shape (n, m)
+    scores : ndarray, shape (n, A)
+    q : ndarray, shape (n,)
+        Q residual ``‖x_s − P Rᵀ x_s‖²`` (AU² without scaling).
+    t2 : ndarray, shape (n,)
+        Hotelling T² against the training scores.
+    leverage : ndarray, shape (n,)
+        ``h = 1/n + T²/(n − 1)`` (n calibration samples).
+    dof : int
+        ``n − A − 1``, the degrees of freedom of MSEC.
+    """
+
+    concentrations: np.ndarray
+    scores: np.ndarray
+    q: np.ndarray
+    t2: np.ndarray
+    leverage: np.ndarray
+    dof: int
+
+
+class PLSRegressor(RecordedState, TransformerMixin, RegressorMixin, BaseEstimator):
     """Partial least squares regression of concentrations on spectra.
 
     X and Y are mean-centred; with ``scale=True`` the columns of X (wavelengths) are also
@@ -118,6 +149,16 @@ class PLSRegressor(TransformerMixin, RegressorMixin, BaseEstimator):
     >>> model.predict(spectra[:3]).shape
     (3,)
     """
+
+    STATE_FIELDS: ClassVar[dict[str, str]] = {
+        "x_mean": "x_mean_", "x_scale": "x_scale_", "y_mean": "y_mean_",
+        "x_weights": "x_weights_", "x_rotations": "x_rotations_",
+        "x_loadings": "x_loadings_", "y_loadings": "y_loadings_", "x_scores": "x_scores_",
+        "coef": "coef_", "intercept": "intercept_", "coef_path": "coef_path_",
+        "intercept_path": "intercept_path_", "explained_variance_x": "explained_variance_x_",
+        "n_components": "n_components_", "n_features_in": "n_features_in_",
+        "single_output": "_y_1d",
+    }
 
     def __init__(self, n_components: int = 2, algorithm: str = "auto", scale: bool = False):
         self.n_components = n_components
@@ -274,13 +315,13 @@ class PLSRegressor(TransformerMixin, RegressorMixin, BaseEstimator):
         matrix = np.column_stack([R * inv[:, None], P * inv[:, None], self.x_mean_ * inv**2])
         return ScanParts(matrix, inv**2)
 
-    def detail_from_scan(self, H: np.ndarray, ss: np.ndarray
-                         ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Predictions, scores and Q from ``H = X @ scan_parts().matrix`` and weighted ``ss``.
+    def detail_from_scan(self, H: np.ndarray, ss: np.ndarray) -> PLSPrediction:
+        """Predictions, scores, Q, T² and leverage from ``H = X @ scan_parts().matrix``.
 
         With x_s the centred, scaled spectrum: scores ``t = Rᵀx_s``, and
         ``Q = ‖x_s‖² − 2tᵀ(Pᵀx_s) + tᵀ(PᵀP)t``; exact in float64 to ~1e-9 relative for
-        absorbance data. Predictions are ``ȳ + t Qᵀ`` (the nested PLS model).
+        absorbance data. Predictions are ``ȳ + t Qᵀ`` (the nested PLS model); T² and the
+        leverage ``h = 1/n + T²/(n − 1)`` are against the training scores.
         """
         a = self.n_components_
         mu = self.x_mean_ / self.x_scale_
@@ -291,7 +332,36 @@ class PLSRegressor(TransformerMixin, RegressorMixin, BaseEstimator):
         q = total - 2.0 * np.einsum("ij,ij->i", scores, proj) + np.einsum(
             "ij,ij->i", scores @ (P.T @ P), scores)
         pred = self.y_mean_ + scores @ self.y_loadings_[:, :a].T
-        return pred, scores, np.maximum(q, 0.0)
+        n_cal = self.x_scores_.shape[0]
+        t2 = hotelling_t2(scores, self.x_scores_)
+        lev = 1.0 / n_cal + t2 / (n_cal - 1)
+        return PLSPrediction(pred, scores, np.maximum(q, 0.0), t2, lev, n_cal - a - 1)
+
+    # ------------------------------------------------------------------ what the model holds
+    @property
+    def n_parameters(self) -> int:
+        """A + 1: components plus the mean (the degrees of freedom RMSEC uses)."""
+        check_is_fitted(self)
+        return int(self.n_components_) + 1
+
+    def regression_vectors(self) -> np.ndarray:
+        """Regression vectors b, shape (m, p), in concentration units per AU."""
+        check_is_fitted(self)
+        return np.atleast_2d(self.coef_).copy()
+
+    def net_analyte_signal(self) -> np.ndarray:
+        """NAS vectors at unit concentration ``b/‖b‖²``, shape (m, p) (Faber 1998)."""
+        b = self.regression_vectors()
+        return b / np.sum(b**2, axis=1, keepdims=True)
+
+    def leverage(self, X) -> np.ndarray:
+        """Leverage ``1/n + tᵀ(TᵀT)⁻¹t`` of spectra X (n_new, p) against the training scores."""
+        return score_leverage(self.transform(X), self.x_scores_)
+
+    def residuals(self, X) -> np.ndarray:
+        """Spectral residuals ``x_s − P Rᵀ x_s`` in the centred (and scaled) space, (n, p)."""
+        xs = self._centred(X)
+        return xs - (xs @ self.x_rotations_) @ self.x_loadings_.T
 
     def __sklearn_tags__(self):
         tags = super().__sklearn_tags__()

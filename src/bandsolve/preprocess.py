@@ -8,12 +8,14 @@ centring, the one step that does learn from data, lives inside the regression es
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import ClassVar
 
 import numpy as np
 from scipy.signal import savgol_filter
 from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.utils.validation import check_is_fitted, validate_data
 
+from bandsolve._state import RecordedState
 from bandsolve.errors import ModelError
 from bandsolve.spectra import describe_window, window_mask
 
@@ -38,7 +40,7 @@ def parse_window(text: str) -> list[tuple[float, float]]:
     return ranges
 
 
-class SpectralPreprocessor(TransformerMixin, BaseEstimator):
+class SpectralPreprocessor(RecordedState, TransformerMixin, BaseEstimator):
     """Savitzky–Golay smoothing or derivative, wavelength window, per-spectrum offset.
 
     Steps run in that order: the filter sees the full measured range (so the window edges
@@ -71,6 +73,10 @@ class SpectralPreprocessor(TransformerMixin, BaseEstimator):
     ----------
     Savitzky, A.; Golay, M. J. E. Anal. Chem. 1964, 36, 1627–1639.
     """
+
+    STATE_FIELDS: ClassVar[dict[str, str]] = {
+        "used_points": "mask_", "used_axis": "axis_out_",
+        "n_features_in": "n_features_in_"}
 
     def __init__(self, axis=None, window: Sequence[tuple[float, float]] | None = None,
                  savgol_window: int | None = None, savgol_polyorder: int = 2,
@@ -117,6 +123,18 @@ class SpectralPreprocessor(TransformerMixin, BaseEstimator):
                 if not np.allclose(steps, steps[0], rtol=1e-6):
                     raise ModelError("derivatives need an evenly spaced axis; resample first")
         return self
+
+    @property
+    def used_mask(self) -> np.ndarray:
+        """Input points kept by the window, bool of shape (p,)."""
+        check_is_fitted(self, "mask_")
+        return self.mask_
+
+    @property
+    def used_axis(self) -> np.ndarray | None:
+        """Axis of the output columns (None when no axis was given)."""
+        check_is_fitted(self, "mask_")
+        return self.axis_out_
 
     def transform(self, X):
         """Apply filter, window and offset; returns shape (n, p_out)."""

@@ -33,12 +33,13 @@ Standardization of near-infrared spectrometric instruments. *Anal. Chem.* 68, 98
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
-from bandsolve.errors import DataError
+from bandsolve.errors import DataError, ModelFileError
 
 __all__ = ["AxisShift", "Transfer", "axis_shift", "direct_standardization", "kennard_stone",
            "piecewise_direct_standardization", "slope_bias_correction", "TRANSFER_METHODS"]
@@ -104,6 +105,19 @@ class Transfer:
         """A copy with ``items`` added to :attr:`record`."""
         return Transfer(self.method, self.n_samples, self.matrix, self.offset, self.slope,
                         self.bias, self.half_window, {**self.record, **items})
+
+    def to_dict(self) -> dict[str, Any]:
+        """Every field by name (arrays stay arrays; the model file stores them as ``.npy``)."""
+        return dataclasses.asdict(self)
+
+    @classmethod
+    def from_dict(cls, data: dict[str, Any]) -> Transfer:
+        """Rebuild from :meth:`to_dict` output; ModelFileError when the entry is damaged."""
+        try:
+            return cls(**data)
+        except TypeError as exc:
+            raise ModelFileError(f"the model's transfer entry is damaged ({exc}); transfer "
+                                 "the original model again") from None
 
     def describe(self) -> dict[str, Any]:
         """JSON-friendly summary (no arrays)."""

@@ -13,6 +13,7 @@ import numpy as np
 from bandsolve import __version__
 from bandsolve.calibration.detail import LEVERAGE_FACTOR
 from bandsolve.calibration.model import Calibration
+from bandsolve.calibration.records import EstimatorLimits, Limits
 from bandsolve.cls import CLSRegressor
 from bandsolve.concentrations import ConcentrationTable, align
 from bandsolve.errors import BandsolveError, BandsolveWarning, DataError, ModelError, where
@@ -71,7 +72,7 @@ def _check_residual_noise(est: CLSRegressor, blank_sd: float, source: str | None
     calibration residuals carry its spectrum and are much larger than instrument noise, yet
     the residual limit, set from those same residuals, cannot see it.
     """
-    residual_sd = float(np.sqrt(est.s2_cal_))
+    residual_sd = float(np.sqrt(est.calibration_variance))
     if np.isfinite(residual_sd) and residual_sd > RESIDUAL_NOISE_FACTOR * blank_sd:
         warnings.warn(
             f"{where(source)}CLS calibration residuals ({residual_sd:.3g} AU) are "
@@ -136,19 +137,19 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
     """
     spectra, C = training_arrays(spectra, table, blank)
     pre = SpectralPreprocessor(axis=spectra.axis, window=window).fit(spectra.values)
-    check_ceiling(spectra, pre.mask_, ceiling)
+    check_ceiling(spectra, pre.used_mask, ceiling)
     Z = pre.transform(spectra.values)
-    est = CLSRegressor(fit_intercept=intercept, baseline=baseline, wavelengths=pre.axis_out_,
+    est = CLSRegressor(fit_intercept=intercept, baseline=baseline, wavelengths=pre.used_axis,
                        alpha=alpha).fit(Z, C)
     if blanks is not None:
         _check_residual_noise(est, float(noise_from_blanks(
             pre.transform(_on_grid(blanks, spectra).values))), spectra.source)
     settings = {"intercept": intercept, "baseline": baseline, "window": window,
                 "alpha": alpha, "blank_subtracted": blank is not None}
-    limits = {"residual": {"method": "Box scaled chi-squared fitted to leave-one-out "
-                                     "calibration F ratios", "alpha": alpha,
-                           "value": est.residual_limit_},
-              "leverage_factor": LEVERAGE_FACTOR}
+    limits = Limits(LEVERAGE_FACTOR, (EstimatorLimits(
+        alpha=alpha, residual=est.residual_limit,
+        residual_method="Box scaled chi-squared fitted to leave-one-out calibration F ratios",
+        leverage=est.leverage_limit(LEVERAGE_FACTOR)),))
     cal = Calibration(
         method="cls", analytes=table.analytes, axis=spectra.axis, axis_unit=spectra.axis_unit,
         preprocessor=pre, estimators=[est],
@@ -213,7 +214,7 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
     else:
         blank_z = pre.transform(_on_grid(blanks, absorptivities).values)
         noise = float(noise_from_blanks(blank_z))
-    est = CLSRegressor.from_pure_spectra(K, baseline=baseline, wavelengths=pre.axis_out_,
+    est = CLSRegressor.from_pure_spectra(K, baseline=baseline, wavelengths=pre.used_axis,
                                          noise_sd=noise)
     m = K.shape[0]
     low, high = concentration_range or (0.0, np.inf)
@@ -224,10 +225,10 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
         settings={"from_absorptivities": True, "baseline": baseline, "window": window,
                   "path_length_cm": path_length_cm},
         path_length_cm=path_length_cm, ceiling=ceiling,
-        limits={"residual": {
-            "method": "none (no calibration residuals, no blanks)" if noise is None else
-            "chi-squared with p-m-q degrees of freedom, noise from replicate blanks",
-            "value": None if noise is None else est.residual_limit_}},
+        limits=Limits(LEVERAGE_FACTOR, (EstimatorLimits(
+            alpha=float("nan") if noise is None else est.alpha, residual=est.residual_limit,
+            residual_method="none (no calibration residuals, no blanks)" if noise is None else
+            "chi-squared with p-m-q degrees of freedom, noise from replicate blanks"),)),
         provenance=provenance_record(provenance, 0),
     )
     return cal if blanks is None else with_merit(cal, None, None, blanks)

@@ -14,6 +14,7 @@ from bandsolve.calibration.build import (
 )
 from bandsolve.calibration.detail import LEVERAGE_FACTOR
 from bandsolve.calibration.model import Calibration
+from bandsolve.calibration.records import ComponentChoice, EstimatorLimits, Limits, Selection
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.crossval import cross_validate_pls, select_components
 from bandsolve.diagnostics import (
@@ -38,7 +39,8 @@ def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str =
                         select: str = "randomization", alpha: float = 0.05,
                         scale: bool = False, limit_alpha: float = 0.01,
                         q_limit: str = "box",
-                        random_state: int = 0) -> tuple[PLSRegressor, dict, dict]:
+                        random_state: int = 0
+                        ) -> tuple[PLSRegressor, EstimatorLimits, ComponentChoice]:
     """Cross-validate, choose the component count, fit, and set the diagnostic limits.
 
     Limits (all at ``limit_alpha``):
@@ -59,8 +61,8 @@ def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str =
     Returns
     -------
     model : PLSRegressor
-    limits : dict
-    selection : dict
+    limits : EstimatorLimits
+    selection : ComponentChoice
         Rule, chosen count and the CV evidence (RMSECV curve, p-values).
     """
     n = Z.shape[0]
@@ -76,25 +78,21 @@ def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str =
         if not 1 <= a <= a_max:
             raise ModelError(f"--components {a} is outside 1..{a_max} for {n} samples")
     model = PLSRegressor(n_components=a, scale=scale).fit(Z, Y)
-    a = model.n_components_
+    a = model.n_parameters - 1
     fitted = np.asarray(model.predict(Z)).reshape(n, -1)
     msec = np.sum((Y.reshape(n, -1) - fitted) ** 2, axis=0) / max(n - a - 1, 1)
     q_cv = cv_result.q_residuals[a - 1]
     q = _q_limit(model, Z, q_cv, limit_alpha, q_limit)
-    limits = {
-        "alpha": limit_alpha,
-        "t2_limit": t2_limit(a, n, alpha=limit_alpha, kind="new"),
-        "q_limit": q.value,
-        "q_method": q.method,
-        "q_parameters": q.parameters,
-        "leverage_limit": leverage_limit(a, n, factor=LEVERAGE_FACTOR),
-        "msec": msec.tolist(),
-        "rmsecv": cv_result.rmsecv[a - 1].tolist(),
-    }
+    limits = EstimatorLimits(
+        alpha=limit_alpha, residual=q.value, residual_method=q.method,
+        residual_parameters=dict(q.parameters),
+        t2=float(t2_limit(a, n, alpha=limit_alpha, kind="new")),
+        leverage=float(leverage_limit(a, n, factor=LEVERAGE_FACTOR)),
+        msec=tuple(msec.tolist()), rmsecv=tuple(cv_result.rmsecv[a - 1].tolist()))
     evidence = dict(chosen.evidence)
     evidence.update(rule=select if components == "auto" else f"fixed ({select} suggests "
                     f"{chosen.n_components})", alpha=alpha, n_components=a, cv=str(cv))
-    return model, limits, evidence
+    return model, limits, ComponentChoice.from_dict(evidence)
 
 
 def _q_limit(model: PLSRegressor, Z: np.ndarray, q_cv: np.ndarray, alpha: float,
@@ -104,9 +102,7 @@ def _q_limit(model: PLSRegressor, Z: np.ndarray, q_cv: np.ndarray, alpha: float,
         return q_limit_from_values(q_cv, alpha=alpha)
     if method != "jackson-mudholkar":
         raise ModelError(f"Q limit must be 'jackson-mudholkar' or 'box', not {method!r}")
-    xs = (Z - model.x_mean_) / model.x_scale_
-    resid = xs - model.transform(Z) @ model.x_loadings_.T
-    eig = residual_eigenvalues(resid)
+    eig = residual_eigenvalues(model.residuals(Z))
     fitted_mean = eig.sum() * (len(Z) - 1) / len(Z)  # mean fitted Q
     return q_limit_jackson_mudholkar(eig * (np.mean(q_cv) / fitted_mean), alpha)
 
@@ -164,7 +160,7 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
     pre = SpectralPreprocessor(axis=spectra.axis, window=window, savgol_window=savgol_window,
                                savgol_polyorder=savgol_polyorder, derivative=derivative,
                                offset=offset).fit(spectra.values)
-    check_ceiling(spectra, pre.mask_, ceiling)
+    check_ceiling(spectra, pre.used_mask, ceiling)
     Z = pre.transform(spectra.values)
     targets = [C] if mode == "pls2" else [C[:, [k]] for k in range(C.shape[1])]
     models, limits, evidence = [], [], []
@@ -187,8 +183,8 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
         preprocessor=pre, estimators=models,
         calibrated_range=np.column_stack([C.min(axis=0), C.max(axis=0)]),
         settings=settings, path_length_cm=spectra.path_length_cm, ceiling=ceiling,
-        limits={"models": limits, "leverage_factor": LEVERAGE_FACTOR},
-        selection={"mode": mode, "models": evidence},
+        limits=Limits(LEVERAGE_FACTOR, tuple(limits)),
+        selection=Selection(mode, tuple(evidence)),
         provenance=provenance_record(provenance, len(C)),
     )
     return with_merit(cal, spectra, table, blanks)

@@ -1,21 +1,59 @@
-"""Per-method conversion of a fitted estimator's output into a method-independent Detail."""
+"""Per-sample detail: what a calibration computes for each spectrum before it becomes a table.
+
+:class:`Detail` is method-independent; :func:`cls_detail` and :func:`pls_detail` build it from
+an estimator's own per-sample statistics and the stored limits.
+"""
 
 from __future__ import annotations
 
-from typing import Any
+from collections.abc import Sequence
+from dataclasses import dataclass, field
 
 import numpy as np
 
-from bandsolve.calibration.model import Detail
+from bandsolve.calibration.records import EstimatorLimits
 from bandsolve.cls import CLSRegressor
+from bandsolve.pls import PLSRegressor
 
-__all__ = ["cls_detail", "pls_detail", "LEVERAGE_FACTOR"]
+__all__ = ["Detail", "LEVERAGE_FACTOR", "cls_detail", "pls_detail"]
 
 #: Leverage warning limit is LEVERAGE_FACTOR × (parameters) / n (Hoaglin & Welsch 1978).
 LEVERAGE_FACTOR = 3.0
 
 
-def cls_detail(model: CLSRegressor, H: np.ndarray, ss: np.ndarray) -> Detail:
+@dataclass(frozen=True)
+class Detail:
+    """Method-independent per-sample results, before they become a table.
+
+    Attributes
+    ----------
+    concentrations, standard_errors : ndarray, shape (n, m)
+    dof : ndarray, shape (m,)
+        Degrees of freedom of the Student t quantile for each analyte's interval.
+    residual_ratio : ndarray, shape (n,)
+        Spectral residual (CLS F ratio, or PLS Q) divided by its limit.
+    t2_ratio : ndarray, shape (n,)
+        Hotelling T² divided by its limit (NaN for CLS).
+    leverage_ratio : ndarray, shape (n,)
+        Leverage divided by its warning limit.
+    notes : list of str
+        Model-level remarks that apply to every row (for example why an SE is missing).
+    max_absorbance : ndarray, shape (n,) or None
+        Largest absorbance of each spectrum in the used range, for the ceiling flag.
+    """
+
+    concentrations: np.ndarray
+    standard_errors: np.ndarray
+    dof: np.ndarray
+    residual_ratio: np.ndarray
+    t2_ratio: np.ndarray
+    leverage_ratio: np.ndarray
+    notes: list[str] = field(default_factory=list)
+    max_absorbance: np.ndarray | None = None
+
+
+def cls_detail(model: CLSRegressor, limits: EstimatorLimits, H: np.ndarray,
+               ss: np.ndarray) -> Detail:
     """Detail for a CLS model from its scan products (:meth:`CLSRegressor.scan_parts`).
 
     SE from each sample's own residual, F-ratio and leverage ratios.
@@ -23,19 +61,18 @@ def cls_detail(model: CLSRegressor, H: np.ndarray, ss: np.ndarray) -> Detail:
     d = model.detail_from_scan(H, ss)
     n, m = d.concentrations.shape
     notes = [d.note] if d.note else []
-    if model.gram_inv_ is None:
+    if model.from_standards:
+        lev_ratio = d.leverage / limits.leverage
+    else:
         lev_ratio = np.zeros(n)
         notes.append("model built from absorptivities: standard errors come from each "
                      "spectrum's own residual only")
-    else:
-        n_cal = model.n_calibration_
-        lev_ratio = d.leverage / (LEVERAGE_FACTOR * model.gram_inv_.shape[0] / n_cal)
-    if np.isnan(model.residual_limit_):
+    if np.isnan(model.residual_limit):
         notes.append(
-            "no residual limit, so an unmodelled absorber cannot be flagged: rebuild with "
-            "replicate blank spectra (--blanks)" if model.gram_inv_ is None else
             "no residual limit: the calibration left too few residual degrees of freedom "
-            "to set one; measure more standards than analytes")
+            "to set one; measure more standards than analytes" if model.from_standards else
+            "no residual limit, so an unmodelled absorber cannot be flagged: rebuild with "
+            "replicate blank spectra (--blanks)")
     return Detail(
         concentrations=d.concentrations,
         standard_errors=d.standard_errors,
@@ -47,7 +84,7 @@ def cls_detail(model: CLSRegressor, H: np.ndarray, ss: np.ndarray) -> Detail:
     )
 
 
-def pls_detail(models: list[Any], limits: dict[str, Any],
+def pls_detail(models: Sequence[PLSRegressor], limits: Sequence[EstimatorLimits],
                scans: list[tuple[np.ndarray, np.ndarray]]) -> Detail:
     """Detail for PLS: one model (PLS2) or one per analyte (PLS1).
 
@@ -56,28 +93,23 @@ def pls_detail(models: list[Any], limits: dict[str, Any],
     the largest over the per-analyte models for PLS1. ``scans`` holds each model's scan
     products ``(H, ss)`` (:meth:`PLSRegressor.scan_parts`).
     """
-    from bandsolve.diagnostics import hotelling_t2
-
     n = scans[0][0].shape[0]
     concs, ses, dofs = [], [], []
     q_ratio = np.zeros(n)
     t2_ratio = np.zeros(n)
     lev_ratio = np.zeros(n)
-    for model, lim, (H, ss) in zip(models, limits["models"], scans, strict=True):
-        pred, scores, q = model.detail_from_scan(H, ss)
-        train = model.x_scores_
-        n_cal, a = train.shape
-        t2 = hotelling_t2(scores, train)
-        lev = 1.0 / n_cal + t2 / (n_cal - 1)
-        msec = np.asarray(lim["msec"], dtype=float)
-        s2_ref = np.asarray(lim.get("reference_variance", np.zeros_like(msec)), dtype=float)
-        var = (1 + lev)[:, None] * msec[None, :] - s2_ref[None, :]
-        concs.append(pred)
+    for model, lim, (H, ss) in zip(models, limits, scans, strict=True):
+        d = model.detail_from_scan(H, ss)
+        msec = np.asarray(lim.msec, dtype=float)
+        s2_ref = (np.asarray(lim.reference_variance, dtype=float) if lim.reference_variance
+                  else np.zeros_like(msec))
+        var = (1 + d.leverage)[:, None] * msec[None, :] - s2_ref[None, :]
+        concs.append(d.concentrations)
         ses.append(np.sqrt(np.maximum(var, 0.0)))
-        dofs.extend([n_cal - a - 1] * pred.shape[1])
-        q_ratio = np.maximum(q_ratio, q / lim["q_limit"])
-        t2_ratio = np.maximum(t2_ratio, t2 / lim["t2_limit"])
-        lev_ratio = np.maximum(lev_ratio, lev / lim["leverage_limit"])
+        dofs.extend([d.dof] * d.concentrations.shape[1])
+        q_ratio = np.maximum(q_ratio, d.q / lim.residual)
+        t2_ratio = np.maximum(t2_ratio, d.t2 / lim.t2)
+        lev_ratio = np.maximum(lev_ratio, d.leverage / lim.leverage)
     return Detail(
         concentrations=np.hstack(concs),
         standard_errors=np.hstack(ses),

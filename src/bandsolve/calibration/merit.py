@@ -36,18 +36,12 @@ from sklearn.base import clone
 from bandsolve.calibration.model import Calibration
 from bandsolve.concentrations import ConcentrationTable, align, split_unit
 from bandsolve.crossval import cross_validate_estimator
-from bandsolve.diagnostics import leverage
 from bandsolve.errors import DataError, ModelError
 from bandsolve.merit import (
     FiguresOfMerit,
-    NoiseEstimate,
     SignalFigures,
-    blank_leverage,
-    cls_figures,
     figures_of_merit,
-    inverse_figures,
     noise_from_blanks,
-    noise_from_residuals,
     regression_statistics,
     univariate_calibration,
 )
@@ -89,83 +83,32 @@ def _blank_arrays(cal: Calibration, blanks: SpectralSet | None) -> np.ndarray | 
     return cal.prepare(blanks)[0]
 
 
-def _predict(cal: Calibration, Z: np.ndarray) -> np.ndarray:
-    return np.hstack([np.asarray(e.predict(Z)).reshape(len(Z), -1) for e in cal.estimators])
-
-
-def _n_terms(est: Any, C: np.ndarray) -> int:
-    """m′: concentration columns plus the intercept column of a CLS design."""
-    return C.shape[1] + int(bool(est.fit_intercept))
-
-
-def _cls_signal(cal: Calibration, Z: np.ndarray | None, C: np.ndarray | None,
-                blank_z: np.ndarray | None) -> SignalFigures:
-    est = cal.estimators[0]
+def _signal(cal: Calibration, Z: np.ndarray | None, C: np.ndarray | None,
+            blank_z: np.ndarray | None,
+            reference_variance: float | Sequence[float] | None) -> SignalFigures:
     if blank_z is not None:
         noise = noise_from_blanks(blank_z)
     elif Z is not None:
-        resid = Z - C @ est.pure_spectra_ - est.background_
-        noise = noise_from_residuals(resid, Z.shape[1] * (len(Z) - _n_terms(est, C)))
+        noise = cal.kind.noise_from_residuals(cal.estimators, Z, C)
     else:
         raise DataError("a CLS model built from absorptivities has no calibration residuals; "
                         "give replicate blank spectra to estimate the noise")
-    if est.gram_inv_ is None:
-        h0 = 0.0
-    else:
-        ones = np.ones((len(C), 1))
-        design = np.hstack([C, ones]) if est.fit_intercept else C
-        c0 = np.r_[np.zeros(C.shape[1]), np.ones(design.shape[1] - C.shape[1])]
-        h0 = blank_leverage(design, c0)
-    return cls_figures(est.augmented_spectra_, cal.n_analytes, noise, h0=h0)
-
-
-def _pls_noise(cal: Calibration, Z: np.ndarray) -> NoiseEstimate:
-    # PLS1: the model with the most components leaves the least structure in its residuals.
-    est = max(cal.estimators, key=lambda e: e.n_components_)
-    if est.scale:
-        raise ModelError("σx from residuals is not defined for autoscaled PLS (the residuals "
-                         "are unit-free); give replicate blank spectra")
-    n, p = Z.shape
-    a = est.n_components_
-    # One column holding each sample's residual norm has the same ‖E‖²_F as the residuals.
-    norms = np.sqrt(est.x_residual_ss(Z))[:, None]
-    return noise_from_residuals(norms, (n - 1 - a) * (p - a))
-
-
-def _pls_signal(cal: Calibration, Z: np.ndarray, C: np.ndarray, blank_z: np.ndarray | None,
-                reference_variance: float | Sequence[float] | None) -> SignalFigures:
-    noise = noise_from_blanks(blank_z) if blank_z is not None else _pls_noise(cal, Z)
     # The blank composition's spectrum: the measured blank mean, unless the model subtracts a
     # blank from every spectrum — then a routine blank becomes the zero spectrum.
     subtracted = bool(cal.settings.get("blank_subtracted"))
-    blank = (np.zeros(Z.shape[1]) if blank_z is None or subtracted
-             else blank_z.mean(axis=0))
-    coef, h0 = [], []
-    for est in cal.estimators:
-        b = np.asarray(est.coef_)
-        coef.append(b.T)
-        h = leverage(est.transform(blank[None, :]), est.x_scores_)[0]
-        h0.extend([h] * b.shape[0])
+    blank = None if blank_z is None or subtracted else blank_z.mean(axis=0)
     var_y = np.broadcast_to(np.asarray(0.0 if reference_variance is None
-                                       else reference_variance, dtype=float), (C.shape[1],))
+                                       else reference_variance, dtype=float), (cal.n_analytes,))
     if np.any(var_y < 0):
         raise DataError("reference_variance must be a non-negative variance per analyte "
                         "(concentration units squared)")
-    b_all = np.hstack(coef)
-    parts = [inverse_figures(b_all[:, k], noise, h0=h0[k], sigma_y=float(np.sqrt(var_y[k])),
-                             X_calibration=Z, y_calibration=C[:, k])
-             for k in range(C.shape[1])]
-    return dataclasses.replace(parts[0], **{
-        f: np.concatenate([getattr(s, f) for s in parts])
-        for f in ("sensitivity", "selectivity", "analytical_sensitivity", "lod", "loq", "h0")})
+    return cal.kind.signal(cal.estimators, noise, Z=Z, C=C, blank=blank,
+                           reference_variance=var_y)
 
 
 def _rmsecv(cal: Calibration, Z: np.ndarray, C: np.ndarray, cv: Any) -> np.ndarray | None:
-    if cal.method == "pls":
-        values = []
-        for ev in (cal.selection or {}).get("models", []):
-            values.extend(np.asarray(ev["rmsecv"], dtype=float)[ev["n_components"] - 1])
-        return np.asarray(values) if len(values) == C.shape[1] else None
+    if cal.selection is not None:  # recorded at build time with the component choice
+        return cal.kind.stored_rmsecv(cal.selection, C.shape[1])
     try:
         res = cross_validate_estimator(clone(cal.estimators[0]), Z, C,
                                        cv=f"blinds:{min(10, len(Z))}" if cv is None else cv)
@@ -175,12 +118,11 @@ def _rmsecv(cal: Calibration, Z: np.ndarray, C: np.ndarray, cv: Any) -> np.ndarr
 
 
 def _rmsec(cal: Calibration, Z: np.ndarray, C: np.ndarray) -> list[Any] | None:
-    if cal.method == "cls":
-        n_par = [_n_terms(cal.estimators[0], C)] * C.shape[1]
-    else:
-        n_par = [e.n_components_ + 1 for e in cal.estimators
-                 for _ in range(np.asarray(e.coef_).shape[0])]
-    fitted = _predict(cal, Z)
+    preds = [np.asarray(e.predict(Z)).reshape(len(Z), -1) for e in cal.estimators]
+    fitted = np.hstack(preds)
+    # One entry per analyte: the parameter count of the estimator that predicts it.
+    n_par = [e.n_parameters for e, p in zip(cal.estimators, preds, strict=True)
+             for _ in range(p.shape[1])]
     try:
         return [regression_statistics(C[:, k], fitted[:, k], n_parameters=n_par[k])
                 for k in range(C.shape[1])]
@@ -235,25 +177,20 @@ def calibration_merit(cal: Calibration, spectra: SpectralSet | None,
     names = [split_unit(a)[0] for a in cal.analytes]
     units = [split_unit(a)[1] or "unit" for a in cal.analytes]
     if spectra is None or table is None:
-        if cal.method != "cls" or cal.estimators[0].gram_inv_ is not None:
+        if cal.kind.needs_training(cal.estimators):
             raise DataError("give the calibration spectra and concentrations the model was "
                             "built from")
-        signal = _cls_signal(cal, None, None, blank_z)
+        signal = _signal(cal, None, None, blank_z, reference_variance)
         return figures_of_merit(signal, names, units, signal_unit=signal_unit(cal))
     X, Z, C = _training(cal, spectra, table)
-    if cal.method == "cls":
-        signal = _cls_signal(cal, Z, C, blank_z)
-    elif cal.method == "pls":
-        signal = _pls_signal(cal, Z, C, blank_z, reference_variance)
-    else:
-        raise ModelError(f"unknown method {cal.method!r} in the model")
-    uni_sigma = None if raw_blank is None else noise_from_blanks(
-        raw_blank[:, cal.preprocessor.mask_]).sigma
-    pure = cal.estimators[0].pure_spectra_ if cal.method == "cls" and Z.shape[1] == int(
-        cal.preprocessor.mask_.sum()) else None
+    signal = _signal(cal, Z, C, blank_z, reference_variance)
+    mask = cal.used_mask
+    uni_sigma = None if raw_blank is None else noise_from_blanks(raw_blank[:, mask]).sigma
+    pure = cal.kind.pure_spectra(cal.estimators)
+    if pure is not None and pure.shape[1] != int(mask.sum()):
+        pure = None
     try:
-        univariate = univariate_calibration(cal.axis[cal.preprocessor.mask_],
-                                            X[:, cal.preprocessor.mask_], C,
+        univariate = univariate_calibration(cal.axis[mask], X[:, mask], C,
                                             sigma_x=uni_sigma, pure_spectra=pure)
     except DataError:  # fewer than 3 samples or a constant concentration column
         univariate = None
@@ -270,11 +207,7 @@ def calibration_merit(cal: Calibration, spectra: SpectralSet | None,
 def attach_merit(cal: Calibration, spectra: SpectralSet | None,
                  table: ConcentrationTable | None,
                  blanks: SpectralSet | None = None) -> Calibration:
-    """Return a copy of ``cal`` whose ``merit`` holds :func:`calibration_merit` as a dict.
-
-    The dict is :meth:`FiguresOfMerit.to_dict` output (JSON-serialisable), so
-    :func:`bandsolve.calibration.modelfile.save_model` stores it and
-    ``FiguresOfMerit.from_dict(cal.merit)`` rebuilds the table.
+    """Return a copy of ``cal`` whose ``merit`` holds :func:`calibration_merit`.
 
     Parameters
     ----------
@@ -285,5 +218,4 @@ def attach_merit(cal: Calibration, spectra: SpectralSet | None,
     -------
     Calibration
     """
-    fom = calibration_merit(cal, spectra, table, blanks=blanks)
-    return dataclasses.replace(cal, merit=fom.to_dict())
+    return dataclasses.replace(cal, merit=calibration_merit(cal, spectra, table, blanks=blanks))

@@ -10,8 +10,10 @@ from __future__ import annotations
 import dataclasses
 import itertools
 import os
+from collections.abc import Mapping
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
+from types import MappingProxyType
 from typing import Any
 
 import numpy as np
@@ -20,8 +22,12 @@ from scipy import stats
 
 from bandsolve._scan import ScanParts, embed, scan
 from bandsolve._threads import single_blas_thread
-from bandsolve.errors import DataError, ModelError, where
+from bandsolve.calibration.detail import Detail
+from bandsolve.calibration.methods import CalibrationMethod, method_named
+from bandsolve.calibration.records import Limits, Selection
+from bandsolve.errors import DataError, where
 from bandsolve.flags import FLAG_COLUMN, join_flags
+from bandsolve.merit import FiguresOfMerit
 from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
 from bandsolve.transfer import Transfer
@@ -40,37 +46,6 @@ _CORES = max(1, min(os.cpu_count() or 1, 8))
 #: (:mod:`bandsolve._scan`). Measured on 2 cores, 2×10⁵ × 300: 4096 rows 6.7× the
 #: memory-read floor, 8192 rows 5.4× (CLS).
 EVAL_ROWS = 8192
-
-
-@dataclass(frozen=True)
-class Detail:
-    """Method-independent per-sample results, before they become a table.
-
-    Attributes
-    ----------
-    concentrations, standard_errors : ndarray, shape (n, m)
-    dof : ndarray, shape (m,)
-        Degrees of freedom of the Student t quantile for each analyte's interval.
-    residual_ratio : ndarray, shape (n,)
-        Spectral residual (CLS F ratio, or PLS Q) divided by its limit.
-    t2_ratio : ndarray, shape (n,)
-        Hotelling T² divided by its limit (NaN for CLS).
-    leverage_ratio : ndarray, shape (n,)
-        Leverage divided by its warning limit.
-    notes : list of str
-        Model-level remarks that apply to every row (for example why an SE is missing).
-    max_absorbance : ndarray, shape (n,) or None
-        Largest absorbance of each spectrum in the used range, for the ceiling flag.
-    """
-
-    concentrations: np.ndarray
-    standard_errors: np.ndarray
-    dof: np.ndarray
-    residual_ratio: np.ndarray
-    t2_ratio: np.ndarray
-    leverage_ratio: np.ndarray
-    notes: list[str] = field(default_factory=list)
-    max_absorbance: np.ndarray | None = None
 
 
 def _scan_all(data: np.ndarray, parts: list[ScanParts], mask: np.ndarray | None
@@ -106,13 +81,18 @@ def result_columns(analyte: str) -> tuple[str, str, str, str]:
     return analyte, f"{analyte} SE", f"{analyte} low{pct}", f"{analyte} high{pct}"
 
 
-@dataclass(eq=False)
+@dataclass(frozen=True, eq=False)
 class Calibration:
     """A frozen calibration model.
+
+    Its fields cannot be reassigned; arrays are read-only and the dictionaries are read-only
+    views. Make a changed copy with :func:`dataclasses.replace`. The fitted estimators are
+    scikit-learn objects and are never refitted after a build.
 
     Parameters
     ----------
     method : {"cls", "pls"}
+        Name of the :class:`~bandsolve.calibration.methods.CalibrationMethod` (``kind``).
     analytes : tuple of str
         Analyte labels exactly as in the training table (unit bracket included).
     axis : ndarray, shape (p,)
@@ -120,21 +100,23 @@ class Calibration:
     axis_unit : str
     preprocessor : SpectralPreprocessor
         Fitted row-wise preprocessing.
-    estimators : list
+    estimators : tuple
         Fitted estimators: one for CLS and PLS2, one per analyte for PLS1.
     calibrated_range : ndarray, shape (m, 2)
         Lowest and highest calibrated concentration per analyte.
-    settings : dict
+    settings : mapping
         Method parameters as given by the user (JSON-serialisable).
     path_length_cm : float or None
         Cell path length of the calibration, checked against new spectra when both are known.
     ceiling : float
         Photometric ceiling in AU.
-    limits : dict
-        Diagnostic limits and how they were obtained (JSON-serialisable).
-    selection, merit : dict or None
-        Component-selection evidence and figures of merit (JSON-serialisable).
-    provenance : dict
+    limits : Limits
+        Diagnostic limits per estimator and how they were obtained.
+    selection : Selection or None
+        Component-selection evidence (PLS).
+    merit : FiguresOfMerit or None
+        Figures of merit computed at build time.
+    provenance : mapping
         Training-file fingerprints, creation time, library versions, data labels.
     transfer : Transfer or None
         For a model moved to another instrument: the map applied to that instrument's
@@ -147,16 +129,46 @@ class Calibration:
     axis: np.ndarray
     axis_unit: str
     preprocessor: SpectralPreprocessor
-    estimators: list[Any]
+    estimators: tuple[Any, ...]
     calibrated_range: np.ndarray
-    settings: dict[str, Any] = field(default_factory=dict)
+    limits: Limits
+    settings: Mapping[str, Any] = field(default_factory=dict)
     path_length_cm: float | None = None
     ceiling: float = DEFAULT_CEILING_AU
-    limits: dict[str, Any] = field(default_factory=dict)
-    selection: dict[str, Any] | None = None
-    merit: dict[str, Any] | None = None
-    provenance: dict[str, Any] = field(default_factory=dict)
+    selection: Selection | None = None
+    merit: FiguresOfMerit | None = None
+    provenance: Mapping[str, Any] = field(default_factory=dict)
     transfer: Transfer | None = None
+
+    def __post_init__(self) -> None:
+        method_named(self.method)  # refuse an unknown method at once
+        freeze = {"analytes": tuple(self.analytes), "estimators": tuple(self.estimators),
+                  "settings": MappingProxyType(dict(self.settings)),
+                  "provenance": MappingProxyType(dict(self.provenance))}
+        for name in ("axis", "calibrated_range"):
+            arr = np.array(getattr(self, name), dtype=float)
+            arr.flags.writeable = False
+            freeze[name] = arr
+        if len(self.limits.models) != len(freeze["estimators"]):
+            raise DataError(f"{len(self.limits.models)} limit records for "
+                            f"{len(freeze['estimators'])} estimators")
+        for name, value in freeze.items():
+            object.__setattr__(self, name, value)
+
+    @property
+    def kind(self) -> CalibrationMethod:
+        """The method's behaviour (:mod:`bandsolve.calibration.methods`)."""
+        return method_named(self.method)
+
+    @property
+    def used_mask(self) -> np.ndarray:
+        """Points of :attr:`axis` the model uses, bool of shape (p,)."""
+        return self.preprocessor.used_mask
+
+    @property
+    def used_axis(self) -> np.ndarray:
+        """Axis of the preprocessed spectra the estimators see, shape (p',)."""
+        return self.preprocessor.used_axis
 
     # ------------------------------------------------------------------ input checks
     def prepare(self, spectra: SpectralSet) -> tuple[np.ndarray, list[str]]:
@@ -188,13 +200,14 @@ class Calibration:
         if spectra.same_grid(self.axis):
             return np.asarray(spectra.values), notes
         notes.append("resampled onto the model grid by linear interpolation")
-        pre = self.preprocessor
-        if pre.savgol_window is not None or pre.mask_.all() or self.transfer is not None:
+        mask = self.used_mask
+        if (self.preprocessor.savgol_window is not None or mask.all()
+                or self.transfer is not None):
             return np.asarray(spectra.resample(self.axis).values), notes
         # Only the window is used (no filter or transfer map needs the points around it): the
         # spectra must cover the window, not the whole grid. Points outside it are never read.
         X = np.zeros((spectra.n_samples, self.axis.size))
-        X[:, pre.mask_] = spectra.resample(self.axis[pre.mask_]).values
+        X[:, mask] = spectra.resample(self.axis[mask]).values
         return X, notes
 
     # ------------------------------------------------------------------ prediction
@@ -260,7 +273,7 @@ class Calibration:
         """Detail of spectra from the instrument the model was transferred to."""
         assert self.transfer is not None
         # The photometric ceiling concerns what this instrument measured, not the mapped values.
-        top = X.max(axis=1, where=self.preprocessor.mask_, initial=-np.inf)
+        top = X.max(axis=1, where=self.used_mask, initial=-np.inf)
         d = dataclasses.replace(self, transfer=None).detail(
             np.ascontiguousarray(self.transfer.map_spectra(X)))
         c, se = self.transfer.correct(d.concentrations, d.standard_errors)
@@ -269,11 +282,7 @@ class Calibration:
                                    notes=[*d.notes, note], max_absorbance=top)
 
     def _detail_block(self, X: np.ndarray) -> Detail:
-        from bandsolve.calibration.detail import cls_detail, pls_detail
-
-        if self.method not in ("cls", "pls"):
-            raise ModelError(f"unknown method {self.method!r} in the model")
-        pre, mask = self.preprocessor, self.preprocessor.mask_
+        pre, mask = self.preprocessor, self.used_mask
         parts = [est.scan_parts() for est in self.estimators]
         if pre.savgol_window is None and not pre.offset:
             # A window only selects points: fold it into the scan (zero rows outside it),
@@ -290,10 +299,7 @@ class Calibration:
         # them is cheaper than another pass over the spectra.
         if not (all(np.isfinite(ss).all() for _, ss in scans) and np.isfinite(top).all()):
             raise DataError("spectra contain NaN or infinite values; fix or remove them")
-        if self.method == "cls":
-            detail = cls_detail(self.estimators[0], *scans[0])
-        else:
-            detail = pls_detail(self.estimators, self.limits, scans)
+        detail = self.kind.detail(self.estimators, self.limits.models, scans)
         return dataclasses.replace(detail, max_absorbance=top)
 
     def _table(self, spectra: SpectralSet, d: Detail, over_ceiling: np.ndarray,
@@ -345,9 +351,9 @@ class Calibration:
             "preprocessing": self.preprocessor.describe(),
             "path_length_cm": self.path_length_cm,
             "ceiling_AU": self.ceiling,
-            "settings": self.settings,
-            "limits": self.limits,
-            "selection": self.selection,
-            "merit": self.merit,
-            "provenance": self.provenance,
+            "settings": dict(self.settings),
+            "limits": self.limits.to_dict(),
+            "selection": None if self.selection is None else self.selection.to_dict(),
+            "merit": None if self.merit is None else self.merit.to_dict(),
+            "provenance": dict(self.provenance),
         } | ({"transfer": self.transfer.describe()} if self.transfer is not None else {})

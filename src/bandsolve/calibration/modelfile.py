@@ -4,13 +4,17 @@ Loading never executes code from the file: there is no pickle anywhere. Arrays a
 ``numpy.load(allow_pickle=False)``, estimator classes come from a fixed list, and every
 member's SHA-256 is checked against the manifest before anything is used.
 
-Layout (schema 1; schema 2 when a transfer record is present)::
+Layout (schema 3)::
 
     manifest.json   format name, schema version, SHA-256 of every other member, content hash
-    model.json      the calibration: method, analytes, axis, settings, limits, provenance,
-                    estimator parameters and fitted attributes (arrays by reference), and
-                    for a model moved to another instrument its ``transfer`` record
-    arrays/NAME.npy numeric arrays
+    model.json      the calibration's fields by name (see FIELDS); typed records (limits,
+                    selection, merit, ...) as their ``to_dict()``; each estimator as its class,
+                    parameters and named fitted state (``state_record()``); arrays by reference
+    arrays/NAME.npy numeric arrays, named after the field that holds them
+
+Schemas 1 (bandsolve 0.1.0) and 2 (1 plus an instrument ``transfer`` record) stored each
+estimator's ``vars()`` and untyped dictionaries; :func:`_calibration_v1` reads them, nothing
+writes them.
 """
 
 from __future__ import annotations
@@ -22,32 +26,41 @@ import json
 import math
 import os
 import zipfile
+from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+from bandsolve.calibration.detail import LEVERAGE_FACTOR
 from bandsolve.calibration.model import Calibration
+from bandsolve.calibration.records import EstimatorLimits, Limits, Selection
 from bandsolve.cls import CLSRegressor
 from bandsolve.errors import ModelFileError
 from bandsolve.io.atomic import atomic_write
+from bandsolve.merit import FiguresOfMerit
+from bandsolve.pls import PLSRegressor
 from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.transfer import Transfer
 
-__all__ = ["SCHEMA_VERSION", "save_model", "load_model", "sha256_file", "model_checksum"]
+__all__ = ["FIELDS", "RECORDS", "SCHEMA_VERSION", "save_model", "load_model", "sha256_file",
+           "model_checksum"]
 
-#: Newest schema this version reads. Schema 2 adds the optional ``transfer`` record; files
-#: without one are still written as schema 1, so older readers keep reading them, while a
-#: transferred model is refused by a reader that would ignore its transfer map.
-SCHEMA_VERSION = 2
+#: Version of the layout written. Raise it whenever a field is added (older bandsolve versions
+#: then refuse the file instead of ignoring a field that changes the results).
+SCHEMA_VERSION = 3
 FORMAT_NAME = "bandsolve-model"
 
+#: Plain fields of :class:`Calibration` (numbers, strings, arrays, dictionaries of those).
+FIELDS = ("method", "analytes", "axis", "axis_unit", "calibrated_range", "settings",
+          "path_length_cm", "ceiling", "provenance")
+#: Fields holding typed records: name → class with ``to_dict``/``from_dict``. A record absent
+#: from an older file loads as None. To add one, see DEVELOPERS.md ("Adding to the model").
+RECORDS: dict[str, Any] = {"limits": Limits, "selection": Selection, "merit": FiguresOfMerit,
+                           "transfer": Transfer}
 
-def _estimator_classes() -> dict[str, type]:
-    from bandsolve.pls import PLSRegressor
-
-    return {"CLSRegressor": CLSRegressor, "PLSRegressor": PLSRegressor,
-            "SpectralPreprocessor": SpectralPreprocessor}
+_ESTIMATORS: dict[str, Any] = {c.__name__: c for c in (CLSRegressor, PLSRegressor,
+                                                         SpectralPreprocessor)}
 
 
 def sha256_file(path: str | os.PathLike[str]) -> str:
@@ -73,7 +86,7 @@ class _Encoder:
             name = f"{key}.npy"
             self.arrays[name] = np.ascontiguousarray(value)
             return {"__array__": name}
-        if isinstance(value, dict):
+        if isinstance(value, Mapping):
             return {str(k): self.encode(v, f"{key}.{k}") for k, v in value.items()}
         if isinstance(value, list | tuple):
             return [self.encode(v, f"{key}.{i}") for i, v in enumerate(value)]
@@ -87,12 +100,10 @@ class _Encoder:
 
     def estimator(self, est: Any, key: str) -> dict[str, Any]:
         name = type(est).__name__
-        if name not in _estimator_classes():
+        if name not in _ESTIMATORS:
             raise ModelFileError(f"cannot store an estimator of type {name}")
-        params = est.get_params(deep=False)
-        state = {k: v for k, v in vars(est).items() if k not in params}
-        return {"class": name, "params": self.encode(params, f"{key}.params"),
-                "state": self.encode(state, f"{key}.state")}
+        return {"class": name, "params": self.encode(est.get_params(deep=False), f"{key}.params"),
+                "state": self.encode(est.state_record(), f"{key}.state")}
 
 
 def _decode(value: Any, arrays: dict[str, np.ndarray]) -> Any:
@@ -110,38 +121,26 @@ def _decode(value: Any, arrays: dict[str, np.ndarray]) -> Any:
     return value
 
 
-def _rebuild_estimator(record: dict[str, Any], arrays: dict[str, np.ndarray]) -> Any:
-    classes = _estimator_classes()
-    cls = classes.get(record.get("class"))
+def _rebuild_estimator(record: dict[str, Any], arrays: dict[str, np.ndarray],
+                       schema: int) -> Any:
+    cls = _ESTIMATORS.get(record.get("class"))
     if cls is None:
         raise ModelFileError(f"unknown estimator class {record.get('class')!r} in model file")
-    est = cls(**_decode(record["params"], arrays))
-    for attr, value in _decode(record["state"], arrays).items():
-        setattr(est, attr, value)
-    return est
+    params, state = _decode(record["params"], arrays), _decode(record["state"], arrays)
+    if schema < 3:
+        return cls.from_attributes(params, state)  # schemas 1 and 2
+    return cls.from_state_record(params, state)
 
 
 # ---------------------------------------------------------------------- save / load
 def _content(cal: Calibration) -> tuple[bytes, dict[str, bytes]]:
     enc = _Encoder()
-    doc = {
-        "method": cal.method,
-        "analytes": list(cal.analytes),
-        "axis": enc.encode(np.asarray(cal.axis), "axis"),
-        "axis_unit": cal.axis_unit,
-        "calibrated_range": enc.encode(np.asarray(cal.calibrated_range), "calibrated_range"),
-        "settings": enc.encode(cal.settings, "settings"),
-        "path_length_cm": cal.path_length_cm,
-        "ceiling": cal.ceiling,
-        "limits": enc.encode(cal.limits, "limits"),
-        "selection": enc.encode(cal.selection, "selection"),
-        "merit": enc.encode(cal.merit, "merit"),
-        "provenance": enc.encode(cal.provenance, "provenance"),
-        "preprocessor": enc.estimator(cal.preprocessor, "preprocessor"),
-        "estimators": [enc.estimator(e, f"estimator{i}") for i, e in enumerate(cal.estimators)],
-    }
-    if cal.transfer is not None:  # only transferred models carry it: other checksums unchanged
-        doc["transfer"] = enc.encode(dataclasses.asdict(cal.transfer), "transfer")
+    doc = {name: enc.encode(getattr(cal, name), name) for name in FIELDS}
+    for name in RECORDS:
+        record = getattr(cal, name)
+        doc[name] = None if record is None else enc.encode(record.to_dict(), name)
+    doc["preprocessor"] = enc.estimator(cal.preprocessor, "preprocessor")
+    doc["estimators"] = [enc.estimator(e, f"estimator{i}") for i, e in enumerate(cal.estimators)]
     model_json = json.dumps(doc, indent=1, sort_keys=True, allow_nan=False).encode()
     members = {"model.json": model_json}
     for name, arr in enc.arrays.items():
@@ -169,7 +168,7 @@ def save_model(cal: Calibration, path: str | os.PathLike[str]) -> str:
     _, members = _content(cal)
     hashes = {k: hashlib.sha256(v).hexdigest() for k, v in members.items()}
     checksum = _content_hash(hashes)
-    manifest = {"format": FORMAT_NAME, "schema_version": 2 if cal.transfer is not None else 1,
+    manifest = {"format": FORMAT_NAME, "schema_version": SCHEMA_VERSION,
                 "checksum_algorithm": "sha256", "members": hashes, "checksum": checksum}
     with atomic_write(path, "wb") as handle:
         with zipfile.ZipFile(handle, "w", compression=zipfile.ZIP_DEFLATED) as zf:
@@ -231,22 +230,66 @@ def load_model(path: str | os.PathLike[str]) -> Calibration:
                 ) from None
     try:
         doc = json.loads(members["model.json"])
-        return Calibration(
-            method=doc["method"], analytes=tuple(doc["analytes"]),
-            axis=_decode(doc["axis"], arrays), axis_unit=doc["axis_unit"],
-            preprocessor=_rebuild_estimator(doc["preprocessor"], arrays),
-            estimators=[_rebuild_estimator(e, arrays) for e in doc["estimators"]],
-            calibrated_range=_decode(doc["calibrated_range"], arrays),
-            settings=_decode(doc["settings"], arrays), path_length_cm=doc["path_length_cm"],
-            ceiling=doc["ceiling"], limits=_decode(doc["limits"], arrays),
-            selection=_decode(doc["selection"], arrays), merit=_decode(doc["merit"], arrays),
-            provenance=dict(_decode(doc["provenance"], arrays),
-                            model_checksum=manifest["checksum"]),
-            transfer=(Transfer(**_decode(doc["transfer"], arrays)) if "transfer" in doc
-                      else None),
-        )
-    except (KeyError, TypeError, json.JSONDecodeError) as exc:
-        raise ModelFileError(f"{path}: model description incomplete ({exc})") from None
+    except (KeyError, json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise ModelFileError(f"{path}: model description unreadable ({exc})") from None
+    build = _calibration_v1 if manifest["schema_version"] < 3 else _calibration
+    try:
+        cal = build(doc, arrays)
+    except (KeyError, TypeError, ValueError) as exc:
+        raise ModelFileError(f"{path}: model description incomplete ({exc!r})") from None
+    except ModelFileError as exc:
+        raise ModelFileError(f"{path}: {exc}") from None
+    return dataclasses.replace(cal, provenance={**cal.provenance,
+                                                "model_checksum": manifest["checksum"]})
+
+
+def _calibration(doc: dict[str, Any], arrays: dict[str, np.ndarray]) -> Calibration:
+    """Schema 2: named fields and typed records."""
+    known = {*FIELDS, *RECORDS, "preprocessor", "estimators"}
+    unknown = sorted(set(doc) - known)
+    if unknown:
+        raise ModelFileError(f"unknown field {unknown[0]!r}: the file was written by a newer "
+                             "bandsolve; upgrade bandsolve to use it")
+    values = {name: _decode(doc[name], arrays) for name in FIELDS}
+    values["analytes"] = tuple(values["analytes"])
+    records = {name: None if doc.get(name) is None else kind.from_dict(_decode(doc[name], arrays))
+               for name, kind in RECORDS.items()}
+    return Calibration(
+        **values, **records,
+        preprocessor=_rebuild_estimator(doc["preprocessor"], arrays, 3),
+        estimators=tuple(_rebuild_estimator(e, arrays, 3) for e in doc["estimators"]))
+
+
+def _calibration_v1(doc: dict[str, Any], arrays: dict[str, np.ndarray]) -> Calibration:
+    """Schemas 1 and 2: estimator ``vars()``, untyped dictionaries, an optional transfer."""
+    estimators = tuple(_rebuild_estimator(e, arrays, 1) for e in doc["estimators"])
+    limits = _decode(doc["limits"], arrays)
+    factor = float(limits.get("leverage_factor", LEVERAGE_FACTOR))
+    if "models" in limits:  # PLS: one entry per estimator
+        models = tuple(EstimatorLimits.from_dict({
+            "alpha": m["alpha"], "residual": m["q_limit"], "residual_method": m["q_method"],
+            "residual_parameters": m.get("q_parameters") or {}, "t2": m["t2_limit"],
+            "leverage": m["leverage_limit"], "msec": m["msec"], "rmsecv": m.get("rmsecv", []),
+            "reference_variance": m.get("reference_variance")}) for m in limits["models"])
+    else:  # CLS: the limit lives in the estimator, the leverage limit was computed on use
+        res, est = limits.get("residual") or {}, estimators[0]
+        models = (EstimatorLimits(
+            alpha=float(res.get("alpha") or "nan"), residual=est.residual_limit,
+            residual_method=str(res.get("method", "")),
+            leverage=est.leverage_limit(factor)),)
+    selection, merit = _decode(doc.get("selection"), arrays), _decode(doc.get("merit"), arrays)
+    return Calibration(
+        method=doc["method"], analytes=tuple(doc["analytes"]),
+        axis=_decode(doc["axis"], arrays), axis_unit=doc["axis_unit"],
+        preprocessor=_rebuild_estimator(doc["preprocessor"], arrays, 1),
+        estimators=estimators, calibrated_range=_decode(doc["calibrated_range"], arrays),
+        settings=_decode(doc["settings"], arrays), path_length_cm=doc["path_length_cm"],
+        ceiling=doc["ceiling"], limits=Limits(factor, models),
+        selection=None if selection is None else Selection.from_dict(selection),
+        merit=None if merit is None else FiguresOfMerit.from_dict(merit),
+        provenance=_decode(doc["provenance"], arrays),
+        transfer=Transfer.from_dict(_decode(doc["transfer"], arrays)) if "transfer" in doc
+        else None)
 
 
 def _read_manifest(path: Path, members: dict[str, bytes]) -> dict[str, Any]:
@@ -257,7 +300,7 @@ def _read_manifest(path: Path, members: dict[str, bytes]) -> dict[str, Any]:
     if manifest.get("format") != FORMAT_NAME:
         raise ModelFileError(f"{path}: not a bandsolve model file")
     version = manifest.get("schema_version")
-    if not isinstance(version, int) or version > SCHEMA_VERSION:
+    if not isinstance(version, int) or not 1 <= version <= SCHEMA_VERSION:
         raise ModelFileError(
             f"{path}: written with model schema {version}, but this bandsolve reads schema "
             f"{SCHEMA_VERSION} or older; upgrade bandsolve to use it"

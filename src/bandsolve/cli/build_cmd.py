@@ -175,17 +175,17 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
 
 def selection_table(cal: Calibration) -> str:
     """The RMSECV curve of each PLS model as a compact text table, chosen count marked ``*``."""
-    models = (cal.selection or {}).get("models") or []
+    models = cal.selection.models if cal.selection is not None else ()
     blocks = []
     for i, ev in enumerate(models):
         names = list(cal.analytes) if len(models) == 1 else [cal.analytes[i]]
-        rms = np.asarray(ev["rmsecv"], dtype=float)
-        pvals = ev.get("pvalues")
-        lines = [f"RMSECV by number of components ({ev['rule']}, chosen: {ev['n_components']})",
+        rms = np.asarray(ev.rmsecv, dtype=float)
+        pvals = ev.pvalues
+        lines = [f"RMSECV by number of components ({ev.rule}, chosen: {ev.n_components})",
                  "   A " + "".join(f"{a[:16]:>18}" for a in names)
                  + ("   p-value" if pvals else "")]
-        for j, a in enumerate(ev["settings"]):
-            mark = "*" if a == ev["n_components"] else " "
+        for j, a in enumerate(ev.settings):
+            mark = "*" if a == ev.n_components else " "
             row = f" {mark}{a:>2} " + "".join(f"{v:>18.4g}" for v in rms[j])
             if pvals:
                 pv = pvals[j]

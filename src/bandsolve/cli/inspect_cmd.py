@@ -7,7 +7,6 @@ import json
 
 from bandsolve.calibration.model import Calibration
 from bandsolve.calibration.modelfile import load_model
-from bandsolve.merit import FiguresOfMerit
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -40,18 +39,19 @@ def summary_text(cal: Calibration) -> str:
     ]
     lines += [f"  {a['label']}: {a['calibrated_min']:g} to {a['calibrated_max']:g}"
               for a in d["analytes"]]
-    for i, ev in enumerate((d.get("selection") or {}).get("models", [])):
-        label = f"model {i + 1}" if len(d["selection"]["models"]) > 1 else "components"
-        lines.append(f"{label + ':':<17}{ev['n_components']} components (rule: {ev['rule']}, "
-                     f"cross-validation {ev.get('cv')})")
+    choices = cal.selection.models if cal.selection is not None else ()
+    for i, ev in enumerate(choices):
+        label = f"model {i + 1}" if len(choices) > 1 else "components"
+        lines.append(f"{label + ':':<17}{ev.n_components} components (rule: {ev.rule}, "
+                     f"cross-validation {ev.cv})")
     lines.append(f"created:         {prov.get('created')}")
     lines.append(f"model checksum:  {prov.get('model_checksum', 'not saved yet')}")
     for f in prov.get("training_files", []):
         lines.append(f"trained on:      {f['role']} {f['name']} sha256 {f['sha256']}")
     if prov.get("data_label"):
         lines.append(f"data:            {prov['data_label']}")
-    if cal.merit:
-        lines += ["", FiguresOfMerit.from_dict(cal.merit).summary()]
+    if cal.merit is not None:
+        lines += ["", cal.merit.summary()]
     else:
         lines.append(prov.get("merit_note", "figures of merit: not stored in this model"))
     return "\n".join(lines)

@@ -224,8 +224,7 @@ class Assessment:
 
 
 def _stored_rmsecv(cal: Calibration) -> list[float | None]:
-    rows = (cal.merit or {}).get("analytes") or []
-    values = [row.get("rmsecv") for row in rows]
+    values = [row.rmsecv for row in cal.merit.analytes] if cal.merit is not None else []
     return values if len(values) == cal.n_analytes else [None] * cal.n_analytes
 
 

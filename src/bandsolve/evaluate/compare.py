@@ -308,10 +308,10 @@ def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
         else cv
     folds = list(splitter.split(Z, C, groups))
     fixed = check_cv(folds)
-    variants = {"CLS": CLSRegressor(fit_intercept=intercept, wavelengths=pre.axis_out_)}
+    variants = {"CLS": CLSRegressor(fit_intercept=intercept, wavelengths=pre.used_axis)}
     if baseline != "none":
         variants[f"CLS+{baseline}"] = CLSRegressor(fit_intercept=intercept, baseline=baseline,
-                                                   wavelengths=pre.axis_out_)
+                                                   wavelengths=pre.used_axis)
     total = len(variants) + 3
     results = {}
     for i, (name, est) in enumerate(variants.items()):
@@ -351,7 +351,7 @@ def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
     design = np.column_stack([C, np.ones(n)]) if intercept else C
     evidence = absorber_evidence(
         _cls_cv_residual_ss(variants["CLS"], Z, C, folds), C.shape[1],
-        Z - C @ plain.pure_spectra_ - plain.background_, design,
+        plain.calibration_residuals(Z, C), design,
         pls_cv.q_residuals[a - 1], a, C.shape[1], random_state)
     step(progress, total, total, "absorber evidence")
     sq = {name: decide[name] ** 2 for name in names}

@@ -147,30 +147,15 @@ def note(text: str) -> str:
 
 
 def _component_rule(cal: Calibration) -> str:
-    if cal.method == "cls":
-        est = cal.estimators[0]
-        extra = []
-        if est.fit_intercept:
-            extra.append("a background spectrum")
-        if est.n_baseline_terms_:
-            extra.append(f"{est.n_baseline_terms_} baseline term(s) ({est.baseline})")
-        return (f"{cal.n_analytes} pure-component spectra"
-                + (f" plus {' and '.join(extra)}" if extra else "")
-                + "; the number of components is the number of analytes")
-    models = (cal.selection or {}).get("models") or []
-    parts = [f"{ev['n_components']} component(s) by the {ev['rule']} rule"
-             + (f" (α = {ev['alpha']:g})" if ev.get("alpha") is not None else "")
-             + f", cross-validation {ev.get('cv', '?')}" for ev in models]
-    return "; ".join(parts) or "not recorded"
+    return cal.kind.describe_components(cal.estimators, cal.selection, cal.n_analytes)
 
 
 def model_section(cal: Calibration) -> str:
     lo_hi = ", ".join(f"{a}: {lo:g} to {hi:g}"
                       for a, (lo, hi) in zip(cal.analytes, cal.calibrated_range, strict=True))
-    used = cal.preprocessor.axis_out_
+    used = cal.used_axis
     rows = [
-        ("method", {"cls": "classical least squares (CLS, K-matrix)",
-                    "pls": "partial least squares (PLS)"}.get(cal.method, cal.method)),
+        ("method", cal.kind.title),
         ("analytes (calibrated range)", lo_hi),
         ("input axis", f"{cal.axis[0]:g} to {cal.axis[-1]:g} {cal.axis_unit}, "
                        f"{cal.axis.size} points"),
@@ -185,17 +170,9 @@ def model_section(cal: Calibration) -> str:
 
 
 def _limits_html(cal: Calibration) -> str:
-    if cal.method == "pls":
-        frame = pd.DataFrame([{"model": i + 1, "T² limit": m.get("t2_limit"),
-                               "Q limit [AU²]": m.get("q_limit"),
-                               "leverage limit": m.get("leverage_limit"),
-                               "α": m.get("alpha")}
-                              for i, m in enumerate(cal.limits.get("models", []))])
-        return "<h3>Diagnostic limits</h3>" + frame_table(frame)
-    res = cal.limits.get("residual", {})
-    return "<h3>Diagnostic limits</h3>" + kv_table([
-        ("residual F-ratio limit", res.get("value")), ("how it was set", res.get("method")),
-        ("α", res.get("alpha")), ("leverage limit factor", cal.limits.get("leverage_factor"))])
+    frame = cal.limits.to_frame()
+    return "<h3>Diagnostic limits</h3>" + frame_table(frame) + kv_table([
+        ("leverage limit factor", cal.limits.leverage_factor)])
 
 
 def data_section(cal: Calibration, n_given: int | None) -> str:

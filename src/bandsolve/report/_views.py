@@ -16,7 +16,7 @@ from bandsolve.calibration.model import Calibration, result_columns
 from bandsolve.concentrations import ConcentrationTable, align, split_unit
 from bandsolve.errors import DataError, where
 from bandsolve.flags import FLAG_COLUMN, split_flags
-from bandsolve.merit import FiguresOfMerit, cls_figures, cls_net_analyte_signal
+from bandsolve.merit import FiguresOfMerit
 from bandsolve.report import figures as F
 from bandsolve.spectra import SpectralSet
 
@@ -75,45 +75,32 @@ def _unit_label(cal: Calibration) -> str:
     return unit or "concentration unit"
 
 
-def _regression_vectors(cal: Calibration) -> np.ndarray:
-    """PLS regression vectors, one row per analyte (concentration units per AU)."""
-    return np.vstack([np.atleast_2d(est.coef_) for est in cal.estimators])
-
-
 def component_figure(cal: Calibration) -> ReportFigure:
     """CLS pure spectra, or PLS regression vectors."""
-    axis = cal.preprocessor.axis_out_
+    kind = cal.kind
     names = [split_unit(a)[0] for a in cal.analytes]
-    if cal.method == "cls":
-        u = _unit_label(cal)
-        fig = F.component_spectra_figure(
-            axis, cal.estimators[0].pure_spectra_, names, axis_unit=cal.axis_unit,
-            ylabel=f"absorbance per {u} [AU/({u})]", title="Pure-component spectra (CLS K)")
-        return ReportFigure("fig-components", "model", "Pure-component spectra",
-                            "Rows of K: the absorbance of each analyte at unit concentration "
-                            "in the calibration cell, after preprocessing.", fig)
     fig = F.component_spectra_figure(
-        axis, _regression_vectors(cal), names, axis_unit=cal.axis_unit,
-        ylabel=f"regression coefficient [{_unit_label(cal)} per AU]",
-        title="PLS regression vectors")
-    return ReportFigure("fig-components", "model", "Regression vectors",
-                        "Regression vector b of each analyte: the predicted concentration "
-                        "is the intercept plus bᵀx.", fig)
+        cal.used_axis, kind.component_spectra(cal.estimators), names, axis_unit=cal.axis_unit,
+        ylabel=kind.component_unit(_unit_label(cal)),
+        title=f"{kind.component_title} ({cal.method.upper()})")
+    return ReportFigure("fig-components", "model", kind.component_title,
+                        kind.component_caption, fig)
 
 
 def rmsecv_figures(cal: Calibration) -> list[ReportFigure]:
     """The cross-validation curve of each PLS model, with the chosen count and p-values."""
-    models = (cal.selection or {}).get("models") or []
+    models = cal.selection.models if cal.selection is not None else ()
     out = []
     for i, ev in enumerate(models):
         names = list(cal.analytes) if len(models) == 1 else [cal.analytes[i]]
-        fig = F.rmsecv_figure(ev["settings"], np.asarray(ev["rmsecv"], dtype=float), names,
-                              chosen=int(ev["n_components"]), rule=str(ev["rule"]),
-                              pvalues=ev.get("pvalues"), alpha=ev.get("alpha"))
+        fig = F.rmsecv_figure(list(ev.settings), np.asarray(ev.rmsecv, dtype=float), names,
+                              chosen=ev.n_components, rule=ev.rule,
+                              pvalues=None if ev.pvalues is None else list(ev.pvalues),
+                              alpha=ev.alpha)
         out.append(ReportFigure(
             f"fig-rmsecv-{i + 1}", "model", "Cross-validation curve",
-            f"RMSECV ({ev.get('cv', 'cross-validation')}) by number of components; ringed: "
-            f"the count chosen by the {ev['rule']} rule. p-values: randomization test of "
+            f"RMSECV ({ev.cv}) by number of components; ringed: "
+            f"the count chosen by the {ev.rule} rule. p-values: randomization test of "
             "each smaller count against the minimum (van der Voet 1994).", fig))
     return out
 
@@ -133,22 +120,18 @@ def net_signal(cal: Calibration, merit: FiguresOfMerit | None) -> tuple[np.ndarr
     if merit is not None:
         sel = np.array([np.nan if r.selectivity is None else r.selectivity
                         for r in merit.analytes])
-    if cal.method == "cls":
-        aug = cal.estimators[0].augmented_spectra_
-        m = cal.n_analytes
-        nas = np.vstack([cls_net_analyte_signal(aug.T, k) for k in range(m)])
-        return nas, cls_figures(aug, m, 1.0).selectivity if merit is None else sel
-    b = _regression_vectors(cal)
-    return b / np.sum(b**2, axis=1, keepdims=True), sel  # x* = b/‖b‖² at unit concentration
+    nas = np.vstack([est.net_analyte_signal() for est in cal.estimators])
+    pure = cal.kind.pure_spectra(cal.estimators)
+    if merit is None and pure is not None:  # SEL = ‖NAS‖/‖pure spectrum‖ needs no noise
+        sel = np.linalg.norm(nas, axis=1) / np.linalg.norm(pure, axis=1)
+    return nas, sel
 
 
 def nas_figure(cal: Calibration, merit: FiguresOfMerit | None) -> ReportFigure:
     nas, sel = net_signal(cal, merit)
-    fig = F.nas_selectivity_figure(cal.preprocessor.axis_out_, nas, sel, cal.analytes,
+    fig = F.nas_selectivity_figure(cal.used_axis, nas, sel, cal.analytes,
                                    axis_unit=cal.axis_unit)
-    how = ("the part of each pure spectrum orthogonal to all other columns of K (Lorber 1986)"
-           if cal.method == "cls" else "b/‖b‖² (Faber 1998); selectivity comes from the "
-           "figures of merit (n/a without them)")
+    how = cal.kind.nas_caption
     return ReportFigure("fig-nas", "merit", "Net analyte signal and selectivity",
                         f"Net analyte signal at unit concentration: {how}. Selectivity "
                         "SEL = ‖NAS‖/‖pure spectrum‖; 1 means no overlap.", fig)
@@ -156,19 +139,12 @@ def nas_figure(cal: Calibration, merit: FiguresOfMerit | None) -> ReportFigure:
 
 def residual_spectra(cal: Calibration, X: np.ndarray) -> np.ndarray:
     """Measured minus modelled spectra after preprocessing (PLS: first model, centred)."""
-    Z = cal.preprocessor.transform(X)
-    est = cal.estimators[0]
-    if cal.method == "cls":
-        d = est.predict_detail(Z)
-        coef = np.hstack([d.concentrations, d.baseline])
-        return Z - est.background_ - coef @ est.augmented_spectra_
-    centred = (Z - est.x_mean_) / est.x_scale_
-    return centred - est.transform(Z) @ est.x_loadings_.T
+    return cal.estimators[0].residuals(cal.preprocessor.transform(X))
 
 
 def _over(cal: Calibration, X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     d = cal.detail(X)
-    x = d.t2_ratio if cal.method == "pls" else d.leverage_ratio
+    x = getattr(d, cal.kind.x_ratio)
     flagged = (np.nan_to_num(x) > 1) | (np.nan_to_num(d.residual_ratio) > 1)
     return x, d.residual_ratio, flagged
 
@@ -190,9 +166,9 @@ def assessment_figures(cal: Calibration, sset: SampleSet,
             F.predicted_reference_figure(sset.reference, pred, cal.analytes, lod=lod, loq=loq,
                                          title=f"Predicted against reference, {sset.name}")))
     _, _, flagged = _over(cal, sset.X)
-    scaled = cal.method == "pls" and cal.settings.get("scale")
+    scaled = bool(cal.settings.get("scale"))
     fig = F.residual_spectra_figure(
-        cal.preprocessor.axis_out_, residual_spectra(cal, sset.X), axis_unit=cal.axis_unit,
+        cal.used_axis, residual_spectra(cal, sset.X), axis_unit=cal.axis_unit,
         highlight=flagged, title=f"Residual spectra, {sset.name}",
         ylabel="scaled residual [dimensionless]" if scaled else "spectral residual [AU]")
     out.append(ReportFigure(f"fig-resid-{sset.name}", "validation",
@@ -210,7 +186,7 @@ def set_ratios(cal: Calibration, sset: SampleSet) -> tuple[np.ndarray, np.ndarra
 
 def table_ratios(cal: Calibration, table: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
     """The same two ratios read from a prediction table."""
-    x = table["t2_ratio" if cal.method == "pls" else "leverage_ratio"].to_numpy(float)
+    x = table[cal.kind.x_ratio].to_numpy(float)
     return x, table["residual_ratio"].to_numpy(float)
 
 
@@ -223,10 +199,8 @@ def outlier_figure(cal: Calibration, points: list[tuple[str, list[str], np.ndarr
     y = np.concatenate([p[3] for p in points])
     if not np.isfinite(y).any():
         return None
-    xl = ("Hotelling T² / limit [ratio]" if cal.method == "pls"
-          else "leverage / limit [ratio]")
-    yl = "Q residual / limit [ratio]" if cal.method == "pls" else "residual F / limit [ratio]"
-    fig = F.outlier_map_figure(x, y, groups=groups, sample_ids=ids, x_label=xl, y_label=yl)
+    fig = F.outlier_map_figure(x, y, groups=groups, sample_ids=ids, x_label=cal.kind.x_label,
+                               y_label=cal.kind.residual_label)
     return ReportFigure(f"fig-outliers-{section}", section, "Outlier map",
                         "Each diagnostic divided by its limit: points at or beyond the dashed "
                         "lines (ratio 1) are flagged and named.", fig)

@@ -42,10 +42,10 @@ SECTION_IDS: tuple[tuple[str, str], ...] = (
 def _merit(cal: Calibration, spectra: SpectralSet | None, table: ConcentrationTable | None,
            blanks: SpectralSet | None) -> tuple[FiguresOfMerit | None, str]:
     # Replicate blanks given for the report give a better σx than what the model stored.
-    stored_from_blanks = bool(cal.merit) and all(
-        row.get("sigma_x_origin") == "blank replicates" for row in cal.merit["analytes"])
-    if cal.merit and (blanks is None or stored_from_blanks):
-        return FiguresOfMerit.from_dict(cal.merit), "Figures of merit stored with the model."
+    stored_from_blanks = cal.merit is not None and all(
+        row.sigma_x_origin == "blank replicates" for row in cal.merit.analytes)
+    if cal.merit is not None and (blanks is None or stored_from_blanks):
+        return cal.merit, "Figures of merit stored with the model."
     if spectra is None and blanks is None:
         return None, cal.provenance.get("merit_note", "")
     from bandsolve.calibration.merit import calibration_merit

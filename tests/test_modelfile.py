@@ -7,6 +7,7 @@ import io
 import json
 import os
 import zipfile
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -177,3 +178,75 @@ def test_not_a_model_file(tmp_path):
         load_model(other)
     with pytest.raises(ModelFileError, match="no such model file"):
         load_model(tmp_path / "absent.bsm")
+
+
+# ---------------------------------------------------------------------- files of 0.1.0
+# Copies of models/rinse-cls.bsm and models/rinse-pls.bsm as bandsolve 0.1.0 wrote them
+# (schema 1: estimator attributes stored as they were named in memory).
+OLD_FILES = {m: Path(__file__).parent / "data" / f"model-0.1.0-{m}.bsm" for m in ("cls", "pls")}
+ROUTINE = Path(__file__).resolve().parents[1] / "examples" / "rinse-water" / "routine"
+
+
+def _stored(path: Path) -> tuple[dict, dict[str, np.ndarray]]:
+    """model.json and the arrays of a model file, read with zipfile/json/numpy only."""
+    with zipfile.ZipFile(path) as zf:
+        doc = json.loads(zf.read("model.json"))
+        arrays = {n[len("arrays/"):]: np.load(io.BytesIO(zf.read(n)), allow_pickle=False)
+                  for n in zf.namelist() if n.startswith("arrays/")}
+    return doc, arrays
+
+
+@pytest.mark.parametrize("method", sorted(OLD_FILES))
+def test_model_of_0_1_0_loads_and_predicts_as_a_resaved_file(tmp_path, method):
+    from bandsolve.io import read_spectra
+
+    old = load_model(OLD_FILES[method])
+    resaved = tmp_path / "resaved.bsm"
+    save_model(old, resaved)
+    with zipfile.ZipFile(OLD_FILES[method]) as zf:
+        assert json.loads(zf.read("manifest.json"))["schema_version"] == 1
+    with zipfile.ZipFile(resaved) as zf:
+        assert json.loads(zf.read("manifest.json"))["schema_version"] == SCHEMA_VERSION
+    new = load_model(resaved)
+    for path in sorted(ROUTINE.glob("*.csv")):
+        spectra = read_spectra(path)
+        a, b = old.predict(spectra), new.predict(spectra)
+        pd.testing.assert_frame_equal(a, b, check_exact=True)  # bit-identical
+    for name in ("limits", "selection", "merit"):  # repr: NaN limits compare equal
+        assert repr(getattr(new, name)) == repr(getattr(old, name))
+
+
+def test_cls_model_of_0_1_0_predicts_least_squares_on_its_stored_spectra():
+    # ĉ = least-squares solution of [K; baseline rows]ᵀ c = x − bg (Haaland & Thomas 1988),
+    # computed with numpy from the arrays in the file, without bandsolve.
+    from bandsolve.io import read_spectra
+
+    doc, arrays = _stored(OLD_FILES["cls"])
+    state = doc["estimators"][0]["state"]
+    aug = arrays[state["augmented_spectra_"]["__array__"]]
+    bg = arrays[state["background_"]["__array__"]]
+    axis = arrays[doc["axis"]["__array__"]]
+    cal = load_model(OLD_FILES["cls"])
+    for path in sorted(ROUTINE.glob("*.csv")):
+        spectra = read_spectra(path)
+        assert np.array_equal(spectra.axis, axis)  # on the model grid: no resampling
+        expected = np.linalg.lstsq(aug.T, (spectra.values - bg).T, rcond=None)[0].T
+        got = cal.predict(spectra)[list(doc["analytes"])].to_numpy()
+        np.testing.assert_allclose(got, expected[:, :len(doc["analytes"])], rtol=1e-9,
+                                   atol=1e-12)
+
+
+def test_pls_model_of_0_1_0_predicts_with_its_stored_regression_vectors():
+    # ŷ = x b + b0 with the stored regression coefficients (de Jong 1993), computed with numpy.
+    from bandsolve.io import read_spectra
+
+    doc, arrays = _stored(OLD_FILES["pls"])
+    state = doc["estimators"][0]["state"]
+    coef = arrays[state["coef_"]["__array__"]]
+    intercept = arrays[state["intercept_"]["__array__"]]
+    cal = load_model(OLD_FILES["pls"])
+    for path in sorted(ROUTINE.glob("*.csv")):
+        spectra = read_spectra(path)
+        expected = spectra.values @ coef.T + intercept
+        got = cal.predict(spectra)[list(doc["analytes"])].to_numpy()
+        np.testing.assert_allclose(got, expected, rtol=1e-9, atol=1e-12)

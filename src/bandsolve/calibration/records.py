@@ -1,0 +1,242 @@
+"""Typed records a :class:`~bandsolve.calibration.model.Calibration` carries.
+
+Each record is a small frozen dataclass with ``to_dict`` (JSON-friendly: numbers, strings,
+lists, None; NaN stays a float) and ``from_dict`` (its inverse, raising
+:class:`~bandsolve.errors.ModelFileError` on a damaged entry). The model file stores exactly
+``to_dict`` output, so a record's field names are part of the model-file schema.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from typing import Any, TypeVar
+
+import numpy as np
+import pandas as pd
+
+from bandsolve.errors import ModelFileError
+
+__all__ = ["ComponentChoice", "EstimatorLimits", "Limits", "Selection"]
+
+_T = TypeVar("_T")
+_NAN = float("nan")
+
+
+def _floats(values: Any) -> tuple[float, ...]:
+    return tuple(float(v) for v in values)
+
+
+def _float(value: Any) -> float:
+    return _NAN if value is None else float(value)
+
+
+def _parse(kind: str, build: Callable[[], _T]) -> _T:
+    """Run ``build``; a missing or malformed entry becomes one ModelFileError."""
+    try:
+        return build()
+    except (KeyError, TypeError, ValueError, AttributeError) as exc:
+        raise ModelFileError(f"the model's {kind} entry is damaged ({exc!r}); rebuild the "
+                             "model and save it again") from None
+
+
+@dataclass(frozen=True)
+class EstimatorLimits:
+    """Diagnostic limits of one fitted estimator (CLS, PLS2, or one PLS1 analyte model).
+
+    Attributes
+    ----------
+    alpha : float
+        Probability that an in-model sample exceeds a limit (NaN when no limit was set).
+    residual : float
+        Limit of the spectral-residual statistic: the CLS F ratio (unitless) or the PLS Q
+        residual (AU² without scaling). NaN when none could be set.
+    residual_method : str
+        How the residual limit was obtained, in words or as a method name.
+    residual_parameters : dict of str to float
+        Numbers the residual limit came from (e.g. ``g``, ``h``, ``n_values``).
+    t2 : float
+        Hotelling T² limit for new samples (PLS); NaN for CLS.
+    leverage : float
+        Leverage warning limit; NaN where leverage is undefined (CLS from absorptivities).
+    msec : tuple of float
+        Mean squared error of calibration per analyte of this estimator (PLS standard error).
+    rmsecv : tuple of float
+        RMSECV per analyte at the chosen component count (PLS).
+    reference_variance : tuple of float
+        Variance of the reference values σ²_ref per analyte, subtracted in the PLS
+        standard error (empty: zero).
+    """
+
+    alpha: float
+    residual: float
+    residual_method: str
+    residual_parameters: dict[str, float] = field(default_factory=dict)
+    t2: float = _NAN
+    leverage: float = _NAN
+    msec: tuple[float, ...] = ()
+    rmsecv: tuple[float, ...] = ()
+    reference_variance: tuple[float, ...] = ()
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-friendly dictionary (inverse of :meth:`from_dict`)."""
+        return {"alpha": self.alpha, "residual": self.residual,
+                "residual_method": self.residual_method,
+                "residual_parameters": dict(self.residual_parameters), "t2": self.t2,
+                "leverage": self.leverage, "msec": list(self.msec),
+                "rmsecv": list(self.rmsecv),
+                "reference_variance": list(self.reference_variance)}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> EstimatorLimits:
+        """Rebuild from :meth:`to_dict` output."""
+        return _parse("limits", lambda: cls(
+            alpha=_float(data["alpha"]), residual=_float(data["residual"]),
+            residual_method=str(data["residual_method"]),
+            residual_parameters={str(k): float(v)
+                                 for k, v in dict(data["residual_parameters"]).items()},
+            t2=_float(data["t2"]), leverage=_float(data["leverage"]),
+            msec=_floats(data["msec"]), rmsecv=_floats(data["rmsecv"]),
+            reference_variance=_floats(data.get("reference_variance") or ())))
+
+
+@dataclass(frozen=True)
+class Limits:
+    """Diagnostic limits of a calibration, one :class:`EstimatorLimits` per estimator.
+
+    Attributes
+    ----------
+    leverage_factor : float
+        The leverage warning limit is this factor × (parameters)/n (Hoaglin & Welsch 1978).
+    models : tuple of EstimatorLimits
+        In the order of ``Calibration.estimators``.
+    """
+
+    leverage_factor: float
+    models: tuple[EstimatorLimits, ...]
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per estimator: residual, T² and leverage limits, how set, α (NaN: none)."""
+        return pd.DataFrame([{"model": i + 1, "residual limit": m.residual,
+                              "how the residual limit was set": m.residual_method,
+                              "T² limit": m.t2, "leverage limit": m.leverage, "α": m.alpha}
+                             for i, m in enumerate(self.models)])
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-friendly dictionary (inverse of :meth:`from_dict`)."""
+        return {"leverage_factor": self.leverage_factor,
+                "models": [m.to_dict() for m in self.models]}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> Limits:
+        """Rebuild from :meth:`to_dict` output."""
+        models = _parse("limits", lambda: list(data["models"]))
+        return _parse("limits", lambda: cls(
+            leverage_factor=float(data["leverage_factor"]),
+            models=tuple(EstimatorLimits.from_dict(m) for m in models)))
+
+
+@dataclass(frozen=True)
+class ComponentChoice:
+    """How the component count of one PLS model was chosen, with its cross-validation evidence.
+
+    Attributes
+    ----------
+    n_components : int
+        Components used by the model.
+    rule : str
+        Selection rule (``randomization``, ``one-se``, ``min``, or ``fixed (...)``).
+    alpha : float or None
+        Level of the randomization test.
+    cv : str
+        Cross-validation specification.
+    settings : tuple of int
+        Component counts tried.
+    rmsecv : tuple of tuple of float, shape (len(settings), m)
+        RMSECV per count and analyte (concentration units).
+    rmsecv_total : tuple of float
+        RMSECV over all analytes per count.
+    pooled_mse : tuple of float
+        Mean squared error on the variance-scaled concentrations per count.
+    minimum_at : int
+        Count with the smallest pooled MSE.
+    pvalues : tuple of float or None, optional
+        Randomization-test p-values of each smaller count against the minimum.
+    n_permutations, standard_error, threshold : optional
+        Permutations of the randomization test; the one-SE rule's SE and threshold.
+    """
+
+    n_components: int
+    rule: str
+    alpha: float | None
+    cv: str
+    settings: tuple[int, ...]
+    rmsecv: tuple[tuple[float, ...], ...]
+    rmsecv_total: tuple[float, ...]
+    pooled_mse: tuple[float, ...]
+    minimum_at: int
+    pvalues: tuple[float | None, ...] | None = None
+    n_permutations: int | None = None
+    standard_error: float | None = None
+    threshold: float | None = None
+
+    def chosen_rmsecv(self) -> np.ndarray:
+        """RMSECV per analyte at the chosen count, shape (m,)."""
+        return np.asarray(self.rmsecv, dtype=float)[self.n_components - 1]
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-friendly dictionary (inverse of :meth:`from_dict`)."""
+        return {"n_components": self.n_components, "rule": self.rule, "alpha": self.alpha,
+                "cv": self.cv, "settings": list(self.settings),
+                "rmsecv": [list(row) for row in self.rmsecv],
+                "rmsecv_total": list(self.rmsecv_total), "pooled_mse": list(self.pooled_mse),
+                "minimum_at": self.minimum_at,
+                "pvalues": None if self.pvalues is None else list(self.pvalues),
+                "n_permutations": self.n_permutations, "standard_error": self.standard_error,
+                "threshold": self.threshold}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> ComponentChoice:
+        """Rebuild from :meth:`to_dict` output (also the 0.1.0 evidence dictionary)."""
+        def opt(key: str, kind: Callable[[Any], Any]) -> Any:
+            value = data.get(key)
+            return None if value is None else kind(value)
+
+        return _parse("selection", lambda: cls(
+            n_components=int(data["n_components"]), rule=str(data["rule"]),
+            alpha=opt("alpha", float), cv=str(data["cv"]),
+            settings=tuple(int(s) for s in data["settings"]),
+            rmsecv=tuple(_floats(row) for row in data["rmsecv"]),
+            rmsecv_total=_floats(data["rmsecv_total"]), pooled_mse=_floats(data["pooled_mse"]),
+            minimum_at=int(data["minimum_at"]),
+            pvalues=opt("pvalues", lambda v: tuple(None if p is None or (
+                isinstance(p, float) and math.isnan(p)) else float(p) for p in v)),
+            n_permutations=opt("n_permutations", int),
+            standard_error=opt("standard_error", float), threshold=opt("threshold", float)))
+
+
+@dataclass(frozen=True)
+class Selection:
+    """Component selection of a PLS calibration: one :class:`ComponentChoice` per model.
+
+    Attributes
+    ----------
+    mode : {"pls2", "pls1"}
+    models : tuple of ComponentChoice
+        One for PLS2, one per analyte for PLS1, in the order of ``Calibration.estimators``.
+    """
+
+    mode: str
+    models: tuple[ComponentChoice, ...]
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-friendly dictionary (inverse of :meth:`from_dict`)."""
+        return {"mode": self.mode, "models": [m.to_dict() for m in self.models]}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> Selection:
+        """Rebuild from :meth:`to_dict` output."""
+        models = _parse("selection", lambda: list(data["models"]))
+        return _parse("selection", lambda: cls(
+            mode=str(data["mode"]), models=tuple(ComponentChoice.from_dict(m) for m in models)))
