@@ -13,6 +13,7 @@ from matplotlib.figure import Figure
 
 from bandsolve.progress import ProgressBar, progress_bar, step
 from bandsolve.report import figures as F
+from bandsolve.report import figures_batch as FB
 
 from .conftest import gaussian_bands
 
@@ -69,16 +70,33 @@ def test_wavenumber_axis_label():
     assert fig.axes[0].get_xlabel() == "wavenumber [cm⁻¹]"
 
 
-def test_overlay_colours_by_concentration_with_a_labelled_colour_bar():
+def test_overlay_of_mixtures_colours_each_panel_by_its_analyte():
     rng = np.random.default_rng(1)
-    conc = rng.uniform(0, 10, 12)
-    spectra = conc[:, None] * gaussian_bands(AXIS, (500,), (40,))
-    fig = F.spectra_overlay_figure(AXIS, spectra, conc, "dye A [mg/L]")
-    coll = fig.axes[0].collections[0]
-    np.testing.assert_array_equal(coll.get_array(), conc)
-    assert coll.get_cmap().name == "cividis"  # Nuñez et al. 2018: CVD-optimised map
-    cbar = next(ax for ax in fig.axes if ax.get_label() == "<colorbar>")
-    assert cbar.get_ylabel() == "dye A [mg/L]"
+    conc = rng.uniform(0, 10, (12, 2))
+    spectra = conc @ gaussian_bands(AXIS, (500, 560), (40, 40))
+    fig = F.standards_overlay_figure(AXIS, spectra, conc, ANALYTES)
+    panels = [ax for ax in fig.axes if ax.get_label() != "<colorbar>" and ax.get_visible()]
+    assert len(panels) == 2
+    for k, ax in enumerate(panels):
+        coll = ax.collections[0]
+        np.testing.assert_array_equal(coll.get_array(), conc[:, k])
+        assert coll.get_cmap().name == "cividis"  # Nuñez et al. 2018: CVD-optimised map
+    bars = [ax.get_ylabel() for ax in fig.axes if ax.get_label() == "<colorbar>"]
+    assert bars == list(ANALYTES)
+    _assert_units(fig)
+
+
+def test_overlay_of_pure_standards_has_one_colour_per_analyte():
+    levels = np.array([[1.0, 0], [2.0, 0], [0, 1.0], [0, 2.0], [0, 0]])
+    spectra = levels @ gaussian_bands(AXIS, (500, 560), (40, 40))
+    fig = F.standards_overlay_figure(AXIS, spectra, levels, ANALYTES)
+    lines = fig.axes[0].get_lines()
+    colours = [to_hex(ln.get_color()) for ln in lines]
+    # Two standards per analyte share a colour; the analytes' colours differ (Okabe & Ito
+    # 2008 palette) and the blank is grey.
+    assert colours[0] == colours[1] != colours[2] == colours[3] != colours[4]
+    assert [t.get_text() for t in fig.axes[0].get_legend().get_texts()] == ["dye A", "dye B",
+                                                                          "blank"]
     _assert_units(fig)
 
 
@@ -140,7 +158,7 @@ def test_outlier_map_highlights_exactly_the_points_at_or_over_a_limit(points):
     x = np.array([p[0] for p in points])
     y = np.array([p[1] for p in points])
     ids = [f"s{i}" for i in range(len(points))]
-    fig = F.outlier_map_figure(x, y, sample_ids=ids)
+    fig = FB.outlier_map_figure(x, y, sample_ids=ids)
     ax = fig.axes[0]
     # Definition of a limit ratio (common practice): flagged when ratio >= 1.
     expected = {ids[i] for i in range(len(ids)) if x[i] >= 1 or y[i] >= 1}
@@ -154,7 +172,7 @@ def test_outlier_map_highlights_exactly_the_points_at_or_over_a_limit(points):
 def test_batch_intervals_and_flag_markers():
     est = np.array([[1.0, 2.0], [3.0, 4.0], [5.0, 6.0]])
     low, high = est - 0.5, est + np.array([[0.5], [1.0], [0.25]])
-    fig = F.batch_figure(["a", "b", "c"], est, low, high, ANALYTES, [False, True, False])
+    fig = FB.batch_figure(["a", "b", "c"], est, low, high, ANALYTES, [False, True, False])
     ax = fig.axes[0]
     crosses = [ln for ln in ax.get_lines() if ln.get_marker() == "X"]
     assert len(crosses) == 1 and list(crosses[0].get_ydata()) == [3.0]
@@ -172,7 +190,7 @@ def test_batch_legend_covers_no_panel():
     rng = np.random.default_rng(7)
     n = 40
     est = rng.uniform(0.0, 10.0, (n, 2))
-    fig = F.batch_figure([f"s{i}" for i in range(n)], est, est - 10.0, est + 10.0, ANALYTES,
+    fig = FB.batch_figure([f"s{i}" for i in range(n)], est, est - 10.0, est + 10.0, ANALYTES,
                          rng.random(n) < 0.3)
     renderer = fig.canvas.get_renderer()
     fig.draw(renderer)

@@ -12,9 +12,9 @@ import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
 
-from bandsolve.calibration.model import Calibration, result_columns
+from bandsolve.calibration.model import Calibration
 from bandsolve.cautions import CAUTIONS
-from bandsolve.flags import FLAG_CODES, FLAG_COLUMN
+from bandsolve.flags import FLAG_CODES
 from bandsolve.merit import FiguresOfMerit
 from bandsolve.report._views import ReportFigure
 from bandsolve.units import axis_label
@@ -41,6 +41,9 @@ pre { background:#f6f6f6; border:1px solid var(--rule); padding:.6rem; font-size
       white-space:pre-wrap; overflow-wrap:anywhere; }
 pre.summary { margin-bottom:0; } table.summary { margin-top:0; }
 td code, li code { overflow-wrap:anywhere; } ul.skipped { font-weight:400; }
+table.batch { width:100%; table-layout:fixed; } table.batch th:first-child { width:7em; }
+td.codes { overflow-wrap:anywhere; font-size:.9em; }
+.interval { color:var(--muted); font-size:.9em; }
 figure { margin:1rem 0; } figure img { max-width:100%; height:auto; border:1px solid #eee; }
 figcaption { font-size:.85rem; color:var(--muted); }
 .banner { border:2px solid var(--warn); background:#fff4ec; padding:.6rem .9rem;
@@ -92,13 +95,24 @@ def kv_table(rows: list[tuple[str, Any]]) -> str:
     return f'<table class="kv">{body}</table>'
 
 
+#: Columns per HTML table: a wider frame is split into several tables (each repeating the
+#: first column), so that no table runs past the printable width of an A4 page.
+MAX_COLUMNS = 9
+
+
 def frame_table(frame: pd.DataFrame) -> str:
-    """The frame as an HTML table: missing values as "–", a named or labelled index as the
-    first column, a plain row count (0, 1, 2, …) left out."""
+    """The frame as HTML tables: missing values as "–", a named or labelled index as the
+    first column, a plain row count (0, 1, 2, …) left out; more than :data:`MAX_COLUMNS`
+    columns are spread over several tables that each repeat the first column."""
     if not isinstance(frame.index, pd.RangeIndex) or frame.index.name is not None:
         frame = frame.rename_axis(frame.index.name or "").reset_index()
     cells = frame.rename_axis(columns=None).astype(object).map(_fmt)
-    return cells.to_html(index=False, escape=True, border=0)
+    if cells.shape[1] <= MAX_COLUMNS:
+        return cells.to_html(index=False, escape=True, border=0)
+    key, rest = cells.columns[0], list(cells.columns[1:])
+    step = MAX_COLUMNS - 1
+    return "".join(cells[[key, *rest[i:i + step]]].to_html(index=False, escape=True, border=0)
+                   for i in range(0, len(rest), step))
 
 
 #: Cells of a fixed-width text table are separated by two or more spaces.
@@ -216,38 +230,11 @@ def result_section(result: Any, what: str, how: str) -> str:
     return summary_html(result.summary()) + frame_table(frame)
 
 
-def _skipped_html(failures: list[Any]) -> str:
-    if not failures:
-        return ""
-    items = "".join(f"<li><code>{escape(str(f.input))}</code>: {escape(str(f.reason))}</li>"
-                    for f in failures)
-    return (f'<div class="banner"><p>{len(failures)} batch input(s) could not be read and '
-            f"were skipped; their spectra are not in this table:</p>"
-            f'<ul class="skipped">{items}</ul></div>')
-
-
-def batch_section(cal: Calibration, table: pd.DataFrame | None,
-                  failures: list[Any] | None = None) -> str:
-    """Results of the batch; ``failures`` (objects with ``input`` and ``reason``) listed
-    first."""
-    skipped = _skipped_html(failures or [])
-    if table is None:
-        return skipped or note("No prediction batch was included in this report.")
-    keep = ["sample"]
-    for a in cal.analytes:
-        name, se, lo, hi = result_columns(a)
-        keep += [name, se, lo, hi]
-    keep.append(FLAG_COLUMN)
-    n_flag = int((table[FLAG_COLUMN].fillna("") != "").sum())
-    return (skipped + f"<p>{len(table)} spectra predicted, {n_flag} flagged.</p>"
-            + frame_table(table[keep]))
-
-
 def flags_section() -> str:
     items = "".join(f"<dt>{escape(code)}</dt><dd>{escape(text)}</dd>"
                     for code, text in FLAG_CODES.items())
-    return ("<p>Codes in the <code>flags</code> column of every results table; codes about one "
-            "analyte carry its name after a colon (<code>above_range:dye B</code>).</p>"
+    return ("<p>Codes in the <code>flag_codes</code> column of every results table; codes "
+            "about one analyte carry its name after a colon (<code>above_range:dye B</code>).</p>"
             f"<dl>{items}</dl>")
 
 

@@ -18,7 +18,11 @@ from bandsolve.errors import DataError, where
 from bandsolve.flags import FLAG_COLUMN, split_flags
 from bandsolve.merit import FiguresOfMerit
 from bandsolve.report import figures as F
+from bandsolve.report import figures_batch as FB
 from bandsolve.spectra import SpectralSet
+
+#: Batches up to this many spectra are shown sample by sample; larger ones as distributions.
+LIST_ROWS = 50
 
 
 @dataclass(frozen=True)
@@ -106,12 +110,15 @@ def rmsecv_figures(cal: Calibration) -> list[ReportFigure]:
 
 
 def overlay_figure(cal: Calibration, cal_set: SampleSet) -> ReportFigure:
-    """Calibration spectra coloured by the first analyte's concentration."""
-    fig = F.spectra_overlay_figure(cal.axis, cal_set.X, cal_set.reference[:, 0],
-                                   cal.analytes[0], axis_unit=cal.axis_unit)
+    """Calibration spectra: pure standards in their analyte's colour, mixtures coloured by
+    each analyte's concentration in turn."""
+    fig = F.standards_overlay_figure(cal.axis, cal_set.X, cal_set.reference, cal.analytes,
+                                     axis_unit=cal.axis_unit)
     return ReportFigure("fig-overlay", "data", "Calibration spectra",
                         f"{len(cal_set.sample_ids)} calibration spectra as absorbance on the "
-                        f"model grid, coloured by {cal.analytes[0]}.", fig)
+                        "model grid: pure standards in the colour of their analyte (blanks "
+                        "grey), mixtures once per analyte, coloured by its concentration.",
+                        fig)
 
 
 def net_signal(cal: Calibration, merit: FiguresOfMerit | None) -> tuple[np.ndarray, np.ndarray]:
@@ -199,21 +206,28 @@ def outlier_figure(cal: Calibration, points: list[tuple[str, list[str], np.ndarr
     y = np.concatenate([p[3] for p in points])
     if not np.isfinite(y).any():
         return None
-    fig = F.outlier_map_figure(x, y, groups=groups, sample_ids=ids, x_label=cal.kind.x_label,
-                               y_label=cal.kind.residual_label)
+    fig = FB.outlier_map_figure(x, y, groups=groups, sample_ids=ids, x_label=cal.kind.x_label,
+                                y_label=cal.kind.residual_label)
     return ReportFigure(f"fig-outliers-{section}", section, "Outlier map",
                         "Each diagnostic divided by its limit: points at or beyond the dashed "
-                        "lines (ratio 1) are flagged and named.", fig)
+                        f"lines (ratio 1) are flagged; up to {FB.MAX_LABELS} of them, the "
+                        "farthest beyond a limit, are named.", fig)
 
 
 def batch_view(cal: Calibration, table: pd.DataFrame) -> ReportFigure:
-    """Concentrations per sample of a prediction table, with intervals and flags."""
+    """Concentrations of a prediction table: per sample with intervals and flags up to
+    :data:`LIST_ROWS` spectra, as distributions (clean and flagged) beyond."""
     cols = [result_columns(a) for a in cal.analytes]
     est = table[[c[0] for c in cols]].to_numpy(float)
+    flagged = [bool(split_flags(f)) for f in table[FLAG_COLUMN].fillna("")]
+    if len(table) > LIST_ROWS:
+        fig = FB.batch_distribution_figure(est, cal.analytes, flagged)
+        return ReportFigure("fig-batch", "batch", "Prediction batch",
+                            f"Distribution of the {len(table)} estimates of each analyte; "
+                            "flagged samples stacked in vermilion on top of the others.", fig)
     low = table[[c[2] for c in cols]].to_numpy(float)
     high = table[[c[3] for c in cols]].to_numpy(float)
-    flagged = [bool(split_flags(f)) for f in table[FLAG_COLUMN].fillna("")]
-    fig = F.batch_figure(list(table["sample"].astype(str)), est, low, high, cal.analytes,
+    fig = FB.batch_figure(list(table["sample"].astype(str)), est, low, high, cal.analytes,
                          flagged)
     return ReportFigure("fig-batch", "batch", "Prediction batch",
                         "Estimate and 95 % prediction interval per sample; crosses: samples "

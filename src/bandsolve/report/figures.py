@@ -28,6 +28,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.collections import LineCollection
 from matplotlib.colors import Normalize
 from matplotlib.figure import Figure
+from matplotlib.ticker import LogLocator, NullFormatter
 
 from bandsolve.concentrations import split_unit
 from bandsolve.units import axis_label
@@ -36,15 +37,14 @@ __all__ = [
     "LINE_STYLES",
     "MARKERS",
     "OKABE_ITO",
-    "batch_figure",
     "component_spectra_figure",
     "concentration_label",
     "nas_selectivity_figure",
-    "outlier_map_figure",
     "predicted_reference_figure",
     "residual_spectra_figure",
     "rmsecv_figure",
-    "spectra_overlay_figure",
+    "readable_log_axis",
+    "standards_overlay_figure",
 ]
 
 #: Okabe–Ito colours, ordered so that the first ones contrast best on white paper.
@@ -91,6 +91,14 @@ def _panel_grid(m: int) -> tuple[int, int]:
     return int(np.ceil(m / ncols)), ncols
 
 
+def readable_log_axis(axis) -> None:
+    """Log scale with at most a handful of labelled ticks: whole decades (1, 2, 5 within
+    them when the range is short) and unlabelled minor ticks, so labels never collide."""
+    axis.set_major_locator(LogLocator(base=10.0, subs=(1.0, 2.0, 5.0), numticks=6))
+    axis.set_minor_locator(LogLocator(base=10.0, subs="auto", numticks=12))
+    axis.set_minor_formatter(NullFormatter())
+
+
 def component_spectra_figure(axis: np.ndarray, spectra: np.ndarray, labels: Sequence[str], *,
                              axis_unit: str = "nm",
                              ylabel: str = "absorbance per unit concentration [AU]",
@@ -116,30 +124,56 @@ def component_spectra_figure(axis: np.ndarray, spectra: np.ndarray, labels: Sequ
     return fig
 
 
-def spectra_overlay_figure(axis: np.ndarray, spectra: np.ndarray, concentration: np.ndarray,
-                           analyte: str, *, axis_unit: str = "nm",
-                           ylabel: str = "absorbance [AU]",
-                           title: str = "Calibration spectra") -> Figure:
-    """Calibration spectra overlaid, each coloured by one analyte's concentration.
+def standards_overlay_figure(axis: np.ndarray, spectra: np.ndarray, reference: np.ndarray,
+                             analytes: Sequence[str], *, axis_unit: str = "nm",
+                             ylabel: str = "absorbance [AU]",
+                             title: str = "Calibration spectra") -> Figure:
+    """Calibration spectra with every analyte told apart.
+
+    Pure standards (at most one non-zero concentration per spectrum) are drawn in the colour
+    and line style of their analyte, blanks in grey; calibration mixtures get one panel per
+    analyte, each coloured by that analyte's concentration (``cividis``).
 
     Parameters
     ----------
     spectra : ndarray, shape (n, p)
         Absorbance (AU) on ``axis``.
-    concentration : ndarray, shape (n,)
-        Concentration of ``analyte`` in each spectrum (unit from the label bracket).
+    reference : ndarray, shape (n, m)
+        Concentrations, one column per analyte (unit from each label's bracket).
     """
-    fig, (ax,) = _new()
-    c = np.asarray(concentration, dtype=float)
-    norm = Normalize(vmin=float(np.min(c)), vmax=float(np.max(c)) or 1.0)
-    segments = [np.column_stack([axis, row]) for row in np.atleast_2d(spectra)]
-    lines = LineCollection(segments, cmap="cividis", norm=norm, linewidths=1.0)
-    lines.set_array(c)
-    ax.add_collection(lines)
-    ax.autoscale()
-    ax.set(xlabel=axis_label(axis_unit), ylabel=ylabel,
-           title=f"{title}, coloured by {split_unit(analyte)[0]}")
-    fig.colorbar(lines, ax=ax, label=concentration_label(analyte))
+    X = np.atleast_2d(spectra)
+    C = np.asarray(reference, dtype=float).reshape(len(X), -1)
+    present = C != 0
+    if present.sum(axis=1).max(initial=0) <= 1:
+        fig, (ax,) = _new()
+        for k, analyte in enumerate(analytes):
+            rows = X[present[:, k]]
+            for j, row in enumerate(rows):
+                ax.plot(axis, row, linewidth=1.1, label=split_unit(analyte)[0] if j == 0
+                        else None, **_style(k))
+        blanks = X[~present.any(axis=1)]
+        for j, row in enumerate(blanks):
+            ax.plot(axis, row, color="0.6", linewidth=0.8, label="blank" if j == 0 else None)
+        ax.set(xlabel=axis_label(axis_unit), ylabel=ylabel, title=f"{title}: pure standards")
+        ax.legend(frameon=False, fontsize=8, ncols=2 if len(analytes) > 5 else 1)
+        return fig
+    nrows, ncols = _panel_grid(len(analytes))
+    fig, axes = _new((3.6 * ncols + 0.9, 2.9 * nrows + 0.4), ncols, nrows, sharex=True,
+                     sharey=True)
+    for k, (ax, analyte) in enumerate(zip(axes, analytes, strict=False)):
+        c = C[:, k]
+        norm = Normalize(vmin=float(np.min(c)), vmax=float(np.max(c)) or 1.0)
+        lines = LineCollection([np.column_stack([axis, row]) for row in X], cmap="cividis",
+                               norm=norm, linewidths=0.8)
+        lines.set_array(c)
+        ax.add_collection(lines)
+        ax.autoscale()
+        ax.set_title(f"coloured by {split_unit(analyte)[0]}", fontsize=9)
+        fig.colorbar(lines, ax=ax, label=concentration_label(analyte), shrink=0.9)
+        ax.set(xlabel=axis_label(axis_unit), ylabel=ylabel)
+    for ax in axes[len(analytes):]:
+        ax.set_visible(False)
+    fig.suptitle(f"{title}: mixtures")
     return fig
 
 
@@ -183,6 +217,7 @@ def rmsecv_figure(components: Sequence[int], rmsecv: np.ndarray, analytes: Seque
         positive = values[:, k][values[:, k] > 0]
         if positive.size and positive.max() / positive.min() > 20:
             ax.set_yscale("log")  # the plateau after the last useful component stays visible
+            readable_log_axis(ax.yaxis)
         ax.set(xlabel="number of PLS components",
                ylabel=concentration_label(analyte, "RMSECV"), title=split_unit(analyte)[0])
         ax.set_xticks(a)
@@ -246,12 +281,15 @@ def residual_spectra_figure(axis: np.ndarray, residuals: np.ndarray, *, axis_uni
     fig, (ax,) = _new()
     rows = np.atleast_2d(residuals)
     marked = np.zeros(len(rows), bool) if highlight is None else np.asarray(highlight, bool)
+    # Many noisy rows drawn opaque merge into a solid block: thin, faint grey lines keep the
+    # band of ordinary noise visible as a band, and flagged rows stand out on top of it.
+    faint = min(0.5, max(0.05, 8.0 / max(1, int((~marked).sum()))))
     for row in rows[~marked]:
-        ax.plot(axis, row, color=NORMAL, linewidth=0.7, alpha=0.6)
+        ax.plot(axis, row, color="0.35", linewidth=0.5, alpha=faint)
     for row in rows[marked]:
         ax.plot(axis, row, color=HIGHLIGHT, linewidth=1.2, linestyle="--")
-    ax.axhline(0.0, color="0.4", linewidth=0.6)
-    handles = [ax.plot([], [], color=NORMAL, label="within limits")[0]]
+    ax.axhline(0.0, color="0.1", linewidth=0.8)
+    handles = [ax.plot([], [], color="0.35", label="within limits")[0]]
     if marked.any():
         handles.append(ax.plot([], [], color=HIGHLIGHT, linestyle="--", label="flagged")[0])
     ax.legend(handles=handles, frameon=False)
@@ -272,13 +310,17 @@ def nas_selectivity_figure(axis: np.ndarray, nas: np.ndarray, selectivity: np.nd
     selectivity : ndarray, shape (m,)
         SEL between 0 and 1 (NaN when unknown: shown as a missing bar).
     """
-    fig = _figure((9.0, 3.8))
+    fig = _figure((9.0, 3.8 if len(analytes) <= 4 else 4.6))
     left, right = fig.subplots(1, 2, width_ratios=[2.2, 1])
     for i, (row, label) in enumerate(zip(np.atleast_2d(nas), analytes, strict=True)):
         left.plot(axis, row, label=split_unit(label)[0], linewidth=1.4, **_style(i))
     left.axhline(0.0, color="0.6", linewidth=0.6)
     left.set(xlabel=axis_label(axis_unit), ylabel=ylabel, title="Net analyte signal")
-    left.legend(frameon=False, fontsize=8)
+    if len(analytes) > 4:  # many lines: the legend goes beside the panels, not over them
+        left.legend(frameon=False, fontsize=7, loc="upper left", bbox_to_anchor=(0.0, -0.18),
+                    ncols=min(5, len(analytes)))
+    else:
+        left.legend(frameon=False, fontsize=8)
     sel = np.asarray(selectivity, dtype=float)
     names = [split_unit(a)[0] for a in analytes]
     pos = np.arange(len(names))
@@ -286,97 +328,10 @@ def nas_selectivity_figure(axis: np.ndarray, nas: np.ndarray, selectivity: np.nd
               edgecolor="black", linewidth=0.6)
     for i, s in enumerate(sel):
         right.annotate("n/a" if not np.isfinite(s) else f"{s:.2f}", (i, np.nan_to_num(s)),
-                       textcoords="offset points", xytext=(0, 3), ha="center", fontsize=8)
+                       textcoords="offset points", xytext=(0, 3), ha="center",
+                       fontsize=8 if len(sel) <= 6 else 6,
+                       rotation=0 if len(sel) <= 6 else 90, va="bottom")
     right.set_xticks(pos, names, rotation=30, ha="right")
     right.set(ylim=(0, 1.1), ylabel="selectivity SEL [dimensionless, 0–1]",
               title="Selectivity")
-    return fig
-
-
-def outlier_map_figure(x_ratio: np.ndarray, residual_ratio: np.ndarray, *,
-                       groups: Sequence[str] | None = None,
-                       sample_ids: Sequence[str] | None = None,
-                       x_label: str = "Hotelling T² / limit [ratio]",
-                       y_label: str = "Q residual / limit [ratio]",
-                       title: str = "Outlier map") -> Figure:
-    """Spectral residual against distance inside the model, both as ratios to their limits.
-
-    Points with either ratio at or above 1 are filled vermilion and labelled with their id.
-
-    Parameters
-    ----------
-    x_ratio : ndarray, shape (n,)
-        Hotelling T² (PLS) or leverage (CLS) divided by its limit.
-    residual_ratio : ndarray, shape (n,)
-        Q residual (PLS) or residual F ratio (CLS) divided by its limit.
-    groups : sequence of str, length n, optional
-        Set of each point (calibration, validation, batch): one marker per set.
-    """
-    x = np.asarray(x_ratio, dtype=float)
-    y = np.asarray(residual_ratio, dtype=float)
-    names = list(groups) if groups is not None else ["samples"] * x.size
-    ids = list(sample_ids) if sample_ids is not None else [""] * x.size
-    over = (np.nan_to_num(x) >= 1) | (np.nan_to_num(y) >= 1)
-    fig, (ax,) = _new((6.4, 4.6))
-    for i, name in enumerate(dict.fromkeys(names)):
-        sel = np.array([g == name for g in names])
-        for flag, colour, fill in ((False, NORMAL, "none"), (True, HIGHLIGHT, HIGHLIGHT)):
-            pick = sel & (over == flag)
-            if pick.any():
-                ax.plot(x[pick], y[pick], linestyle="none", marker=MARKERS[i % 8],
-                        color=colour, markerfacecolor=fill, markersize=6,
-                        label=f"{name}{' (over a limit)' if flag else ''}")
-    for xi, yi, sid in zip(x[over], y[over], np.asarray(ids, dtype=object)[over], strict=True):
-        ax.annotate(str(sid), (xi, yi), textcoords="offset points", xytext=(4, 3), fontsize=7)
-    ax.axvline(1.0, color="0.3", linestyle="--", linewidth=1)
-    ax.axhline(1.0, color="0.3", linestyle="--", linewidth=1, label="limit (ratio 1)")
-    finite = np.concatenate([x[np.isfinite(x)], y[np.isfinite(y)], [1.0]])
-    if finite.max() > 20 and finite[finite > 0].min() > 0:
-        ax.set_xscale("log")
-        ax.set_yscale("log")
-    ax.set(xlabel=x_label, ylabel=y_label, title=title)
-    ax.legend(frameon=False, fontsize=8)
-    return fig
-
-
-def batch_figure(sample_ids: Sequence[str], estimates: np.ndarray, low: np.ndarray,
-                 high: np.ndarray, analytes: Sequence[str], flagged: Sequence[bool], *,
-                 interval: str = "95 % prediction interval",
-                 title: str = "Prediction batch") -> Figure:
-    """Concentration per sample with its interval, one panel per analyte, flags marked.
-
-    Parameters
-    ----------
-    estimates, low, high : ndarray, shape (n, m)
-        Estimates and interval ends in each analyte's unit (NaN ends: no interval drawn).
-    flagged : sequence of bool, length n
-        Samples with at least one flag (drawn as vermilion crosses).
-
-    One legend serves all panels; it sits right of the axes, so it never covers a point.
-    """
-    est = np.asarray(estimates, dtype=float).reshape(len(sample_ids), -1)
-    lo = np.asarray(low, dtype=float).reshape(est.shape)
-    hi = np.asarray(high, dtype=float).reshape(est.shape)
-    bad = np.asarray(flagged, dtype=bool)
-    m = est.shape[1]
-    pos = np.arange(len(sample_ids))
-    fig, axes = _new((max(6.0, 0.32 * len(pos) + 2.5), 2.3 * m + 1.0), 1, m, sharex=True)
-    for k, (ax, analyte) in enumerate(zip(axes, analytes, strict=True)):
-        err = np.vstack([est[:, k] - lo[:, k], hi[:, k] - est[:, k]])
-        for flag, colour, marker, label in ((False, NORMAL, "o", "estimate"),
-                                            (True, HIGHLIGHT, "X", "flagged sample")):
-            pick = bad == flag
-            if pick.any():
-                ax.errorbar(pos[pick], est[pick, k], yerr=np.nan_to_num(err[:, pick]),
-                            linestyle="none", marker=marker, color=colour, capsize=3,
-                            markersize=6, label=label)
-        ax.axhline(0.0, color="0.6", linewidth=0.6)
-        ax.set_ylabel(concentration_label(analyte), fontsize=8)
-    # One legend for all panels, outside the axes (right of them): it never hides a point.
-    handles, labels = axes[0].get_legend_handles_labels()
-    fig.legend(handles, labels, loc="outside right upper", frameon=False, fontsize=7,
-               title=f"bars:\n{interval}", title_fontsize=7)
-    axes[-1].set_xticks(pos, list(sample_ids), rotation=60, ha="right", fontsize=7)
-    axes[-1].set_xlabel("sample")
-    fig.suptitle(title)
     return fig

@@ -22,6 +22,7 @@ from bandsolve.merit import FiguresOfMerit
 from bandsolve.progress import ProgressCallback, step
 from bandsolve.report import _sections as S
 from bandsolve.report import _views as V
+from bandsolve.report._batch import batch_section
 from bandsolve.spectra import SpectralSet
 
 __all__ = ["SECTION_IDS", "render_report", "write_report"]
@@ -113,7 +114,7 @@ def render_report(cal: Calibration, *, calibration_spectra: SpectralSet | None =
         "validation": _validation_text(assessment, val_set),
         "comparison": S.result_section(comparison, "method comparison",
                                        "use --compare SPECTRA CONC"),
-        "batch": S.batch_section(cal, table, getattr(batch, "failures", None)),
+        "batch": batch_section(cal.analytes, table, getattr(batch, "failures", None)),
         "flags": S.flags_section(),
         "cautions": S.cautions_section(),
     }
