@@ -7,10 +7,14 @@ laboratory meets: 2 to 10 analytes, 1 to 100,000 routine samples.
 
 from __future__ import annotations
 
+import shutil
+import subprocess
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pytest
 
 from bandsolve.calibration.build import build_cls
 from bandsolve.calibration.model import Calibration
@@ -65,3 +69,26 @@ def scenario(m: int, n_batch: int, *, pure_standards: bool = False,
     batch_ids = [f"R{i + 1:0{width}d}" for i in range(n_batch)]
     batch = cal.predict(SpectralSet(axis, Xb, batch_ids, source="invented-routine.csv"))
     return Scenario(cal, spectra, table, batch)
+
+
+def chromium() -> str | None:
+    """The headless browser used for the rendering checks, or None."""
+    if Path("/usr/bin/chromium").exists():
+        return "/usr/bin/chromium"
+    return shutil.which("chromium") or shutil.which("chromium-browser")
+
+
+def printed_text(page: Path, folder: Path) -> str:
+    """Print an HTML page to PDF (A4, as the report's print style asks) with headless
+    Chromium and return the PDF's text (pdftotext); skips when either tool is missing."""
+    browser, to_text = chromium(), shutil.which("pdftotext")
+    if browser is None or to_text is None:
+        pytest.skip("Chromium and pdftotext (poppler-utils) are needed for the print check")
+    pdf = folder / "printed.pdf"
+    run = subprocess.run([browser, "--headless", "--no-sandbox", "--disable-gpu",
+                          "--no-first-run", f"--user-data-dir={folder / 'profile'}",
+                          "--no-pdf-header-footer", f"--print-to-pdf={pdf}", page.as_uri()],
+                         capture_output=True, timeout=300, check=False)
+    assert run.returncode == 0 and pdf.stat().st_size > 0
+    return subprocess.run([to_text, str(pdf), "-"], capture_output=True, timeout=180,
+                          check=True).stdout.decode("utf-8")

@@ -6,13 +6,11 @@ from __future__ import annotations
 import argparse
 import base64
 import re
-import shutil
 import struct
 import subprocess
 import zlib
 from html import escape as html_escape
 from html.parser import HTMLParser
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -26,6 +24,7 @@ from bandsolve.flags import FLAG_CODES
 from bandsolve.io import read_concentrations, read_spectra
 from bandsolve.report import SECTION_IDS, _sections, render_report, write_report
 from bandsolve.report import _views as V
+from tests.report_scenarios import chromium, printed_text
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 
@@ -339,14 +338,8 @@ def test_cli_reports_skipped_batch_inputs_and_exits_partial(demo, tmp_path, caps
     assert f"<code>{bad}</code>" in batch and "batch-2-05" in batch
 
 
-def _chromium() -> str | None:
-    if Path("/usr/bin/chromium").exists():
-        return "/usr/bin/chromium"
-    return shutil.which("chromium") or shutil.which("chromium-browser")
-
-
 def test_headless_browser_renders_the_report(full_report, tmp_path):
-    browser = _chromium()
+    browser = chromium()
     if browser is None:
         pytest.skip("Chromium is not installed; the browser check needs it")
     written, _, _ = full_report
@@ -371,18 +364,8 @@ def test_headless_browser_renders_the_report(full_report, tmp_path):
 
 def test_printed_pages_keep_every_word_of_the_summaries_and_tables(printed_report, demo,
                                                                     tmp_path):
-    browser, to_text = _chromium(), shutil.which("pdftotext")
-    if browser is None or to_text is None:
-        pytest.skip("Chromium and pdftotext (poppler-utils) are needed for the print check")
     path, _, _ = printed_report
-    pdf = tmp_path / "r.pdf"
-    run = subprocess.run([browser, "--headless", "--no-sandbox", "--disable-gpu",
-                          "--no-first-run", f"--user-data-dir={tmp_path / 'profile'}",
-                          "--no-pdf-header-footer", f"--print-to-pdf={pdf}", path.as_uri()],
-                         capture_output=True, timeout=180, check=False)
-    assert run.returncode == 0 and pdf.stat().st_size > 0
-    text = subprocess.run([to_text, str(pdf), "-"], capture_output=True, timeout=180,
-                          check=True).stdout.decode("utf-8")
+    text = printed_text(path, tmp_path)
     # What runs past the printable width of an A4 page is clipped and so missing from the
     # text of the PDF; every word of the model's figures-of-merit summary and every column
     # of the assessment must be on paper.

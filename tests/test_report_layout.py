@@ -9,8 +9,6 @@ to what their standard error supports. The print check needs Chromium and pdftot
 from __future__ import annotations
 
 import re
-import shutil
-import subprocess
 from decimal import Decimal
 
 import numpy as np
@@ -22,7 +20,7 @@ from hypothesis import strategies as st
 from bandsolve.batch.overview import batch_overview, round_to_se, se_decimals
 from bandsolve.report import _batch, _sections, render_report, write_report
 from bandsolve.report._views import LIST_ROWS
-from tests.report_scenarios import scenario
+from tests.report_scenarios import printed_text, scenario
 
 
 def _tables(html: str) -> list[str]:
@@ -130,26 +128,12 @@ def test_rounding_example_from_the_issue():
     assert (out["a"], out["a SE"]) == (8.18, 0.011)  # 0.011 has its last digit at 10⁻³
 
 
-def _chromium() -> str | None:
-    return shutil.which("chromium") or shutil.which("chromium-browser")
-
-
 @pytest.mark.slow
 @pytest.mark.parametrize(("m", "n"), [(2, 10), (10, 20), (4, 1000)])
 def test_printed_report_keeps_every_column_and_the_flag_codes(m, n, tmp_path):
-    browser, to_text = _chromium(), shutil.which("pdftotext")
-    if browser is None or to_text is None:
-        pytest.skip("Chromium and pdftotext (poppler-utils) are needed for the print check")
     s = scenario(m, n)
     path = write_report(s.cal, tmp_path / "r.html", batch=s.batch)
-    pdf = tmp_path / "r.pdf"
-    run = subprocess.run([browser, "--headless", "--no-sandbox", "--disable-gpu",
-                          "--no-first-run", f"--user-data-dir={tmp_path / 'profile'}",
-                          "--no-pdf-header-footer", f"--print-to-pdf={pdf}", path.as_uri()],
-                         capture_output=True, timeout=300, check=False)
-    assert run.returncode == 0 and pdf.stat().st_size > 0
-    text = subprocess.run([to_text, str(pdf), "-"], capture_output=True, timeout=120,
-                          check=True).stdout.decode("utf-8")
+    text = printed_text(path, tmp_path)
     words = set(text.split())
     # What runs past the printable width of an A4 page is clipped and missing from the text;
     # the last column's header and every flag code raised must be on paper.
