@@ -175,8 +175,26 @@ def test_folder_of_single_spectra(tmp_path):
     _write(folder, "s3.csv", "400,0.2\n420,0.3\n")
     with pytest.raises(DataError, match=r"s3\.csv.*differs from .*s1\.csv"):
         read_spectra(folder, pattern="*.csv")
-    with pytest.raises(FormatError, match="no files match"):
+    with pytest.raises(FormatError, match="no spectra files match"):
         read_spectra(folder, pattern="*.jdx")
+
+
+def test_a_folder_means_every_spectra_file_below_it(tmp_path):
+    # One meaning in every command: files searched recursively, each read as it would be
+    # alone; single spectra named by their path in the folder, tables keep their own ids.
+    folder = tmp_path / "run"
+    (folder / "day2").mkdir(parents=True)
+    _write(folder, "mix-1.csv", "400,0.1\n410,0.2\n")
+    _write(folder / "day2", "mix-1.csv", "400,0.3\n410,0.4\n")
+    _write(folder / "day2", "batch.csv", "sample,400,410\nr1,0.5,0.6\nr2,0.7,0.8\n")
+    _write(folder, "notes.md", "not a spectrum\n")
+    s = read_spectra(folder)
+    assert s.sample_ids == ("r1", "r2", "day2/mix-1", "mix-1")  # sorted by path
+    np.testing.assert_array_equal(s.values, [[0.5, 0.6], [0.7, 0.8], [0.3, 0.4], [0.1, 0.2]])
+    from bandsolve.io import expand_inputs
+
+    assert [Path(f).relative_to(folder).as_posix() for f in expand_inputs([str(folder)])] == [
+        "day2/batch.csv", "day2/mix-1.csv", "mix-1.csv"]
 
 
 def test_chunks_stream_a_wide_file(tmp_path):

@@ -5,15 +5,12 @@ from __future__ import annotations
 
 import warnings
 from collections.abc import Sequence
-from typing import TYPE_CHECKING
+from typing import Protocol
 
 import numpy as np
 
 from bandsolve.errors import BandsolveWarning, DataError, where
 from bandsolve.units import guess_axis_unit
-
-if TYPE_CHECKING:
-    from bandsolve.spectra import SpectralSet
 
 __all__ = ["check_axis", "check_ids", "check_finite", "check_transmittance_scale",
            "digits_to_tell_apart", "warn_if_ambiguous_unit"]
@@ -68,7 +65,18 @@ def check_finite(values: np.ndarray, axis: np.ndarray, ids: tuple[str, ...],
         )
 
 
-def check_transmittance_scale(spectra: SpectralSet, limit: float) -> None:
+class _Spectra(Protocol):
+    """What the checks read of a SpectralSet (this module sits below :mod:`bandsolve.spectra`)."""
+
+    values: np.ndarray
+    axis: np.ndarray
+    axis_unit: str
+    quantity: str
+    sample_ids: tuple[str, ...]
+    source: str | None
+
+
+def check_transmittance_scale(spectra: _Spectra, limit: float) -> None:
     """Refuse transmittance above ``limit``: the quantity was declared wrongly."""
     over = spectra.values > limit
     if not over.any():

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import re
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -12,7 +12,7 @@ import pandas as pd
 from bandsolve.errors import DataError, where
 from bandsolve.spectra import SpectralSet
 
-__all__ = ["ConcentrationTable", "split_unit", "align"]
+__all__ = ["ConcentrationTable", "split_unit", "align", "group_labels", "groups_in_order"]
 
 _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*\[(?P<unit>[^\[\]]*)\]\s*$")
 
@@ -168,3 +168,67 @@ def align(
 def _few(ids: Sequence[str]) -> str:
     shown = ", ".join(repr(s) for s in ids[:5])
     return shown + (f" and {len(ids) - 5} more" if len(ids) > 5 else "")
+
+
+def group_labels(table: ConcentrationTable, key: str) -> pd.Series:
+    """Cross-validation group of each sample, as a Series indexed by sample id.
+
+    Parameters
+    ----------
+    table : ConcentrationTable
+    key : str
+        A text column of the table (read with ``label_columns=[key]``), or ``~REGEX``: the
+        first capture group (or the whole match) of the pattern in each sample id.
+
+    Raises
+    ------
+    DataError
+        When the column is missing or a sample id does not match the pattern.
+    """
+    if not key.startswith("~"):
+        if key not in table.labels:
+            raise DataError(f"{where(table.source)}no label column {key!r} for the groups; "
+                            f"read the table with label_columns=[{key!r}] or name one of its "
+                            "text columns")
+        return pd.Series(table.labels[key], index=list(table.sample_ids), name=key)
+    rx = re.compile(key[1:])
+    labels = []
+    for s in table.sample_ids:
+        m = rx.search(s)
+        if m is None:
+            raise DataError(f"{where(table.source, sample=s)}sample id does not match the group "
+                            f"pattern {key[1:]!r}; write a pattern every sample id matches")
+        labels.append(m.group(1) if m.groups() else m.group(0))
+    return pd.Series(labels, index=list(table.sample_ids), name=key)
+
+
+def groups_in_order(groups: Mapping[str, object] | pd.Series,
+                    sample_ids: Sequence[str]) -> np.ndarray:
+    """Group labels of ``sample_ids`` from labels keyed by sample id, in that order.
+
+    Parameters
+    ----------
+    groups : mapping or pandas.Series
+        Sample id → group label (a dict, or a Series indexed by sample id). A plain sequence
+        is refused: its order could silently differ from the spectra's.
+    sample_ids : sequence of str
+        The samples whose groups are wanted.
+
+    Raises
+    ------
+    DataError
+        For a plain sequence, or when a sample has no group (naming up to five).
+    """
+    if isinstance(groups, pd.Series):
+        groups = groups.to_dict()
+    if not isinstance(groups, Mapping):
+        raise DataError("groups must map each sample id to its group (a dict, or a pandas "
+                        "Series indexed by sample id), not a list in some order; for example "
+                        "concentrations.group_labels(table, 'batch')")
+    missing = [s for s in sample_ids if s not in groups]
+    if missing:
+        unknown = [str(k) for k in groups if k not in set(sample_ids)]
+        raise DataError(f"{len(missing)} sample(s) have no group: {_few(missing)}"
+                        + (f"; the groups name unknown samples {_few(unknown)}"
+                           if unknown else "") + "; key the groups by the exact sample ids")
+    return np.asarray([groups[s] for s in sample_ids])

@@ -31,15 +31,15 @@ import pandas as pd
 from bandsolve.calibration.model import EVAL_ROWS, Calibration, result_columns
 from bandsolve.errors import BandsolveError, DataError, FormatError
 from bandsolve.flags import FLAG_COLUMN
+from bandsolve.io.single import expand_inputs
 from bandsolve.progress import ProgressCallback, step
 from bandsolve.spectra import SpectralSet
 
-__all__ = ["EVAL_ROWS", "BatchFailure", "BatchResult", "BatchSummary", "expand_inputs",
+__all__ = ["EVAL_ROWS", "BatchFailure", "BatchResult", "BatchSummary",
            "predict_inputs", "predict_sets", "run_batch", "result_table_columns", "iter_array_sets",
            "evaluate_set"]
 
 #: File endings read from folders when no pattern is given.
-SPECTRA_SUFFIXES = (".csv", ".txt", ".tsv", ".dat", ".prn", ".jdx", ".dx", ".jcamp", ".jcm")
 
 
 #: Text files at least this large, in the automatic layout, are streamed when their first
@@ -96,32 +96,6 @@ def result_table_columns(model: Calibration) -> list[str]:
     for label in model.analytes:
         cols.extend(result_columns(label))
     return [*cols, "residual_ratio", "t2_ratio", "leverage_ratio", FLAG_COLUMN, "notes"]
-
-
-def expand_inputs(inputs: Sequence[str], pattern: str | None = None) -> list[str]:
-    """Files to read: plain files as given, folders searched recursively.
-
-    Parameters
-    ----------
-    inputs : sequence of str
-        Files, folders, or ``-`` for standard input.
-    pattern : str, optional
-        Glob applied inside folders (default: every file with a spectra ending).
-    """
-    files: list[str] = []
-    for item in inputs:
-        path = Path(item)
-        if item == "-" or not path.is_dir():
-            files.append(item)
-            continue
-        found = sorted(path.rglob(pattern)) if pattern else sorted(
-            p for p in path.rglob("*") if p.suffix.lower() in SPECTRA_SUFFIXES)
-        found = [p for p in found if p.is_file() and not p.name.startswith(".")]
-        if not found:
-            raise DataError(f"{item}: folder holds no spectra files"
-                            + (f" matching {pattern!r}" if pattern else ""))
-        files.extend(str(p) for p in found)
-    return files
 
 
 # ---------------------------------------------------------------------- reading

@@ -3,9 +3,12 @@
 from __future__ import annotations
 
 import dataclasses
+import os
 import platform
 import warnings
+from collections.abc import Mapping
 from datetime import datetime, timezone
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -13,6 +16,7 @@ import numpy as np
 from bandsolve import __version__
 from bandsolve.calibration.detail import LEVERAGE_FACTOR
 from bandsolve.calibration.model import Calibration
+from bandsolve.calibration.modelfile import sha256_file
 from bandsolve.calibration.records import EstimatorLimits, Limits
 from bandsolve.cls import CLSRegressor
 from bandsolve.concentrations import ConcentrationTable, align
@@ -21,7 +25,8 @@ from bandsolve.merit.statistics import noise_from_blanks
 from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
 
-__all__ = ["build_cls", "build_cls_from_absorptivities", "check_ceiling", "library_versions",
+__all__ = ["build_cls", "build_cls_from_absorptivities", "check_ceiling", "file_fingerprints",
+           "library_versions",
            "provenance_record", "training_arrays", "with_merit"]
 
 
@@ -37,6 +42,18 @@ def library_versions() -> dict[str, str]:
         "numpy": numpy.__version__, "scipy": scipy.__version__,
         "scikit-learn": sklearn.__version__, "pandas": pandas.__version__,
     }
+
+
+def file_fingerprints(files: Mapping[str, str | os.PathLike[str] | None]) -> list[dict[str, str]]:
+    """``{"role", "name", "sha256"}`` of each given file that exists, for ``training_files``.
+
+    Parameters
+    ----------
+    files : mapping
+        Role (``"spectra"``, ``"concentrations"``, ``"blanks"``, ...) → path or None.
+    """
+    return [{"role": role, "name": Path(path).name, "sha256": sha256_file(path)}
+            for role, path in files.items() if path and Path(path).is_file()]
 
 
 def provenance_record(extra: dict[str, Any] | None, n_samples: int) -> dict[str, Any]:

@@ -15,7 +15,7 @@ from bandsolve.calibration.build import (
 from bandsolve.calibration.detail import LEVERAGE_FACTOR
 from bandsolve.calibration.model import Calibration
 from bandsolve.calibration.records import ComponentChoice, EstimatorLimits, Limits, Selection
-from bandsolve.concentrations import ConcentrationTable
+from bandsolve.concentrations import ConcentrationTable, groups_in_order
 from bandsolve.crossval import cross_validate_pls, select_components
 from bandsolve.diagnostics import (
     ResidualLimit,
@@ -132,8 +132,10 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
     cv : str or splitter
         ``blocks:K``, ``blinds:K``, ``random:K``, ``random:KxR``, ``loo`` or ``groups`` (with
         ``groups``); see :func:`bandsolve.crossval.make_splitter`.
-    groups : array_like of shape (n,), optional
-        Group labels keeping replicate spectra of one physical sample in one fold.
+    groups : mapping or pandas.Series, optional
+        Group label of each sample, keyed by sample id (for example
+        :func:`bandsolve.concentrations.group_labels`), keeping replicate spectra of one
+        physical sample in one fold; a missing sample is an error naming it.
     select : {"randomization", "one-se", "min"}
         Component selection rule; ``alpha`` is the level of the randomization test.
     mode : {"pls2", "pls1"}
@@ -156,7 +158,7 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
         raise ModelError(f"mode must be 'pls1' or 'pls2', not {mode!r}")
     spectra, C = training_arrays(spectra, table, blank)
     if groups is not None:
-        groups = np.asarray(groups)[[table.sample_ids.index(s) for s in spectra.sample_ids]]
+        groups = groups_in_order(groups, spectra.sample_ids)
     pre = SpectralPreprocessor(axis=spectra.axis, window=window, savgol_window=savgol_window,
                                savgol_polyorder=savgol_polyorder, derivative=derivative,
                                offset=offset).fit(spectra.values)

@@ -15,11 +15,10 @@ import warnings
 from collections.abc import Sequence
 
 from bandsolve import __version__
+from bandsolve.cli._codes import EXIT_FLAGGED, EXIT_INPUT, EXIT_INTERNAL, EXIT_OK, EXIT_PARTIAL
 from bandsolve.errors import BandsolveError, BandsolveWarning
 
 __all__ = ["main", "EXIT_OK", "EXIT_INTERNAL", "EXIT_INPUT", "EXIT_PARTIAL", "EXIT_FLAGGED"]
-
-EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_PARTIAL, EXIT_FLAGGED = 0, 1, 2, 3, 4
 
 
 def _command_modules():

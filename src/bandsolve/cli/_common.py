@@ -7,6 +7,8 @@ import sys
 
 import pandas as pd
 
+from bandsolve.concentrations import ConcentrationTable, group_labels
+from bandsolve.io import read_concentrations
 from bandsolve.io.atomic import atomic_write
 
 
@@ -45,3 +47,13 @@ def write_table(frame: pd.DataFrame, out: str | None) -> None:
 def eprint(*parts: object) -> None:
     """Print to standard error (progress and summaries that must not mix with CSV output)."""
     print(*parts, file=sys.stderr)
+
+
+def read_with_groups(path: str, cv: str) -> tuple[ConcentrationTable, pd.Series | None]:
+    """The concentration table and, for ``groups:COLUMN`` or ``groups:~REGEX``, its groups
+    keyed by sample id (:func:`bandsolve.concentrations.group_labels`)."""
+    if not cv.startswith("groups:"):
+        return read_concentrations(path), None
+    key = cv[len("groups:"):]
+    table = read_concentrations(path, label_columns=None if key.startswith("~") else [key])
+    return table, group_labels(table, key)

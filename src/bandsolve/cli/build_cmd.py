@@ -3,20 +3,23 @@
 from __future__ import annotations
 
 import argparse
-import re
-from pathlib import Path
+from typing import Any
 
 import numpy as np
 
-from bandsolve.calibration.build import build_cls, build_cls_from_absorptivities
+from bandsolve.calibration.build import (
+    build_cls,
+    build_cls_from_absorptivities,
+    file_fingerprints,
+)
 from bandsolve.calibration.model import Calibration
-from bandsolve.calibration.modelfile import save_model, sha256_file
-from bandsolve.cli._common import add_input_options, eprint, read_options
-from bandsolve.concentrations import ConcentrationTable
+from bandsolve.calibration.modelfile import save_model
+from bandsolve.cli._common import add_input_options, eprint, read_options, read_with_groups
 from bandsolve.errors import BandsolveError
 from bandsolve.io import read_absorptivities, read_concentrations, read_spectra
 from bandsolve.preprocess import parse_window
 from bandsolve.progress import progress_bar
+from bandsolve.spectra import SpectralSet
 
 EXAMPLES = """\
 examples:
@@ -86,63 +89,55 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(option_defaults={a.dest: p.get_default(a.dest) for a in p._actions})
 
 
-#: Options that belong to one method only; giving them to the other is a mistake to report.
-PLS_ONLY = ("components", "max_components", "cv", "select", "select_alpha", "mode", "scale",
-            "savgol_window", "derivative", "offset", "q_limit")
-CLS_ONLY = ("intercept", "baseline", "alpha", "absorptivity")
+#: Options that belong to one method only; giving them to another is a mistake to report.
+METHOD_OPTIONS = {
+    "cls": ("intercept", "baseline", "alpha", "absorptivity"),
+    "pls": ("components", "max_components", "cv", "select", "select_alpha", "mode", "scale",
+            "savgol_window", "derivative", "offset", "q_limit"),
+}
 
 
 def check_options(args: argparse.Namespace) -> None:
     """Refuse options that the chosen method would silently ignore."""
     defaults = args.option_defaults
-    other = PLS_ONLY if args.method == "cls" else CLS_ONLY
-    given = [name for name in other if getattr(args, name) != defaults.get(name)]
-    if given:
-        flags = ", ".join("--" + name.replace("_", "-") for name in given)
-        method = "pls" if args.method == "cls" else "cls"
-        raise BandsolveError(f"{flags} {'applies' if len(given) == 1 else 'apply'} only to "
-                             f"--method {method}; remove {'it' if len(given) == 1 else 'them'} "
-                             f"or choose --method {method}")
+    for method, names in METHOD_OPTIONS.items():
+        given = [n for n in names if method != args.method and getattr(args, n) != defaults[n]]
+        if given:
+            flags = ", ".join("--" + name.replace("_", "-") for name in given)
+            one = len(given) == 1
+            raise BandsolveError(f"{flags} {'applies' if one else 'apply'} only to --method "
+                                 f"{method}; remove {'it' if one else 'them'} or choose "
+                                 f"--method {method}")
 
 
-def _fingerprints(args: argparse.Namespace) -> dict:
-    files = []
-    for role in ("spectra", "concentrations", "absorptivity", "blank", "blanks"):
-        path = getattr(args, role)
-        if path and Path(path).is_file():
-            files.append({"role": role, "name": Path(path).name, "sha256": sha256_file(path)})
-    return {"training_files": files}
+def _build_cls(args: argparse.Namespace, spectra: SpectralSet, **common: Any) -> Calibration:
+    return build_cls(spectra, read_concentrations(args.concentrations), intercept=args.intercept,
+                     baseline=args.baseline, alpha=args.alpha, **common)
 
 
-def read_with_groups(path: str, cv: str) -> tuple[ConcentrationTable, np.ndarray | None]:
-    """The concentration table and, for ``groups:COLUMN`` or ``groups:~REGEX``, group labels.
+def _build_pls(args: argparse.Namespace, spectra: SpectralSet, **common: Any) -> Calibration:
+    from bandsolve.calibration.build_pls import build_pls
 
-    ``groups:COLUMN`` reads that column as text labels (not an analyte); ``groups:~REGEX``
-    takes each sample id's first capture group (or the whole match).
-    """
-    if not cv.startswith("groups:"):
-        return read_concentrations(path), None
-    key = cv[len("groups:"):]
-    if not key.startswith("~"):
-        table = read_concentrations(path, label_columns=[key])
-        return table, np.asarray(table.labels[key])
-    table = read_concentrations(path)
-    rx = re.compile(key[1:])
-    labels = []
-    for s in table.sample_ids:
-        m = rx.search(s)
-        if m is None:
-            raise BandsolveError(f"sample id {s!r} does not match the group pattern {key[1:]!r}; "
-                                 "write a pattern every calibration sample id matches")
-        labels.append(m.group(1) if m.groups() else m.group(0))
-    return table, np.asarray(labels)
+    table, groups = read_with_groups(args.concentrations, args.cv)
+    components = "auto" if args.components == "auto" else int(args.components)
+    return build_pls(spectra, table, components=components, max_components=args.max_components,
+                     cv=args.cv if groups is None else "groups", groups=groups,
+                     select=args.select, alpha=args.select_alpha, mode=args.mode,
+                     scale=args.scale, savgol_window=args.savgol_window,
+                     derivative=args.derivative, offset=args.offset, q_limit=args.q_limit,
+                     progress=progress_bar(args.quiet), **common)
+
+
+BUILDERS = {"cls": _build_cls, "pls": _build_pls}
 
 
 def build_from_args(args: argparse.Namespace) -> Calibration:
     """The calibration the options describe (no file written)."""
     check_options(args)
     window = parse_window(args.window) if args.window else None
-    prov = _fingerprints(args)
+    prov = {"training_files": file_fingerprints(
+        {role: getattr(args, role) for role in
+         ("spectra", "concentrations", "absorptivity", "blank", "blanks")})}
     blanks = read_spectra(args.blanks, **read_options(args)) if args.blanks else None
     if args.absorptivity:
         if args.path_length is None:
@@ -154,23 +149,9 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
     if not (args.spectra and args.concentrations):
         raise BandsolveError("give --spectra and --concentrations (or --absorptivity for CLS)")
     spectra = read_spectra(args.spectra, **read_options(args))
-    table, groups = read_with_groups(args.concentrations,
-                                     args.cv if args.method == "pls" else "")
     blank = read_spectra(args.blank, **read_options(args)) if args.blank else None
-    if args.method == "cls":
-        return build_cls(spectra, table, intercept=args.intercept, baseline=args.baseline,
-                         window=window, blank=blank, blanks=blanks, alpha=args.alpha,
-                         ceiling=args.ceiling, provenance=prov)
-    from bandsolve.calibration.build_pls import build_pls
-
-    components = "auto" if args.components == "auto" else int(args.components)
-    return build_pls(spectra, table, components=components, max_components=args.max_components,
-                     cv=args.cv if groups is None else "groups", groups=groups,
-                     select=args.select, alpha=args.select_alpha, mode=args.mode,
-                     scale=args.scale, window=window, savgol_window=args.savgol_window,
-                     derivative=args.derivative, offset=args.offset, blank=blank,
-                     blanks=blanks, q_limit=args.q_limit, ceiling=args.ceiling,
-                     provenance=prov, progress=progress_bar(args.quiet))
+    return BUILDERS[args.method](args, spectra, window=window, blank=blank, blanks=blanks,
+                                 ceiling=args.ceiling, provenance=prov)
 
 
 def selection_table(cal: Calibration) -> str:

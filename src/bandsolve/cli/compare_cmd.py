@@ -6,8 +6,7 @@ import argparse
 import json
 
 from bandsolve.cautions import SHORT_CAUTION
-from bandsolve.cli._common import add_input_options, read_options
-from bandsolve.cli.build_cmd import read_with_groups
+from bandsolve.cli._common import add_input_options, read_options, read_with_groups
 from bandsolve.errors import BandsolveError
 from bandsolve.evaluate.compare import compare_methods
 from bandsolve.io import read_concentrations, read_spectra
@@ -59,9 +58,6 @@ def run(args: argparse.Namespace) -> int:
     options = read_options(args)
     spectra = read_spectra(args.spectra, **options)
     table, groups = read_with_groups(args.concentrations, args.cv)
-    if groups is not None:  # group labels in the order of the spectra
-        by_id = dict(zip(table.sample_ids, groups, strict=True))
-        groups = [by_id.get(s, s) for s in spectra.sample_ids]
     test_spectra = read_spectra(args.test_spectra, **options) if args.test_spectra else None
     test_table = read_concentrations(args.test_concentrations) if args.test_spectra else None
     result = compare_methods(

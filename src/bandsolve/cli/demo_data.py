@@ -25,6 +25,8 @@ RANDOM_STATE = 20261201
 WAVELENGTHS = np.arange(380.0, 722.0, 2.0)  # nm
 NOISE_AU = 0.002
 PATH_LENGTH_CM = 1.0
+#: Results table of each demo model (the CLS one is the demo's main result).
+RESULT_FILES = {"cls": "results.csv", "pls": "results-pls.csv"}
 #: (name, unit, low, high, bands as (centre nm, width nm, peak AU per unit concentration))
 DYES = (
     ("dye A", "mg/L", 0.0, 12.0, ((432.0, 38.0, 0.050), (478.0, 30.0, 0.018))),
@@ -155,20 +157,18 @@ def run_demo(folder: str | Path) -> DemoRun:
     ``results.csv`` (CLS) and ``results-pls.csv``.
     """
     from bandsolve.batch.predict import predict_inputs
-    from bandsolve.calibration.build import build_cls
+    from bandsolve.calibration.build import build_cls, file_fingerprints
     from bandsolve.calibration.build_pls import build_pls
-    from bandsolve.calibration.modelfile import save_model, sha256_file
+    from bandsolve.calibration.modelfile import save_model
     from bandsolve.io import read_concentrations, read_spectra
 
     folder = Path(folder)
     files = write_demo_data(folder)
     spectra = read_spectra(files.calibration_spectra)
     table = read_concentrations(files.calibration_concentrations)
-    prov = {"data_label": DEMO_LABEL, "training_files": [
-        {"role": role, "name": p.name, "sha256": sha256_file(p)}
-        for role, p in (("spectra", files.calibration_spectra),
-                        ("concentrations", files.calibration_concentrations),
-                        ("blanks", files.blanks))]}
+    prov = {"data_label": DEMO_LABEL, "training_files": file_fingerprints(
+        {"spectra": files.calibration_spectra,
+         "concentrations": files.calibration_concentrations, "blanks": files.blanks})}
     blanks = read_spectra(files.blanks)
     # The invented cell-positioning offset is modelled by an offset baseline term (it is what
     # `bandsolve compare` recommends on these data).
@@ -183,7 +183,7 @@ def run_demo(folder: str | Path) -> DemoRun:
         save_model(model, path)
         outputs[f"{name.upper()} model"] = path
         tables[name] = predict_inputs(model, [str(p) for p in files.routine]).table
-        out = folder / ("results.csv" if name == "cls" else f"results-{name}.csv")
+        out = folder / RESULT_FILES[name]
         with atomic_write(out, "w", newline="") as handle:
             tables[name].to_csv(handle, index=False)
         outputs[f"{name.upper()} results"] = out

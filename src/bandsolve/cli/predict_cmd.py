@@ -10,7 +10,7 @@ from bandsolve.batch.ledger import LedgerRecorder, check_ledger
 from bandsolve.batch.predict import DEFAULT_CHUNK, result_table_columns, run_batch
 from bandsolve.batch.writers import FORMATS, format_for, open_writer
 from bandsolve.calibration.modelfile import load_model
-from bandsolve.cli import EXIT_FLAGGED, EXIT_PARTIAL
+from bandsolve.cli._codes import EXIT_FLAGGED, EXIT_PARTIAL
 from bandsolve.cli._common import add_input_options, eprint, read_options
 from bandsolve.errors import FormatError
 from bandsolve.io.atomic import atomic_write

@@ -10,7 +10,7 @@ from typing import Any
 
 from bandsolve.batch.predict import predict_inputs
 from bandsolve.calibration.modelfile import load_model
-from bandsolve.cli import EXIT_OK, EXIT_PARTIAL
+from bandsolve.cli._codes import EXIT_OK, EXIT_PARTIAL
 from bandsolve.cli._common import add_input_options, eprint, read_options
 from bandsolve.io import read_concentrations, read_spectra
 from bandsolve.progress import progress_bar

@@ -50,7 +50,7 @@ def read_spectra_files(inputs: Sequence[str], read_options: dict[str, Any] | Non
     ----------
     inputs : sequence of str
         Spectra files (each may hold many spectra) and folders, searched recursively by
-        :func:`bandsolve.batch.predict.expand_inputs`.
+        :func:`bandsolve.io.expand_inputs`.
     read_options : dict, optional
         Keyword arguments of :func:`bandsolve.io.read_spectra`.
     pattern : str, optional
@@ -62,8 +62,7 @@ def read_spectra_files(inputs: Sequence[str], read_options: dict[str, Any] | Non
         The sets stacked in file order (:func:`bandsolve.spectra.concat`: one grid, unit,
         quantity and path length), and the files read.
     """
-    from bandsolve.batch.predict import expand_inputs
-    from bandsolve.io import read_spectra
+    from bandsolve.io import expand_inputs, read_spectra
     from bandsolve.spectra import concat
 
     files = expand_inputs(inputs, pattern)

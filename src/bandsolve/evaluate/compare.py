@@ -14,6 +14,7 @@ only pure standards and its figures of merit follow from Beer's law.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import asdict, dataclass
 from typing import Any
 
@@ -24,7 +25,7 @@ from sklearn.model_selection import check_cv
 
 from bandsolve.calibration.build import training_arrays
 from bandsolve.cls import BASELINE_TERMS, CLSRegressor
-from bandsolve.concentrations import ConcentrationTable
+from bandsolve.concentrations import ConcentrationTable, groups_in_order
 from bandsolve.crossval import (
     cross_validate_estimator,
     cross_validate_pls,
@@ -48,6 +49,9 @@ from bandsolve.spectra import SpectralSet
 __all__ = ["AbsorberEvidence", "Comparison", "MethodResult", "PairedComparison",
            "Recommendation", "ResidualStructure", "compare_methods", "holm", "paired_pvalues",
            "residual_structure"]
+
+#: Name of the PLS candidate in recommendations (CLS candidates carry their variant name).
+PLS = "PLS"
 
 
 @dataclass(frozen=True)
@@ -220,7 +224,7 @@ def _recommend(label: str, names: list[str], sq: dict[str, np.ndarray],
         if evidence.found:
             text += "; " + "; ".join(evidence.findings) + " — an absorber is missing from the "\
                     "CLS model"
-        return Recommendation(label, "PLS", text)
+        return Recommendation(label, PLS, text)
     if test.pvalue_holm < alpha:
         return Recommendation(label, best, f"{best}: errors {1 / ratio:.2g}× smaller than PLS "
                                            f"({p}) and it needs only pure standards")
@@ -232,11 +236,11 @@ def _recommend(label: str, names: list[str], sq: dict[str, np.ndarray],
 
 def _overall(recs: list[Recommendation], names: list[str], sq: dict[str, np.ndarray],
              evidence: AbsorberEvidence) -> Recommendation:
-    pls_for = [r.analyte for r in recs if r.method == "PLS"]
+    pls_for = [r.analyte for r in recs if r.method == PLS]
     if pls_for:
         text = (f"PLS: it is significantly better for {', '.join(pls_for)}"
                 + ("; " + "; ".join(evidence.findings) if evidence.found else ""))
-        return Recommendation("all", "PLS", text)
+        return Recommendation("all", PLS, text)
     # Pooled over analytes on each analyte's own scale (MSE relative to PLS).
     best = min(names[:-1], key=lambda n: float(np.mean(sq[n].mean(axis=0)
                                                        / sq[names[-1]].mean(axis=0))))
@@ -250,7 +254,9 @@ def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
                     window: list[tuple[float, float]] | None = None, intercept: bool = False,
                     baseline: str = "linear", max_components: int = 15,
                     select: str = "randomization", select_alpha: float = 0.05,
-                    alpha: float = 0.05, groups: Any = None, n_permutations: int = 999,
+                    alpha: float = 0.05,
+                    groups: Mapping[str, Any] | pd.Series | None = None,
+                    n_permutations: int = 999,
                     random_state: int = 0,
                     progress: ProgressCallback | None = None) -> Comparison:
     """Compare CLS (without and with baseline terms) and PLS on identical folds.
@@ -279,8 +285,9 @@ def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
         PLS2 component count: largest tried, rule, level of the randomization rule.
     alpha : float
         Level of the CLS-versus-PLS tests after Holm correction.
-    groups : array_like, optional
-        Group labels for ``groups`` specs.
+    groups : mapping or pandas.Series, optional
+        Group label of each sample keyed by sample id, for ``groups`` specs (see
+        :func:`bandsolve.concentrations.group_labels`).
     n_permutations, random_state
         Randomization test settings.
     progress : callable, optional
@@ -301,6 +308,8 @@ def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
     if (test_spectra is None) != (test_table is None):
         raise DataError("give both test spectra and test concentrations, or neither")
     cal, C = training_arrays(spectra, table)
+    if groups is not None:
+        groups = groups_in_order(groups, cal.sample_ids)
     pre = SpectralPreprocessor(axis=cal.axis, window=window).fit(cal.values)
     Z = pre.transform(cal.values)
     n, p = Z.shape

@@ -1,8 +1,9 @@
 """Readers and writers for spectra, concentration and absorptivity tables.
 
-:func:`read_spectra` is the one entry point for spectra: a folder is read as one spectrum per
-file, a ``.jdx``/``.dx``/``.jcm``/``.jcamp`` file as JCAMP-DX, anything else as delimited text
-(wide, transposed, long or single-spectrum layout; delimiter and decimal mark sniffed).
+:func:`read_spectra` is the one entry point for spectra: a ``.jdx``/``.dx``/``.jcm``/``.jcamp``
+file is read as JCAMP-DX, anything else as delimited text (wide, transposed, long or
+single-spectrum layout; delimiter and decimal mark sniffed), and a folder as every spectra
+file below it (:func:`~bandsolve.io.single.read_folder`; the same meaning in every command).
 """
 
 from __future__ import annotations
@@ -13,13 +14,14 @@ from pathlib import Path
 from bandsolve.io.csv_spectra import iter_spectra_chunks as _iter_csv_chunks
 from bandsolve.io.csv_spectra import read_spectra_text, write_spectra_csv
 from bandsolve.io.jcamp import JCAMP_SUFFIXES, read_jcamp
-from bandsolve.io.single import read_file, read_folder
+from bandsolve.io.single import expand_inputs, read_file, read_folder
 from bandsolve.io.tables import read_absorptivities, read_concentrations, write_concentrations_csv
 from bandsolve.spectra import SpectralSet
 
 __all__ = [
     "read_spectra",
     "read_spectra_text",
+    "expand_inputs",
     "iter_spectra_chunks",
     "read_jcamp",
     "read_concentrations",
@@ -31,9 +33,8 @@ __all__ = [
 
 def read_spectra(path: str | Path, *, layout: str = "auto", axis_unit: str | None = None,
                  quantity: str | None = None, path_length_cm: float | None = None,
-                 replicates: str = "error", pattern: str = "*",
-                 recursive: bool = False) -> SpectralSet:
-    """Read spectra from a text file, a JCAMP-DX file or a folder of one-spectrum files.
+                 replicates: str = "error", pattern: str | None = None) -> SpectralSet:
+    """Read spectra from a text file, a JCAMP-DX file or a folder of spectra files.
 
     Parameters
     ----------
@@ -51,10 +52,9 @@ def read_spectra(path: str | Path, *, layout: str = "auto", axis_unit: str | Non
         Cell path length in cm.
     replicates : {"error", "average"}
         Spectra sharing an id are an error (naming the rows) or are averaged.
-    pattern : str
-        File pattern inside a folder (for example ``"*.csv"``).
-    recursive : bool
-        Also read sub-folders.
+    pattern : str, optional
+        File pattern inside a folder (for example ``"*.csv"``); default: every file with a
+        spectra ending. Folders are always searched recursively.
 
     Returns
     -------
@@ -73,7 +73,7 @@ def read_spectra(path: str | Path, *, layout: str = "auto", axis_unit: str | Non
     options = dict(axis_unit=axis_unit, quantity=quantity, path_length_cm=path_length_cm,
                    replicates=replicates)
     if Path(path).is_dir():
-        return read_folder(path, pattern=pattern, recursive=recursive, layout=layout, **options)
+        return read_folder(path, pattern=pattern, layout=layout, **options)
     return read_file(path, layout=layout, **options)
 
 
