@@ -55,5 +55,5 @@ def read_with_groups(path: str, cv: str) -> tuple[ConcentrationTable, pd.Series 
     if not cv.startswith("groups:"):
         return read_concentrations(path), None
     key = cv[len("groups:"):]
-    table = read_concentrations(path, label_columns=None if key.startswith("~") else [key])
+    table = read_concentrations(path, label_columns=() if key.startswith("~") else (key,))
     return table, group_labels(table, key)
