@@ -11,7 +11,6 @@ from collections.abc import Sequence
 from typing import ClassVar
 
 import numpy as np
-from scipy.signal import savgol_filter
 from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.utils.validation import check_is_fitted, validate_data
 
@@ -148,6 +147,9 @@ class SpectralPreprocessor(RecordedState, TransformerMixin, BaseEstimator):
         than once per block.
         """
         if self.savgol_window is not None:
+            # Imported here: scipy.signal costs a noticeable share of the command's start-up.
+            from scipy.signal import savgol_filter
+
             delta = 1.0
             if self.axis is not None and self.derivative:
                 delta = float(np.diff(np.asarray(self.axis, dtype=float))[0])

@@ -1,34 +1,49 @@
-"""Benchmark: one-pass PLS cross-validation against refitting scikit-learn.
+"""Benchmark: one-pass PLS cross-validation against the fastest open PLS library and scikit-learn.
 
-Run on demand (not collected by pytest)::
+Run on demand (not collected by pytest), in the benchmark environment described in
+``tests/benchmarks/README.md`` (the peer library is installed there only, never as a
+dependency)::
 
-    /work/venv/bin/python tests/benchmarks/bench_pls_cv.py [--threads N]
+    /work/benchvenv/bin/python tests/benchmarks/bench_pls_cv.py [--repeat 5] [--shapes ...]
 
-For each (n, p, m) it times 10-fold CV of 1..20 components with
-(fast) ``bandsolve.crossval.cross_validate_pls``,
-(a)    scikit-learn ``PLSRegression`` refitted for every component count (``cross_val_predict``),
-(b)    scikit-learn fitted once per fold with 20 components, smaller counts by truncation,
-and prints times, speed-ups and the largest prediction difference from (a) and (b).
-The fast method and (b) are run alternately and timed as the best of ``--repeat`` runs each
-(the machine may be shared);
-(a) takes seconds to minutes and is run once.
+For each shape (n, p) and for PLS1 (m = 1) and PLS2 (m = 3) it times 10-fold CV (contiguous
+blocks, the same partition for every library) of 1..20 components with
+
+* **bandsolve**: ``bandsolve.crossval.cross_validate_pls`` (predictions, RMSECV, Q, T²);
+* **peer**: the open improved-kernel PLS with fast partition-based cross-validation
+  (Engstrøm & Jensen 2024; ``ikpls.fast_cross_validation.numpy.PLS``, algorithm 1 when
+  n < p else 2, centring only, one job), its metric function returning the held-out
+  predictions of every component count;
+
+both with one BLAS thread, run alternately, best of ``--repeat`` runs each.  It prints the
+times, the ratio peer/bandsolve (> 1: bandsolve is faster), the tracemalloc peak of each call
+(memory allocated beyond the input data, measured in separate untimed runs) and the largest
+prediction difference of each against scikit-learn ``PLSRegression`` (fitted once per fold
+with 20 components and NIPALS run to convergence, ``tol=0``, 500 iterations; smaller counts by
+truncation).  scikit-learn is skipped above ``--sklearn-max`` samples for PLS1 and above
+``--sklearn-max-pls2`` for PLS2 (it takes minutes there).
 """
 
 from __future__ import annotations
 
 import argparse
+import contextlib
+import io
 import time
+import tracemalloc
+import warnings
 
 import numpy as np
 from sklearn.cross_decomposition import PLSRegression
-from sklearn.model_selection import KFold, cross_val_predict
+from sklearn.model_selection import KFold
 from threadpoolctl import threadpool_limits
 
 from bandsolve.crossval import cross_validate_pls
 
-SIZES = [(500, 600, 3), (2000, 300, 3), (100, 1000, 1)]
+SHAPES = [(100, 1000), (500, 600), (2000, 300), (10_000, 300), (50_000, 100),
+          (1_000_000, 100)]
 A_MAX = 20
-CV = KFold(10)
+N_FOLDS = 10
 
 
 def simulate(n: int, p: int, m: int, rng: np.random.Generator):
@@ -37,72 +52,121 @@ def simulate(n: int, p: int, m: int, rng: np.random.Generator):
     centres = np.linspace(0.15, 0.85, m + 3)
     bands = np.exp(-0.5 * ((grid[None, :] - centres[:, None]) / 0.1) ** 2)
     conc = rng.uniform(0.0, 1.0, size=(n, m + 3))
-    X = 0.3 + conc @ bands + 0.002 * rng.standard_normal((n, p))
-    return X, conc[:, :m]
+    X = conc @ bands
+    X += 0.3
+    X += 0.002 * rng.standard_normal((n, p))
+    return X, conc[:, :m].copy()
 
 
-def timed(func, repeat: int = 1):
-    """Result of ``func()`` and its best wall time over ``repeat`` runs."""
-    best = np.inf
-    for _ in range(repeat):
-        start = time.perf_counter()
-        out = func()
-        best = min(best, time.perf_counter() - start)
-    return out, best
+def folds_of(n: int) -> np.ndarray:
+    """Fold label of each sample for KFold(10) without shuffling (contiguous blocks)."""
+    labels = np.empty(n, dtype=int)
+    for k, (_, test) in enumerate(KFold(N_FOLDS).split(np.empty((n, 1)))):
+        labels[test] = k
+    return labels
 
 
-def timed_pair(first, second, repeat: int):
-    """Results and best wall times of two functions run alternately ``repeat`` times each.
-
-    Alternating puts both under the same load when the machine is shared, so their ratio is
-    steadier than that of two separate series.
-    """
-    runs = [timed(first), timed(second)]
-    for _ in range(repeat - 1):
-        runs = [(out, min(best, timed(func)[1]))
-                for (out, best), func in zip(runs, (first, second), strict=True)]
-    return runs
+def run_bandsolve(X, Y):
+    return cross_validate_pls(X, Y, A_MAX, cv=KFold(N_FOLDS)).predictions
 
 
-def sklearn_refit(X, Y):
-    return np.stack([cross_val_predict(PLSRegression(a, scale=False), X, Y, cv=CV).reshape(Y.shape)
-                     for a in range(1, A_MAX + 1)])
+def run_peer(X, Y):
+    from ikpls.fast_cross_validation.numpy import PLS as PeerPLS
 
-
-def sklearn_truncated(X, Y):
+    n, p = X.shape
+    labels = folds_of(n)
+    model = PeerPLS(algorithm=1 if n < p else 2, center_X=True, center_Y=True,
+                    scale_X=False, scale_Y=False, copy=True)
+    with contextlib.redirect_stdout(io.StringIO()):  # it prints a line per call
+        per_fold = model.cross_validate(X, Y, A_MAX, labels, lambda y_val, y_pred: y_pred,
+                                        n_jobs=1, verbose=0)
     pred = np.empty((A_MAX, *Y.shape))
-    for train, test in CV.split(X):
-        model = PLSRegression(A_MAX, scale=False).fit(X[train], Y[train])
+    for k, fold_pred in per_fold.items():
+        pred[:, labels == k] = fold_pred
+    return pred
+
+
+def run_sklearn(X, Y):
+    # PLS1 weights are exact after one NIPALS step; for PLS2 the power iteration runs its
+    # full max_iter (tol=0): with its usual stopping rule it agrees only to ~1e-7.
+    pred = np.empty((A_MAX, *Y.shape))
+    for train, test in KFold(N_FOLDS).split(X):
+        model = PLSRegression(A_MAX, scale=False, tol=0.0, max_iter=500)
+        model.fit(X[train], Y[train])
         scores = (X[test] - X[train].mean(axis=0)) @ model.x_rotations_
         terms = scores.T[:, :, None] * model.y_loadings_.T[:, None, :]
         pred[:, test] = Y[train].mean(axis=0) + np.cumsum(terms, axis=0)
     return pred
 
 
+def timed(func):
+    start = time.perf_counter()
+    out = func()
+    return out, time.perf_counter() - start
+
+
+def alternate(funcs, repeat: int):
+    """First result and best wall time of each function, run alternately ``repeat`` times."""
+    outs, best = [None] * len(funcs), [np.inf] * len(funcs)
+    for _ in range(repeat):
+        for i, func in enumerate(funcs):
+            out, t = timed(func)
+            outs[i] = out if outs[i] is None else outs[i]
+            best[i] = min(best[i], t)
+            del out
+    return outs, best
+
+
+def peak_mb(func) -> float:
+    """tracemalloc peak (MB) of one call: everything it allocates, numpy arrays included."""
+    tracemalloc.start()
+    out = func()
+    _, peak = tracemalloc.get_traced_memory()
+    tracemalloc.stop()
+    del out
+    return peak / 2**20
+
+
+def compare(X: np.ndarray, Y: np.ndarray, args: argparse.Namespace) -> str:
+    """One line of the table for data (X, Y)."""
+    (n, p), m = X.shape, Y.shape[1]
+    repeat = args.repeat if n * p <= 5_000_000 else max(2, args.repeat // 2)
+    (ours, peer), (t_ours, t_peer) = alternate(
+        [lambda: run_bandsolve(X, Y), lambda: run_peer(X, Y)], repeat)
+    mem_ours = mem_peer = float("nan")
+    if not args.no_memory:
+        mem_ours = peak_mb(lambda: run_bandsolve(X, Y))
+        mem_peer = peak_mb(lambda: run_peer(X, Y))
+    d_ours = d_peer = float("nan")
+    if n <= (args.sklearn_max if m == 1 else args.sklearn_max_pls2):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # "did not converge" at tol=0
+            ref = run_sklearn(X, Y)
+        d_ours, d_peer = np.abs(ours - ref).max(), np.abs(peer - ref).max()
+    return (f"{n:>8} {p:>5} {m:>2} {t_ours:>11.4f} {t_peer:>8.4f} {t_peer / t_ours:>7.2f} "
+            f"{mem_ours:>7.0f} {mem_peer:>8.0f} {d_ours:>8.1e} {d_peer:>8.1e}")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--threads", type=int, default=None,
-                        help="limit BLAS threads (threadpoolctl); default: library default")
-    parser.add_argument("--repeat", type=int, default=10,
-                        help="alternate runs of the fast method and of (b); the best time "
-                        "of each is kept")
+    parser.add_argument("--repeat", type=int, default=5, help="alternating runs per shape")
+    parser.add_argument("--sklearn-max", type=int, default=50_000,
+                        help="largest n compared with scikit-learn")
+    parser.add_argument("--sklearn-max-pls2", type=int, default=2000,
+                        help="largest n compared with scikit-learn for PLS2")
+    parser.add_argument("--max-n", type=int, default=None, help="skip shapes with more rows")
+    parser.add_argument("--no-memory", action="store_true", help="skip the memory runs")
     args = parser.parse_args()
-    rng = np.random.default_rng(0)
-    print(f"10-fold CV, components 1..{A_MAX}, BLAS threads: {args.threads or 'default'}, "
-          f"best of {args.repeat}")
-    print(f"{'n':>5} {'p':>5} {'m':>2} {'fast s':>8} {'(a) s':>8} {'(b) s':>8} "
-          f"{'x(a)':>6} {'x(b)':>6} {'max|d| a':>9} {'max|d| b':>9}")
-    with threadpool_limits(limits=args.threads):
-        for n, p, m in SIZES:
-            X, Y = simulate(n, p, m, rng)
-            (res, t_fast), (ref_b, t_b) = timed_pair(
-                lambda X=X, Y=Y: cross_validate_pls(X, Y, A_MAX, cv=CV),
-                lambda X=X, Y=Y: sklearn_truncated(X, Y), args.repeat)
-            ref_a, t_a = timed(lambda X=X, Y=Y: sklearn_refit(X, Y))
-            d_a = np.abs(res.predictions - ref_a).max()
-            d_b = np.abs(res.predictions - ref_b).max()
-            print(f"{n:>5} {p:>5} {m:>2} {t_fast:>8.4f} {t_a:>8.2f} {t_b:>8.2f} "
-                  f"{t_a / t_fast:>6.0f} {t_b / t_fast:>6.1f} {d_a:>9.1e} {d_b:>9.1e}")
+    rng = np.random.default_rng(12345)
+    print(f"{N_FOLDS}-fold CV (blocks), components 1..{A_MAX}, one BLAS thread, "
+          f"best of {args.repeat} alternating runs")
+    print(f"{'n':>8} {'p':>5} {'m':>2} {'bandsolve s':>11} {'peer s':>8} {'peer/bs':>7} "
+          f"{'bs MB':>7} {'peer MB':>8} {'bs-skl':>8} {'peer-skl':>8}")
+    with threadpool_limits(limits=1):
+        for n, p in SHAPES:
+            if args.max_n is None or n <= args.max_n:
+                for m in (1, 3):
+                    print(compare(*simulate(n, p, m, rng), args), flush=True)
 
 
 if __name__ == "__main__":

@@ -8,6 +8,7 @@ flagged and ``--fail-on-flags`` was given; 130 interrupted.
 from __future__ import annotations
 
 import argparse
+import importlib
 import os
 import sys
 import traceback
@@ -21,21 +22,27 @@ from bandsolve.errors import BandsolveError, BandsolveWarning
 __all__ = ["main", "EXIT_OK", "EXIT_INTERNAL", "EXIT_INPUT", "EXIT_PARTIAL", "EXIT_FLAGGED"]
 
 
-def _command_modules():
-    from bandsolve.cli import (
-        assess_cmd,
-        build_cmd,
-        compare_cmd,
-        demo_cmd,
-        design_cmd,
-        inspect_cmd,
-        ledger_cmd,
-        predict_cmd,
-        report_cmd,
-    )
+#: Subcommand name → its module in :mod:`bandsolve.cli`, in the order ``--help`` lists them.
+#: A module (and the scientific libraries behind it) is imported only when its command runs or
+#: when the full help is asked for, so ``bandsolve --version`` and each command start quickly.
+COMMANDS = {"demo": "demo_cmd", "design": "design_cmd", "build": "build_cmd",
+            "compare": "compare_cmd", "assess": "assess_cmd", "predict": "predict_cmd",
+            "inspect": "inspect_cmd", "report": "report_cmd", "ledger": "ledger_cmd"}
 
-    return [demo_cmd, design_cmd, build_cmd, compare_cmd, assess_cmd, predict_cmd, inspect_cmd,
-            report_cmd, ledger_cmd]
+
+def _commands_needed(argv: Sequence[str]) -> list[str]:
+    """The subcommands the parser must know to parse ``argv``.
+
+    The program's own options are only ``--help`` and ``--version``, so the first word not
+    starting with ``-`` names the command.  Without one, ``--version`` needs no subcommand;
+    anything else (help, a mistyped command) gets all of them.
+    """
+    first = next((arg for arg in argv if not arg.startswith("-")), None)
+    if first in COMMANDS:
+        return [first]
+    if first is None and "--version" in argv and not {"-h", "--help"} & set(argv):
+        return []
+    return list(COMMANDS)
 
 
 class _Parser(argparse.ArgumentParser):
@@ -45,8 +52,8 @@ class _Parser(argparse.ArgumentParser):
         self.exit(EXIT_INPUT, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """The full argument parser, with one subcommand per module in :mod:`bandsolve.cli`."""
+def build_parser(commands: Sequence[str] | None = None) -> argparse.ArgumentParser:
+    """The argument parser, with the given subcommands (default: all of :data:`COMMANDS`)."""
     parser = _Parser(
         prog="bandsolve",
         description="Resolve overlapping UV-Vis absorption bands into concentrations: plan "
@@ -56,8 +63,8 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"bandsolve {__version__}")
     sub = parser.add_subparsers(title="commands", metavar="COMMAND", parser_class=_Parser)
-    for module in _command_modules():
-        module.register(sub)
+    for name in COMMANDS if commands is None else commands:
+        importlib.import_module(f"bandsolve.cli.{COMMANDS[name]}").register(sub)
     return parser
 
 
@@ -68,7 +75,8 @@ def _one_line_warning(message, category, filename, lineno, file=None, line=None)
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit code (see module docstring)."""
-    parser = build_parser()
+    argv = sys.argv[1:] if argv is None else list(argv)
+    parser = build_parser(_commands_needed(argv))
     args = parser.parse_args(argv)
     if not hasattr(args, "func"):
         parser.print_help()

@@ -1,0 +1,64 @@
+"""The command line starts without importing what the chosen command does not need.
+
+Checked through ``sys.modules`` in a fresh interpreter (no timing asserts): plotting and the
+statistics library account for most of the start-up time, and ``--version`` needs neither.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import pytest
+
+from bandsolve.cli import COMMANDS, build_parser, main
+
+HEAVY = ("matplotlib", "scipy.stats", "sklearn", "pandas")
+
+
+def _loaded_after(code: str) -> list[str]:
+    probe = (f"import sys\n{code}\n"
+             f"import json; print(json.dumps([m for m in {HEAVY!r} if m in sys.modules]))")
+    out = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True,
+                         check=True)
+    return json.loads(out.stdout.strip().splitlines()[-1])
+
+
+def test_importing_the_cli_loads_no_heavy_library():
+    assert _loaded_after("import bandsolve.cli") == []
+
+
+def test_version_loads_no_heavy_library():
+    code = ("from bandsolve.cli import main\n"
+            "try:\n    main(['--version'])\nexcept SystemExit:\n    pass")
+    assert _loaded_after(code) == []
+
+
+def test_one_command_does_not_load_plotting():
+    # `build --help` imports the build command only; the report command is the one that plots.
+    code = ("from bandsolve.cli import main\n"
+            "try:\n    main(['build', '--help'])\nexcept SystemExit:\n    pass")
+    assert "matplotlib" not in _loaded_after(code)
+
+
+@pytest.mark.parametrize("name", sorted(COMMANDS))
+def test_each_command_module_registers_its_name(name):
+    parser = build_parser([name])
+    sub = next(a for a in parser._actions if a.dest == "==SUPPRESS==" or a.choices)
+    assert list(sub.choices) == [name]
+
+
+def test_full_help_lists_every_command(capsys):
+    with pytest.raises(SystemExit):
+        main(["--help"])
+    out = capsys.readouterr().out
+    for name in COMMANDS:
+        assert name in out
+
+
+def test_unknown_command_is_a_usage_error(capsys):
+    with pytest.raises(SystemExit) as exc:
+        main(["bulid"])
+    assert exc.value.code == 2  # EXIT_INPUT
+    assert "invalid choice" in capsys.readouterr().err
