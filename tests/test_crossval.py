@@ -243,10 +243,10 @@ def _result_from_squared_errors(sq: np.ndarray, reference: np.ndarray) -> CVResu
     mse = sq.mean(axis=1)
     return CVResult(settings=tuple(range(1, n_set + 1)), setting_name="n_components",
                     reference=reference, predictions=reference + np.sqrt(sq),
-                    errors=np.sqrt(sq), squared_errors=sq, rmsecv=np.sqrt(mse),
+                    rmsecv=np.sqrt(mse),
                     rmsecv_total=np.sqrt(mse.mean(axis=1)), fold_mse=mse[:, None],
                     fold_index=np.zeros(n, dtype=int), n_held_out=np.ones(n, dtype=int),
-                    q_residuals=None, hotelling_t2=None)
+                    q_residuals=None, hotelling_t2=None, repeat_squared_errors=sq)
 
 
 def test_selection_rules_on_a_known_curve():

@@ -39,54 +39,55 @@ from bandsolve.errors import ModelError
 
 @dataclass
 class FoldOutput:
-    """Held-out results of one fold for component counts 1..A.
+    """Held-out results of one fold for component counts 1..A_f.
 
-    ``predictions`` (A, n_v, m); ``q_residuals`` (A, n_v); ``hotelling_t2`` (A, n_v).
+    ``predictions`` (A_f, n_v, m); ``q_residuals`` (A_f, n_v); ``hotelling_t2`` (A_f, n_v).
+    A_f may be smaller than the A asked for: counts beyond the rank of the training data add
+    nothing, so their model is the last row's, which :func:`put_path` repeats.  Without any
+    component the single row holds the zero-component model (the training mean).
     """
 
     predictions: np.ndarray
-    q_residuals: np.ndarray
-    hotelling_t2: np.ndarray
+    q_residuals: np.ndarray | None
+    hotelling_t2: np.ndarray | None
 
 
-def _pad(path: np.ndarray, n_settings: int, zero_value: np.ndarray) -> np.ndarray:
-    """Extend a path over 1..A_eff components to 1..n_settings by repeating its last model.
-
-    Counts beyond the rank of the training data add nothing, so their model equals the last one
-    (or the zero-component value when no component could be extracted).
-    """
-    missing = n_settings - path.shape[0]
-    if missing == 0:
-        return path
-    last = path[-1] if path.shape[0] else zero_value
-    return np.concatenate([path, np.broadcast_to(last, (missing, *last.shape))])
+def put_path(dest: np.ndarray, rows, path: np.ndarray, add: bool = False) -> None:
+    """Write (or add) a fold's path over 1..A_f into ``dest[:, rows]``, repeating its last row."""
+    a = path.shape[0]
+    if add:
+        dest[:a, rows] += path
+        dest[a:, rows] += path[-1]
+    else:
+        dest[:a, rows] = path
+        dest[a:, rows] = path[-1]
 
 
 def _fold_output(x_val: np.ndarray, y_mean: np.ndarray, val_scores: np.ndarray,
                  x_loadings: np.ndarray, y_loadings: np.ndarray, tau: np.ndarray,
-                 n_train: int, n_settings: int) -> FoldOutput:
+                 n_train: int) -> FoldOutput:
     """Assemble predictions, Q and T² for every component count from one fold's factors.
 
     ``x_val`` (n_v, p) are held-out spectra centred (and scaled) with the training statistics,
-    ``val_scores`` (n_v, A_eff) their scores.
+    ``val_scores`` (n_v, A_f) their scores.
     """
     n_val = x_val.shape[0]
+    if val_scores.shape[1] == 0:
+        return FoldOutput(np.broadcast_to(y_mean, (1, n_val, y_mean.size)),
+                          np.einsum("ij,ij->i", x_val, x_val)[None], np.zeros((1, n_val)))
     # The models are nested: ŷ_a = ȳ + Σ_{j≤a} t_j q_jᵀ.
     terms = val_scores.T[:, :, None] * y_loadings.T[:, None, :]
-    pred = y_mean + np.cumsum(terms, axis=0)
-    pred = _pad(pred, n_settings, np.broadcast_to(y_mean, (n_val, y_mean.size)))
+    pred = np.cumsum(terms, axis=0, out=terms)
+    pred += y_mean
     q_res = residual_ss_path(x_val, val_scores, x_loadings)
-    q_res = _pad(q_res, n_settings, np.einsum("ij,ij->i", x_val, x_val))
     # Training scores are orthogonal, so S_T = TᵀT/(n−1) is diagonal with τ_a/(n−1).
-    t2 = np.cumsum(val_scores.T**2 / (tau[:, None] / (n_train - 1)), axis=0)
-    t2 = _pad(t2, n_settings, np.zeros(n_val))
-    return FoldOutput(pred, q_res, t2)
+    t2 = np.square(val_scores.T)
+    t2 /= tau[:, None] / (n_train - 1)
+    return FoldOutput(pred, q_res, np.cumsum(t2, axis=0, out=t2))
 
 
-def _fold_scale(ss_diag: np.ndarray, n_train: int, scale: bool) -> np.ndarray:
-    """Training-fold column SD (ddof=1, ones for constant columns), or ones without scaling."""
-    if not scale:
-        return np.ones(ss_diag.size)
+def _fold_scale(ss_diag: np.ndarray, n_train: int) -> np.ndarray:
+    """Training-fold column SD (ddof=1; ones for constant columns)."""
     sd = np.sqrt(np.maximum(ss_diag, 0.0) / (n_train - 1))
     sd[sd == 0.0] = 1.0
     return sd
@@ -94,15 +95,34 @@ def _fold_scale(ss_diag: np.ndarray, n_train: int, scale: bool) -> np.ndarray:
 
 def _centre(engine: TallEngine | WideEngine, X: np.ndarray, Y: np.ndarray,
             scale: bool) -> None:
-    """Centre X and Y once with the whole-set means (folds correct them by rank-one terms)."""
-    engine.x0 = X - X.mean(axis=0)
+    """Whole-set means and centred Y (folds correct the means by rank-one terms)."""
+    engine.x_mean = X.mean(axis=0)
     engine.y_offset = Y.mean(axis=0)
     engine.y0 = Y - engine.y_offset
     engine.scale = scale
 
 
+def rows_of(test: np.ndarray) -> slice | np.ndarray:
+    """``test`` as a slice when it is a run of consecutive rows (views instead of copies)."""
+    if test.size and test[-1] - test[0] + 1 == test.size and (np.diff(test) == 1).all():
+        return slice(int(test[0]), int(test[-1]) + 1)
+    return test
+
+
+#: Rows of X centred at a time while the cross-products are accumulated (≈ 4 MB blocks).
+_BLOCK_BYTES = 1 << 22
+#: Largest number of stored per-fold XᵀX elements (K·p², 128 MB) for the one-pass products.
+_MAX_FOLD_PRODUCTS = 1 << 24
+
+
 class TallEngine:
     """Downdated cross-products + improved kernel PLS (for n ≥ p).
+
+    X is never copied whole.  When the folds partition the samples (each held out once) and
+    their K p×p products fit in memory, each fold's own products ``X_vᵀX_v`` are computed
+    once and their sum is the whole-set ``XᵀX``, so the data are multiplied once instead of
+    twice.  Otherwise the whole-set products are accumulated over row blocks and each fold
+    computes its own.  Rows are centred with the whole-set mean as they are read.
 
     Parameters
     ----------
@@ -110,31 +130,63 @@ class TallEngine:
     Y : ndarray of shape (n, m)
     scale : bool
         Autoscale X columns with each training fold's SD.
+    tests : list of ndarray, optional
+        Held-out rows of each fold, when every sample is held out exactly once.
     """
 
-    def __init__(self, X: np.ndarray, Y: np.ndarray, scale: bool):
+    def __init__(self, X: np.ndarray, Y: np.ndarray, scale: bool,
+                 tests: list[np.ndarray] | None = None):
         _centre(self, X, Y, scale)
-        self.sxx = self.x0.T @ self.x0
-        self.sxy = self.x0.T @ self.y0
-        self.sx = self.x0.sum(axis=0)
+        self.X = X
+        n, p = X.shape
         self.sy = self.y0.sum(axis=0)
+        if tests is not None and len(tests) * p * p <= _MAX_FOLD_PRODUCTS:
+            self.fold_products = [self._products(rows_of(test)) for test in tests]
+            self.sxx = sum(f[0] for f in self.fold_products)
+            self.sxy = sum(f[1] for f in self.fold_products)
+            self.sx = sum(f[2] for f in self.fold_products)
+            return
+        self.fold_products = None
+        self.sxx, self.sxy, self.sx = np.zeros((p, p)), np.zeros((p, Y.shape[1])), np.zeros(p)
+        step = max(1, _BLOCK_BYTES // (8 * p))
+        for start in range(0, n, step):
+            sxx, sxy, sx, _ = self._products(slice(start, start + step))
+            self.sxx += sxx
+            self.sxy += sxy
+            self.sx += sx
 
-    def fold(self, train: np.ndarray, test: np.ndarray, n_settings: int) -> FoldOutput:
-        """Results for held-out ``test`` of the model fitted to ``train`` (index arrays)."""
-        xv, yv = self.x0[test], self.y0[test]
+    def _products(self, rows) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """``X_rᵀX_r``, ``X_rᵀY_r``, ``X_rᵀ1`` and ``Y_rᵀ1`` of rows ``rows`` (centred data)."""
+        xr = np.subtract(self.X[rows], self.x_mean)
+        yr = self.y0[rows]
+        return xr.T @ xr, xr.T @ yr, xr.sum(axis=0), yr.sum(axis=0)
+
+    def fold(self, k: int, train: np.ndarray, test: np.ndarray,
+             n_settings: int) -> FoldOutput:
+        """Results for held-out ``test`` (fold ``k``) of the model fitted to ``train``."""
+        rows = rows_of(test)
+        xv = np.subtract(self.X[rows], self.x_mean)
         n_train = train.size
-        sx_t = self.sx - xv.sum(axis=0)
-        sy_t = self.sy - yv.sum(axis=0)
-        cxx = self.sxx - xv.T @ xv - np.outer(sx_t, sx_t) / n_train
-        cxy = self.sxy - xv.T @ yv - np.outer(sx_t, sy_t) / n_train
-        sd = _fold_scale(np.diag(cxx).copy(), n_train, self.scale)
+        if self.fold_products is None:
+            yv = self.y0[rows]
+            sxx_v, sxy_v, sx_v, sy_v = xv.T @ xv, xv.T @ yv, xv.sum(axis=0), yv.sum(axis=0)
+        else:
+            sxx_v, sxy_v, sx_v, sy_v = self.fold_products[k]
+        sx_t = self.sx - sx_v
+        sy_t = self.sy - sy_v
+        cxx = self.sxx - sxx_v
+        cxx -= np.outer(sx_t, sx_t / n_train)
+        cxy = self.sxy - sxy_v
+        cxy -= np.outer(sx_t, sy_t / n_train)
+        xv -= sx_t / n_train  # the held-out rows, centred with the training mean
         if self.scale:
-            cxx = cxx / np.outer(sd, sd)
-            cxy = cxy / sd[:, None]
+            sd = _fold_scale(np.diag(cxx).copy(), n_train)
+            cxx /= np.outer(sd, sd)
+            cxy /= sd[:, None]
+            xv /= sd
         f = kernel_pls(cxx, cxy, n_settings)
-        x_val = (xv - sx_t / n_train) / sd
-        return _fold_output(x_val, self.y_offset + sy_t / n_train, x_val @ f.rotations,
-                            f.x_loadings, f.y_loadings, f.tau, n_train, n_settings)
+        return _fold_output(xv, self.y_offset + sy_t / n_train, xv @ f.rotations,
+                            f.x_loadings, f.y_loadings, f.tau, n_train)
 
 
 class WideEngine:
@@ -151,17 +203,19 @@ class WideEngine:
 
     def __init__(self, X: np.ndarray, Y: np.ndarray, scale: bool):
         _centre(self, X, Y, scale)
+        self.x0 = X - self.x_mean
         self.sx = self.x0.sum(axis=0)
         self.gram = None if scale else self.x0 @ self.x0.T
 
-    def fold(self, train: np.ndarray, test: np.ndarray, n_settings: int) -> FoldOutput:
-        """Results for held-out ``test`` of the model fitted to ``train`` (index arrays)."""
+    def fold(self, k: int, train: np.ndarray, test: np.ndarray,
+             n_settings: int) -> FoldOutput:
+        """Results for held-out ``test`` (fold ``k``) of the model fitted to ``train``."""
         n_train = train.size
-        xv = self.x0[test]
+        xv = self.x0[rows_of(test)]
         x_mean = (self.sx - xv.sum(axis=0)) / n_train
         if self.scale:
             xt = self.x0[train] - x_mean
-            sd = _fold_scale(np.einsum("ij,ij->j", xt, xt), n_train, True)
+            sd = _fold_scale(np.einsum("ij,ij->j", xt, xt), n_train)
             xt /= sd
             x_val = (xv - x_mean) / sd
             gram_tt = xt @ xt.T
@@ -186,7 +240,7 @@ class WideEngine:
         coef = np.zeros((f.tau.size, x_rows.shape[0]))
         coef[:, rows] = f.scores.T / f.tau[:, None]
         return _fold_output(x_val, self.y_offset + y_mean, gram_vt @ f.rotation_coords,
-                            (coef @ x_rows).T, f.y_loadings, f.tau, n_train, n_settings)
+                            (coef @ x_rows).T, f.y_loadings, f.tau, n_train)
 
 
 @dataclass
@@ -205,11 +259,6 @@ class CVResult:
     predictions : ndarray of shape (n_settings, n, m)
         Cross-validated predictions ŷ.  With repeated splitters each sample is held out once
         per repeat and this is the mean over repeats.
-    errors : ndarray of shape (n_settings, n, m)
-        ``predictions − reference``.
-    squared_errors : ndarray of shape (n_settings, n, m)
-        Mean over repeats of each sample's squared prediction error (equal to ``errors²`` when
-        every sample is held out once).  Used by the selection rules.
     rmsecv : ndarray of shape (n_settings, m)
         Root mean squared error of cross-validation per analyte, ``√(PRESS/n)``; with repeats,
         from the squared errors of every held-out prediction (not of the averaged prediction,
@@ -229,14 +278,20 @@ class CVResult:
     hotelling_t2 : ndarray of shape (n_settings, n) or None
         Hotelling T² of each held-out sample's scores relative to its training fold's scores
         (``Σ_a t_a² / (τ_a/(n_t − 1))``).  None for generic estimators.
+    repeat_squared_errors : ndarray of shape (n_settings, n, m) or None
+        Mean over repeats of each sample's squared error, kept only when some sample was held
+        out more than once (otherwise it is ``errors²``); read it as :attr:`squared_errors`.
+
+    Notes
+    -----
+    :attr:`errors` and :attr:`squared_errors` are computed when read rather than stored, so a
+    result holds one (n_settings, n, m) array instead of three.
     """
 
     settings: tuple
     setting_name: str
     reference: np.ndarray
     predictions: np.ndarray
-    errors: np.ndarray
-    squared_errors: np.ndarray
     rmsecv: np.ndarray
     rmsecv_total: np.ndarray
     fold_mse: np.ndarray
@@ -244,6 +299,24 @@ class CVResult:
     n_held_out: np.ndarray
     q_residuals: np.ndarray | None
     hotelling_t2: np.ndarray | None
+    repeat_squared_errors: np.ndarray | None = None
+
+    @property
+    def errors(self) -> np.ndarray:
+        """``predictions − reference``, shape (n_settings, n, m)."""
+        return self.predictions - self.reference
+
+    @property
+    def squared_errors(self) -> np.ndarray:
+        """Each sample's squared prediction error, shape (n_settings, n, m).
+
+        The mean over repeats when samples were held out several times (not the square of the
+        averaged prediction, which would be optimistic).  Used by the selection rules.
+        """
+        if self.repeat_squared_errors is not None:
+            return self.repeat_squared_errors
+        errors = self.errors
+        return np.square(errors, out=errors)
 
     def to_frame(self, analytes: list[str] | None = None) -> pd.DataFrame:
         """RMSECV table: one row per setting, one column per analyte plus the total.

@@ -26,7 +26,14 @@ from sklearn.model_selection import (
     RepeatedKFold,
 )
 
-from bandsolve._cv_engine import CVResult, FoldOutput, TallEngine, WideEngine
+from bandsolve._cv_engine import (
+    CVResult,
+    FoldOutput,
+    TallEngine,
+    WideEngine,
+    put_path,
+    rows_of,
+)
 from bandsolve._threads import single_blas_thread
 from bandsolve.errors import DataError, ModelError
 from bandsolve.selection import (
@@ -218,42 +225,65 @@ def _splits(cv, X, Y, groups) -> list[tuple[np.ndarray, np.ndarray]]:
     return splits
 
 
+def _held_out_counts(splits, n: int) -> np.ndarray:
+    """How many times each of the n samples is held out."""
+    return np.bincount(np.concatenate([test for _, test in splits]), minlength=n)
+
+
 def _run(splits, Y: np.ndarray, settings: tuple, setting_name: str, fold_fn) -> CVResult:
-    """Accumulate fold outputs; samples held out several times (repeats) are averaged."""
+    """Collect fold outputs into whole-set arrays.
+
+    When every sample is held out exactly once (the usual case) each fold writes its rows
+    directly (through a slice when they are consecutive); samples held out several times
+    (repeats) are averaged.
+    """
     n, m = Y.shape
     n_set = len(settings)
-    sum_pred = np.zeros((n_set, n, m))
-    sum_sq = np.zeros((n_set, n, m))
-    sum_q = np.zeros((n_set, n))
-    sum_t2 = np.zeros((n_set, n))
-    count = np.zeros(n)
-    fold_index = np.full(n, -1)
+    count = _held_out_counts(splits, n)
+    once = bool((count == 1).all())
+    new = np.empty if once else np.zeros
+    predictions = new((n_set, n, m))
+    sum_sq = None if once else np.zeros((n_set, n, m))
+    diag = None
+    press = np.zeros((n_set, m))
     fold_mse = np.empty((n_set, len(splits), m))
-    has_diag = True
+    fold_index = np.full(n, -1)
     for k, (train, test) in enumerate(splits):
-        out = fold_fn(train, test)
-        sq = (out.predictions - Y[test]) ** 2
-        sum_pred[:, test] += out.predictions
-        sum_sq[:, test] += sq
-        fold_mse[:, k] = sq.mean(axis=1)
-        if out.q_residuals is None:
-            has_diag = False
+        out = fold_fn(k, train, test)
+        rows = rows_of(test) if once else test
+        sq = np.subtract(out.predictions, Y[rows])
+        np.square(sq, out=sq)
+        fold_sq = np.empty((n_set, m))
+        put_path(fold_sq, slice(None), sq.sum(axis=1))
+        press += fold_sq
+        fold_mse[:, k] = fold_sq / test.size
+        if diag is None and out.q_residuals is not None:
+            diag = [new((n_set, n)), new((n_set, n))]
+        put_path(predictions, rows, out.predictions, add=not once)
+        if diag is not None:
+            put_path(diag[0], rows, out.q_residuals, add=not once)
+            put_path(diag[1], rows, out.hotelling_t2, add=not once)
+        if once:
+            fold_index[rows] = k
         else:
-            sum_q[:, test] += out.q_residuals
-            sum_t2[:, test] += out.hotelling_t2
-        count[test] += 1
-        first = test[fold_index[test] < 0]
-        fold_index[first] = k
-    predictions = sum_pred / count[:, None]
-    squared_errors = sum_sq / count[:, None]
-    mse = squared_errors.mean(axis=1)
+            put_path(sum_sq, test, sq, add=True)
+            first = test[fold_index[test] < 0]
+            fold_index[first] = k
+    if once:
+        mse = press / n
+    else:
+        predictions /= count[:, None]
+        sum_sq /= count[:, None]
+        mse = sum_sq.mean(axis=1)
+        if diag is not None:
+            diag[0] /= count
+            diag[1] /= count
     return CVResult(
         settings=settings, setting_name=setting_name, reference=Y, predictions=predictions,
-        errors=predictions - Y, squared_errors=squared_errors, rmsecv=np.sqrt(mse),
-        rmsecv_total=np.sqrt(mse.mean(axis=1)), fold_mse=fold_mse, fold_index=fold_index,
-        n_held_out=count.astype(int),
-        q_residuals=sum_q / count if has_diag else None,
-        hotelling_t2=sum_t2 / count if has_diag else None)
+        rmsecv=np.sqrt(mse), rmsecv_total=np.sqrt(mse.mean(axis=1)), fold_mse=fold_mse,
+        fold_index=fold_index, n_held_out=count,
+        q_residuals=None if diag is None else diag[0],
+        hotelling_t2=None if diag is None else diag[1], repeat_squared_errors=sum_sq)
 
 
 def cross_validate_pls(X, Y, max_components: int, cv="blinds:10", scale: bool = False,
@@ -315,9 +345,13 @@ def cross_validate_pls(X, Y, max_components: int, cv="blinds:10", scale: bool = 
     # one-off cross-products are small enough that a second thread gains little and risks the
     # same stalls on a busy machine.
     with single_blas_thread():
-        engine = (TallEngine if tall else WideEngine)(X, Y2, scale)
+        if tall:
+            once = (_held_out_counts(splits, n) == 1).all()
+            engine = TallEngine(X, Y2, scale, [test for _, test in splits] if once else None)
+        else:
+            engine = WideEngine(X, Y2, scale)
         return _run(splits, Y2, settings, "n_components",
-                    lambda train, test: engine.fold(train, test, len(settings)))
+                    lambda k, train, test: engine.fold(k, train, test, len(settings)))
 
 
 def cross_validate_estimator(estimator, X, Y, cv="blinds:10", groups=None) -> CVResult:
@@ -345,7 +379,7 @@ def cross_validate_estimator(estimator, X, Y, cv="blinds:10", groups=None) -> CV
     y_fit = np.asarray(Y, dtype=np.float64)
     splits = _splits(cv, X, Y2, groups)
 
-    def fold(train, test):
+    def fold(k, train, test):
         model = clone(estimator).fit(X[train], y_fit[train])
         pred = np.asarray(model.predict(X[test]), dtype=np.float64).reshape(test.size, -1)
         return FoldOutput(pred[None], None, None)
