@@ -82,6 +82,33 @@ def test_one_pass_curve_equals_brute_force_refits(spec, scale, n, p):
         assert res.settings == (1, 2, 3, 4)
 
 
+@pytest.mark.parametrize("stored_fold_products", [True, False])
+@pytest.mark.parametrize("spec", ["blocks:5", "blinds:5", "random:4x2"])
+def test_tall_engine_paths_equal_brute_force(spec, stored_fold_products, monkeypatch):
+    # X is read in row blocks of 3 (the path of large data sets), with the per-fold
+    # cross-products either stored once or recomputed in every fold; repeats take the
+    # averaging path.  All must equal refits of the reference library.
+    import bandsolve._cv_engine as engine
+
+    monkeypatch.setattr(engine, "_BLOCK_BYTES", 3 * 8 * 5)
+    if not stored_fold_products:
+        monkeypatch.setattr(engine, "_MAX_FOLD_PRODUCTS", 0)
+    rng = np.random.default_rng(9)
+    X, Y = _data(rng, 40, 5, offset=20.0)
+    Y = Y[:, :1]  # one response: the reference's weights are exact (no power iteration)
+    splits = list(make_splitter(spec, random_state=3, n_samples=40).split(X, Y))
+    ref_pred, ref_q, ref_t2 = _brute_force(X, Y, splits, 4, False)
+    res = cross_validate_pls(X, Y, 4, cv=make_splitter(spec, random_state=3), algorithm="kernel")
+    # Reference library: scikit-learn PLSRegression refitted per fold and count.
+    np.testing.assert_allclose(res.predictions, ref_pred, rtol=0, atol=1e-8)
+    np.testing.assert_allclose(res.q_residuals, ref_q, rtol=1e-8, atol=1e-12)
+    np.testing.assert_allclose(res.hotelling_t2, ref_t2, rtol=1e-8, atol=1e-10)
+    # Theory: with every sample held out once, squared errors are the errors squared.
+    if spec != "random:4x2":
+        np.testing.assert_array_equal(res.squared_errors, res.errors**2)
+        assert res.repeat_squared_errors is None
+
+
 @pytest.mark.parametrize("algorithm", ["kernel", "wide"])
 def test_pls2_curve_and_large_offset_equal_brute_force(algorithm):
     rng = np.random.default_rng(8)
