@@ -12,7 +12,8 @@ import pandas as pd
 from bandsolve.errors import DataError, where
 from bandsolve.spectra import SpectralSet
 
-__all__ = ["ConcentrationTable", "split_unit", "align", "group_labels", "groups_in_order"]
+__all__ = ["ConcentrationTable", "split_unit", "align", "group_labels", "groups_in_order",
+           "reference_matrix"]
 
 _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*\[(?P<unit>[^\[\]]*)\]\s*$")
 
@@ -168,6 +169,27 @@ def align(
 def _few(ids: Sequence[str]) -> str:
     shown = ", ".join(repr(s) for s in ids[:5])
     return shown + (f" and {len(ids) - 5} more" if len(ids) > 5 else "")
+
+
+def reference_matrix(table: ConcentrationTable, analytes: Sequence[str]) -> np.ndarray:
+    """The table's concentrations (n × m) in the order of ``analytes`` (exact labels).
+
+    Raises
+    ------
+    DataError
+        When a label has no column, saying which column holds that analyte in another unit.
+    """
+    by_name = {split_unit(a)[0]: a for a in table.analytes}
+    columns = []
+    for label in analytes:
+        if label not in table.analytes:
+            found = by_name.get(split_unit(label)[0])
+            hint = (f"its column is {found!r}: convert to the unit {label!r} needs" if found
+                    else f"add a column {label!r}")
+            raise DataError(f"{table.source or 'the concentration table'} has no column "
+                            f"{label!r}; {hint}")
+        columns.append(table.analytes.index(label))
+    return np.asarray(table.values)[:, columns]
 
 
 def group_labels(table: ConcentrationTable, key: str) -> pd.Series:

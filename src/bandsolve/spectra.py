@@ -274,6 +274,13 @@ class SpectralSet:
             out[i] = np.interp(target, self.axis, row)
         return self._new(axis=target, values=out)
 
+    def on_grid(self, axis: np.ndarray, axis_unit: str) -> SpectralSet:
+        """As absorbance on ``axis`` (in ``axis_unit``): converted and resampled as needed."""
+        out = self.to_absorbance()
+        if out.axis_unit != axis_unit:
+            out = out.convert_axis(axis_unit)
+        return out if out.same_grid(axis) else out.resample(axis)
+
     def same_grid(self, other_axis: np.ndarray, rtol: float = 1e-9) -> bool:
         """True when ``other_axis`` equals this set's axis point for point."""
         other = np.asarray(other_axis, dtype=float)

@@ -15,6 +15,7 @@ import numpy as np
 
 from bandsolve import __version__
 from bandsolve.calibration.detail import LEVERAGE_FACTOR
+from bandsolve.calibration.merit import blank_arrays, merit_from_arrays
 from bandsolve.calibration.model import Calibration
 from bandsolve.calibration.modelfile import sha256_file
 from bandsolve.calibration.records import EstimatorLimits, Limits
@@ -73,7 +74,7 @@ def training_arrays(spectra: SpectralSet, table: ConcentrationTable,
     spectra = spectra.to_absorbance()
     spectra.check_quantity()
     if blank is not None:
-        spectra = spectra.subtract_blank(_on_grid(blank, spectra))
+        spectra = spectra.subtract_blank(blank.on_grid(spectra.axis, spectra.axis_unit))
     spectra, table = align(spectra, table)
     return spectra, np.asarray(table.values)
 
@@ -97,14 +98,6 @@ def _check_residual_noise(est: CLSRegressor, blank_sd: float, source: str | None
             f"({blank_sd:.3g} AU): an absorber or a baseline effect is missing from the "
             "model; add it, try --baseline offset|linear, or compare with PLS "
             "(bandsolve compare)", BandsolveWarning, stacklevel=3)
-
-
-def _on_grid(spectra: SpectralSet, like: SpectralSet) -> SpectralSet:
-    """``spectra`` as absorbance on the axis and unit of ``like``."""
-    spectra = spectra.to_absorbance()
-    if spectra.axis_unit != like.axis_unit:
-        spectra = spectra.convert_axis(like.axis_unit)
-    return spectra if spectra.same_grid(like.axis) else spectra.resample(like.axis)
 
 
 def check_ceiling(spectra: SpectralSet, mask: np.ndarray, ceiling: float) -> None:
@@ -158,9 +151,6 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
     Z = pre.transform(spectra.values)
     est = CLSRegressor(fit_intercept=intercept, baseline=baseline, wavelengths=pre.used_axis,
                        alpha=alpha).fit(Z, C)
-    if blanks is not None:
-        _check_residual_noise(est, float(noise_from_blanks(
-            pre.transform(_on_grid(blanks, spectra).values))), spectra.source)
     settings = {"intercept": intercept, "baseline": baseline, "window": window,
                 "alpha": alpha, "blank_subtracted": blank is not None}
     limits = Limits(LEVERAGE_FACTOR, (EstimatorLimits(
@@ -174,24 +164,30 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
         settings=settings, path_length_cm=spectra.path_length_cm, ceiling=ceiling,
         limits=limits, provenance=provenance_record(provenance, len(C)),
     )
-    return with_merit(cal, spectra, table, blanks)
+    blank_x = blank_arrays(cal, blanks)
+    if blank_x is not None:
+        _check_residual_noise(est, float(noise_from_blanks(pre.transform(blank_x))),
+                              spectra.source)
+    return with_merit(cal, spectra.values, C, blank_x, Z)
 
 
-def with_merit(cal: Calibration, spectra: SpectralSet | None,
-               table: ConcentrationTable | None, blanks: SpectralSet | None) -> Calibration:
-    """The calibration with its figures of merit stored (see :mod:`bandsolve.calibration.merit`).
+def with_merit(cal: Calibration, X: np.ndarray | None, C: np.ndarray | None,
+               blank_x: np.ndarray | None, Z: np.ndarray | None = None) -> Calibration:
+    """The calibration with its figures of merit stored, from the arrays it was built from.
 
-    When the data cannot support them (for example no replicate blanks and no calibration
-    residual degrees of freedom to estimate the noise), the model is still built; the reason
-    is kept in ``provenance["merit_note"]`` and ``merit`` stays None.
+    ``X`` (absorbance on the model grid), ``Z`` (preprocessed) and ``C`` are the builder's own
+    arrays, so nothing is aligned or preprocessed a second time
+    (:func:`bandsolve.calibration.merit.merit_from_arrays`). When the data cannot support the
+    figures (for example no replicate blanks and no residual degrees of freedom to estimate
+    the noise), the model is still built; the reason is kept in
+    ``provenance["merit_note"]`` and ``merit`` stays None.
     """
-    from bandsolve.calibration.merit import attach_merit
-
     try:
-        return attach_merit(cal, spectra, table, blanks=blanks)
+        merit = merit_from_arrays(cal, X, C, blank_x, Z=Z)
     except BandsolveError as exc:
         note = f"figures of merit not computed: {exc}"
         return dataclasses.replace(cal, provenance={**cal.provenance, "merit_note": note})
+    return dataclasses.replace(cal, merit=merit)
 
 
 def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: float, *,
@@ -223,14 +219,14 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
     pre = SpectralPreprocessor(axis=absorptivities.axis, window=window).fit(
         absorptivities.values)
     K = pre.transform(absorptivities.values) * path_length_cm
-    noise = None
+    noise = blank_x = None
     if blanks is None:
         warnings.warn("no replicate blank spectra: the model has no residual limit, so an "
                       "unmodelled absorber will not be flagged; give --blanks", BandsolveWarning,
                       stacklevel=2)
     else:
-        blank_z = pre.transform(_on_grid(blanks, absorptivities).values)
-        noise = float(noise_from_blanks(blank_z))
+        blank_x = blanks.on_grid(absorptivities.axis, absorptivities.axis_unit).values
+        noise = float(noise_from_blanks(pre.transform(blank_x)))
     est = CLSRegressor.from_pure_spectra(K, baseline=baseline, wavelengths=pre.used_axis,
                                          noise_sd=noise)
     m = K.shape[0]
@@ -248,4 +244,4 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
             "chi-squared with p-m-q degrees of freedom, noise from replicate blanks"),)),
         provenance=provenance_record(provenance, 0),
     )
-    return cal if blanks is None else with_merit(cal, None, None, blanks)
+    return cal if blank_x is None else with_merit(cal, None, None, blank_x)

@@ -13,6 +13,7 @@ from bandsolve.calibration.build import (
     with_merit,
 )
 from bandsolve.calibration.detail import LEVERAGE_FACTOR
+from bandsolve.calibration.merit import blank_arrays
 from bandsolve.calibration.model import Calibration
 from bandsolve.calibration.records import ComponentChoice, EstimatorLimits, Limits, Selection
 from bandsolve.concentrations import ConcentrationTable, groups_in_order
@@ -189,4 +190,4 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
         selection=Selection(mode, tuple(evidence)),
         provenance=provenance_record(provenance, len(C)),
     )
-    return with_merit(cal, spectra, table, blanks)
+    return with_merit(cal, spectra.values, C, blank_arrays(cal, blanks), Z)

@@ -34,7 +34,7 @@ import numpy as np
 from sklearn.base import clone
 
 from bandsolve.calibration.model import Calibration
-from bandsolve.concentrations import ConcentrationTable, align, split_unit
+from bandsolve.concentrations import ConcentrationTable, split_unit
 from bandsolve.crossval import cross_validate_estimator
 from bandsolve.errors import DataError, ModelError
 from bandsolve.merit import (
@@ -47,7 +47,8 @@ from bandsolve.merit import (
 )
 from bandsolve.spectra import SpectralSet
 
-__all__ = ["attach_merit", "calibration_merit", "signal_unit"]
+__all__ = ["attach_merit", "blank_arrays", "calibration_merit", "merit_from_arrays",
+           "signal_unit"]
 
 
 def signal_unit(cal: Calibration) -> str:
@@ -59,22 +60,8 @@ def signal_unit(cal: Calibration) -> str:
     return f"AU/{cal.axis_unit}" + ("" if order == 1 else f"^{order}")
 
 
-def _training(cal: Calibration, spectra: SpectralSet,
-              table: ConcentrationTable) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Absorbance on the model grid (X), preprocessed (Z) and concentrations in model order."""
-    spectra, table = align(spectra, table)
-    missing = [a for a in cal.analytes if a not in table.analytes]
-    if missing:
-        raise DataError(
-            f"{table.source or 'the concentration table'} has no column for {', '.join(missing)}"
-            f"; give the table the model was built from (columns {', '.join(cal.analytes)})"
-        )
-    X, _ = cal.prepare(spectra)
-    C = np.asarray(table.values)[:, [table.analytes.index(a) for a in cal.analytes]]
-    return X, cal.preprocessor.transform(X), C
-
-
-def _blank_arrays(cal: Calibration, blanks: SpectralSet | None) -> np.ndarray | None:
+def blank_arrays(cal: Calibration, blanks: SpectralSet | None) -> np.ndarray | None:
+    """Replicate blank absorbance on the model grid (r × p); DataError for fewer than 2."""
     if blanks is None:
         return None
     if blanks.n_samples < 2:
@@ -172,20 +159,45 @@ def calibration_merit(cal: Calibration, spectra: SpectralSet | None,
     multivariate calibration models. Anal. Chem. 70, 5108-5110.
     Haaland, D. M. & Thomas, E. V. (1988). Anal. Chem. 60, 1193-1202.
     """
-    raw_blank = _blank_arrays(cal, blanks)
-    blank_z = None if raw_blank is None else cal.preprocessor.transform(raw_blank)
+    blank_x = blank_arrays(cal, blanks)
+    if spectra is None or table is None:
+        return merit_from_arrays(cal, None, None, blank_x, reference_variance=reference_variance)
+    data = cal.align(spectra, table)
+    return merit_from_arrays(cal, data.X, data.reference, blank_x, cv=cv,
+                             reference_variance=reference_variance)
+
+
+def merit_from_arrays(cal: Calibration, X: np.ndarray | None, C: np.ndarray | None,
+                      blank_x: np.ndarray | None = None, *, Z: np.ndarray | None = None,
+                      cv: Any = None,
+                      reference_variance: float | Sequence[float] | None = None
+                      ) -> FiguresOfMerit:
+    """:func:`calibration_merit` from arrays already on the model: what the builders call.
+
+    Parameters
+    ----------
+    X : ndarray, shape (n, p), or None
+        Calibration absorbance on the model grid (None only for a model from absorptivities).
+    C : ndarray, shape (n, m), or None
+        Their concentrations in the model's analyte order.
+    blank_x : ndarray, shape (r, p), optional
+        Replicate blank absorbance on the model grid.
+    Z : ndarray, shape (n, p'), optional
+        ``X`` after the model's preprocessing, when the caller has it already.
+    """
+    blank_z = None if blank_x is None else cal.preprocessor.transform(blank_x)
     names = [split_unit(a)[0] for a in cal.analytes]
     units = [split_unit(a)[1] or "unit" for a in cal.analytes]
-    if spectra is None or table is None:
+    if X is None or C is None:
         if cal.kind.needs_training(cal.estimators):
             raise DataError("give the calibration spectra and concentrations the model was "
                             "built from")
         signal = _signal(cal, None, None, blank_z, reference_variance)
         return figures_of_merit(signal, names, units, signal_unit=signal_unit(cal))
-    X, Z, C = _training(cal, spectra, table)
+    Z = cal.preprocessor.transform(X) if Z is None else Z
     signal = _signal(cal, Z, C, blank_z, reference_variance)
     mask = cal.used_mask
-    uni_sigma = None if raw_blank is None else noise_from_blanks(raw_blank[:, mask]).sigma
+    uni_sigma = None if blank_x is None else noise_from_blanks(blank_x[:, mask]).sigma
     pure = cal.kind.pure_spectra(cal.estimators)
     if pure is not None and pure.shape[1] != int(mask.sum()):
         pure = None

@@ -25,6 +25,7 @@ from bandsolve._threads import single_blas_thread
 from bandsolve.calibration.detail import Detail
 from bandsolve.calibration.methods import CalibrationMethod, method_named
 from bandsolve.calibration.records import Limits, Selection
+from bandsolve.concentrations import ConcentrationTable, align, reference_matrix
 from bandsolve.errors import DataError, where
 from bandsolve.flags import FLAG_COLUMN, join_flags
 from bandsolve.merit import FiguresOfMerit
@@ -32,7 +33,7 @@ from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
 from bandsolve.transfer import Transfer
 
-__all__ = ["EVAL_ROWS", "INTERVAL_LEVEL", "Calibration", "Detail", "result_columns"]
+__all__ = ["EVAL_ROWS", "INTERVAL_LEVEL", "Aligned", "Calibration", "Detail", "result_columns"]
 
 #: Coverage of the prediction intervals in every results table.
 INTERVAL_LEVEL = 0.95
@@ -79,6 +80,27 @@ def result_columns(analyte: str) -> tuple[str, str, str, str]:
     """Column names for one analyte: estimate (the exact analyte label), SE, interval ends."""
     pct = round(INTERVAL_LEVEL * 100)
     return analyte, f"{analyte} SE", f"{analyte} low{pct}", f"{analyte} high{pct}"
+
+
+@dataclass(frozen=True)
+class Aligned:
+    """Spectra put on a model by :meth:`Calibration.align`.
+
+    Attributes
+    ----------
+    sample_ids : tuple of str
+    X : ndarray, shape (n, p)
+        Absorbance on the model's axis (before preprocessing).
+    reference : ndarray, shape (n, m) or None
+        Known concentrations in the model's analyte order.
+    notes : tuple of str
+        What was done to make the spectra fit (conversion, resampling).
+    """
+
+    sample_ids: tuple[str, ...]
+    X: np.ndarray
+    reference: np.ndarray | None = None
+    notes: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True, eq=False)
@@ -209,6 +231,25 @@ class Calibration:
         X = np.zeros((spectra.n_samples, self.axis.size))
         X[:, mask] = spectra.resample(self.axis[mask]).values
         return X, notes
+
+    def align(self, spectra: SpectralSet, table: ConcentrationTable | None = None) -> Aligned:
+        """Spectra (and their reference concentrations) put on the model.
+
+        Matches ``table`` to the spectra by sample id (in the spectra's order), takes its
+        columns in the model's analyte order and the spectra as absorbance on the model grid
+        (:meth:`prepare`). Every evaluation starts here.
+
+        Raises
+        ------
+        DataError
+            Unmatched ids, a missing analyte column, or spectra the model cannot take.
+        """
+        reference = None
+        if table is not None:
+            spectra, table = align(spectra, table)
+            reference = reference_matrix(table, self.analytes)
+        X, notes = self.prepare(spectra)
+        return Aligned(tuple(spectra.sample_ids), X, reference, tuple(notes))
 
     # ------------------------------------------------------------------ prediction
     def predict(self, spectra: SpectralSet) -> pd.DataFrame:

@@ -22,7 +22,6 @@ import numpy as np
 from bandsolve.calibration.model import Calibration
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.errors import DataError
-from bandsolve.evaluate.assess import reference_values
 from bandsolve.spectra import SpectralSet
 from bandsolve.transfer import (
     DEFAULT_HALF_WINDOW,
@@ -119,7 +118,7 @@ def transfer_calibration(model: Calibration, original: SpectralSet, new: Spectra
     X1, _ = model.prepare(original)
     X2 = model.prepare(new)[0][order]
     if reference is not None:
-        Y = reference_values(model, original, reference)
+        Y = model.align(original, reference).reference
         basis = "reference values of the transfer samples"
     else:
         Y = model.detail(X1).concentrations

@@ -16,19 +16,18 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
-import numpy as np
 import pandas as pd
 from scipy import stats
 
 from bandsolve.calibration.model import Calibration
-from bandsolve.concentrations import ConcentrationTable, align, split_unit
-from bandsolve.errors import BandsolveWarning, DataError
+from bandsolve.concentrations import ConcentrationTable, split_unit
+from bandsolve.errors import BandsolveWarning
 from bandsolve.flags import FLAG_COLUMN, split_flags
 from bandsolve.merit import RegressionStatistics, regression_statistics
 from bandsolve.spectra import SpectralSet
 
 __all__ = ["AnalyteAssessment", "Assessment", "SpectraFiles", "assess", "calibration_files",
-           "read_spectra_files", "reference_values"]
+           "read_spectra_files"]
 
 #: Why figures computed on the calibration samples themselves prove little.
 NOT_INDEPENDENT = "RMSEP on them is not an independent validation"
@@ -227,30 +226,6 @@ def _stored_rmsecv(cal: Calibration) -> list[float | None]:
     return values if len(values) == cal.n_analytes else [None] * cal.n_analytes
 
 
-def reference_values(cal: Calibration, spectra: SpectralSet,
-                     table: ConcentrationTable) -> np.ndarray:
-    """Reference concentrations (n × m) in the spectra's order and the model's analyte order.
-
-    Raises
-    ------
-    DataError
-        When ids do not match or the table lacks a column of the model (naming it).
-    """
-    spectra, table = align(spectra, table)
-    by_name = {split_unit(a)[0]: a for a in table.analytes}
-    columns = []
-    for label in cal.analytes:
-        if label in table.analytes:
-            columns.append(table.analytes.index(label))
-            continue
-        found = by_name.get(split_unit(label)[0])
-        hint = (f"its column is {found!r}: convert to the model's unit" if found
-                else f"add a column {label!r}")
-        raise DataError(f"{table.source or 'the reference table'} has no column {label!r} "
-                        f"for the model's analyte; {hint}")
-    return np.asarray(table.values)[:, columns]
-
-
 def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
            alpha: float = 0.05, files: Sequence[str] = ()) -> Assessment:
     """Predict an independent test set and compare with its reference concentrations.
@@ -281,7 +256,7 @@ def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
     calibration. Pure Appl. Chem. 78, 633-661.
     ICH Q2(R2) (2023). Validation of analytical procedures (accuracy on an independent set).
     """
-    reference = reference_values(cal, spectra, table)
+    reference = cal.align(spectra, table).reference
     predicted = cal.predict(spectra)
     n = len(predicted)
     n_cal = int(cal.provenance.get("n_calibration_samples") or 0)

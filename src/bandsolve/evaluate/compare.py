@@ -25,7 +25,12 @@ from sklearn.model_selection import check_cv
 
 from bandsolve.calibration.build import training_arrays
 from bandsolve.cls import BASELINE_TERMS, CLSRegressor
-from bandsolve.concentrations import ConcentrationTable, groups_in_order
+from bandsolve.concentrations import (
+    ConcentrationTable,
+    align,
+    groups_in_order,
+    reference_matrix,
+)
 from bandsolve.crossval import (
     cross_validate_estimator,
     cross_validate_pls,
@@ -187,17 +192,9 @@ class Comparison:
 
 def _test_arrays(spectra: SpectralSet, test_spectra: SpectralSet,
                  test_table: ConcentrationTable, analytes: tuple[str, ...]) -> tuple:
-    test, c_test = training_arrays(test_spectra, test_table)
-    if test.axis_unit != spectra.axis_unit:
-        test = test.convert_axis(spectra.axis_unit)
-    if not test.same_grid(spectra.axis):
-        test = test.resample(spectra.axis)
-    missing = [a for a in analytes if a not in test_table.analytes]
-    if missing:
-        raise DataError(f"{test_table.source or 'the test concentrations'} lack the column(s) "
-                        f"{', '.join(missing)}; use the calibration table's labels")
-    cols = [test_table.analytes.index(a) for a in analytes]
-    return test.values, c_test[:, cols]
+    test, table = align(test_spectra, test_table)
+    return (test.on_grid(spectra.axis, spectra.axis_unit).values,
+            reference_matrix(table, analytes))
 
 
 def _cls_cv_residual_ss(est: CLSRegressor, Z: np.ndarray, C: np.ndarray,

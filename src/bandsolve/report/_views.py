@@ -13,8 +13,7 @@ import pandas as pd
 from matplotlib.figure import Figure
 
 from bandsolve.calibration.model import Calibration, result_columns
-from bandsolve.concentrations import ConcentrationTable, align, split_unit
-from bandsolve.errors import DataError, where
+from bandsolve.concentrations import ConcentrationTable, split_unit
 from bandsolve.flags import FLAG_COLUMN, split_flags
 from bandsolve.merit import FiguresOfMerit
 from bandsolve.report import figures as F
@@ -59,18 +58,8 @@ class ReportFigure:
 def sample_set(cal: Calibration, name: str, spectra: SpectralSet,
                table: ConcentrationTable | None = None) -> SampleSet:
     """Put spectra (and, matched by sample id, their concentrations) onto the model grid."""
-    reference = None
-    if table is not None:
-        spectra, table = align(spectra, table)
-        missing = [a for a in cal.analytes if a not in table.analytes]
-        if missing:
-            raise DataError(f"{where(table.source)}no column for {', '.join(missing)}; the "
-                            f"table needs the model's analyte labels exactly "
-                            f"({', '.join(cal.analytes)})")
-        cols = [table.analytes.index(a) for a in cal.analytes]
-        reference = np.asarray(table.values)[:, cols]
-    X, _ = cal.prepare(spectra)
-    return SampleSet(name, tuple(spectra.sample_ids), X, reference)
+    data = cal.align(spectra, table)
+    return SampleSet(name, data.sample_ids, data.X, data.reference)
 
 
 def _unit_label(cal: Calibration) -> str:
