@@ -50,3 +50,20 @@ def test_flag_column_is_reachable_as_a_dataframe_attribute(three_bands):
     results = model.predict(SpectralSet(axis, X[:2], ids[:2]))
     assert list(results.flag_codes) == list(results[FLAG_COLUMN])
     assert "flags" not in results.columns
+
+
+def test_flag_bits_follow_the_flag_codes():
+    # One bit per code, 1 << its place in FLAG_CODES; the values 0.1.0 wrote into flag maps
+    # (its batch.images table: residual 1, t2 2, leverage 4, ceiling 8, above_range 16,
+    # below_range 32, negative 64, no_se 128) keep their meaning.
+    import numpy as np
+
+    from bandsolve.flags import FLAG_BITS, flag_bits
+
+    assert list(FLAG_BITS) == list(FLAG_CODES)
+    assert sorted(FLAG_BITS.values()) == [2**i for i in range(len(FLAG_CODES))]
+    assert FLAG_BITS == {"residual": 1, "t2": 2, "leverage": 4, "ceiling": 8,
+                         "above_range": 16, "below_range": 32, "negative": 64, "no_se": 128}
+    got = flag_bits(["", "residual", "t2;above_range:dye A;negative:dye B", "no_se"])
+    np.testing.assert_array_equal(got, [0, 1, 2 + 16 + 64, 128])
+    assert got.dtype == np.uint16 and max(FLAG_BITS.values()) < 2**16

@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from bandsolve.batch.images import FLAG_BITS, predict_cube
+from bandsolve.batch.images import predict_cube
 from bandsolve.batch.predict import EVAL_ROWS, predict_inputs
 from bandsolve.batch.writers import format_for
 from bandsolve.calibration.build import build_cls
@@ -18,6 +18,7 @@ from bandsolve.calibration.modelfile import save_model
 from bandsolve.cli import main
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.errors import FormatError
+from bandsolve.flags import FLAG_BITS
 from bandsolve.io import write_spectra_csv
 from bandsolve.spectra import SpectralSet
 

@@ -11,14 +11,18 @@ from __future__ import annotations
 
 from collections.abc import Iterable
 
-__all__ = ["FLAG_CODES", "FLAG_COLUMN", "SEPARATOR", "join_flags", "split_flags"]
+import numpy as np
+
+__all__ = ["FLAG_BITS", "FLAG_CODES", "FLAG_COLUMN", "SEPARATOR", "flag_bits", "join_flags",
+           "split_flags"]
 
 SEPARATOR = ";"
 
 #: Name of the flag column in every results table (CSV header and DataFrame column).
 FLAG_COLUMN = "flag_codes"
 
-#: Every flag code and what it means for the result, in the chemist's terms.
+#: Every flag code and what it means for the result, in the chemist's terms, in the order the
+#: checks run (the order of codes in the column).
 FLAG_CODES: dict[str, str] = {
     "residual": (
         "The spectrum is not explained by the model (spectral residual or Q above its limit): "
@@ -33,6 +37,10 @@ FLAG_CODES: dict[str, str] = {
         "Leverage above its limit: the sample is far from the calibration centre and has a "
         "strong influence on its own prediction (extrapolation)."
     ),
+    "ceiling": (
+        "Absorbance above the photometric ceiling somewhere in the used range: the "
+        "instrument response may be non-linear there. Dilute and measure again."
+    ),
     "above_range": (
         "The concentration is above the highest calibrated value for that analyte by more "
         "than 2 standard errors (extrapolation)."
@@ -45,15 +53,27 @@ FLAG_CODES: dict[str, str] = {
         "The concentration is significantly below zero (more than 2 standard errors), "
         "which no real sample can have: check the blank, baseline or model."
     ),
-    "ceiling": (
-        "Absorbance above the photometric ceiling somewhere in the used range: the "
-        "instrument response may be non-linear there. Dilute and measure again."
-    ),
     "no_se": (
         "No standard error could be estimated (no residual degrees of freedom); the "
         "notes column says why."
     ),
 }
+
+
+#: Bit of each code in flag maps (``batch.images``, Dask output): 1 << its place in
+#: :data:`FLAG_CODES`; a pixel's value is the sum of its codes' bits. Codes are only ever added
+#: at the end, so the bits of files already written keep their meaning.
+FLAG_BITS: dict[str, int] = {code: 1 << i for i, code in enumerate(FLAG_CODES)}
+
+
+def flag_bits(texts: Iterable[str]) -> np.ndarray:
+    """Bit masks (uint16) of flag column texts, per :data:`FLAG_BITS`."""
+    texts = list(texts)
+    out = np.zeros(len(texts), dtype=np.uint16)
+    for i, text in enumerate(texts):
+        for code in split_flags(text):
+            out[i] |= FLAG_BITS.get(code.split(":", 1)[0], 0)
+    return out
 
 
 def join_flags(codes: Iterable[str]) -> str:

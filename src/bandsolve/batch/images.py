@@ -8,15 +8,15 @@ another axis covering the model's range is resampled like any spectra.
 
 Output, in the output folder: ``<stem>.<analyte>.npy`` (rows × cols float64) per analyte
 (the analyte label made file-safe) and ``<stem>.flags.npy`` (rows × cols uint16), a bit mask
-with the bits of :data:`FLAG_BITS`. Pixels go through the same chunked, parallel path as
-batch prediction (:mod:`bandsolve.batch.predict`), so the numbers equal those of the table.
+with the bits of :data:`bandsolve.flags.FLAG_BITS`. Pixels go through the same chunked,
+parallel path as batch prediction (:mod:`bandsolve.batch.predict`), so the numbers equal
+those of the table.
 """
 
 from __future__ import annotations
 
 import os
 import re
-from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -25,15 +25,10 @@ import numpy as np
 from bandsolve.batch.predict import DEFAULT_CHUNK, iter_array_sets, predict_sets
 from bandsolve.calibration.model import Calibration
 from bandsolve.errors import DataError, FormatError
-from bandsolve.flags import FLAG_COLUMN
+from bandsolve.flags import FLAG_COLUMN, flag_bits
 from bandsolve.io.atomic import atomic_write
 
-__all__ = ["FLAG_BITS", "CubeResult", "predict_cube", "flag_bits"]
-
-#: Bit of each flag family in the flag map (a pixel's value is the sum of its bits).
-FLAG_BITS = {"residual": 1, "t2": 2, "leverage": 4, "ceiling": 8, "above_range": 16,
-             "below_range": 32, "negative": 64, "no_se": 128}
-
+__all__ = ["CubeResult", "predict_cube"]
 
 @dataclass(frozen=True)
 class CubeResult:
@@ -54,17 +49,6 @@ class CubeResult:
     flag_map: Path
     shape: tuple[int, int]
     notes: str
-
-
-def flag_bits(flags: Sequence[str]) -> np.ndarray:
-    """Bit masks (uint16) of ``;``-joined flag strings, per :data:`FLAG_BITS`."""
-    from bandsolve.flags import split_flags
-
-    out = np.zeros(len(flags), dtype=np.uint16)
-    for i, text in enumerate(flags):
-        for code in split_flags(text):
-            out[i] |= FLAG_BITS.get(code.split(":", 1)[0], 0)
-    return out
 
 
 def _axis_for(model: Calibration, path: Path, p: int, axis) -> tuple[np.ndarray, str]:

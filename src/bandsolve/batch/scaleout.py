@@ -19,11 +19,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from bandsolve.batch.images import flag_bits
 from bandsolve.batch.predict import EVAL_ROWS, evaluate_set, result_table_columns
 from bandsolve.calibration.model import Calibration
 from bandsolve.errors import BandsolveError, DataError
-from bandsolve.flags import FLAG_COLUMN
+from bandsolve.flags import FLAG_COLUMN, flag_bits
 from bandsolve.spectra import SpectralSet
 
 __all__ = ["numeric_columns", "predict_dask"]
@@ -35,7 +34,7 @@ def numeric_columns(model: Calibration) -> list[str]:
     """Columns of the array :func:`predict_dask` returns for a Dask array, in order.
 
     The result-table columns that are numbers, then ``flag_bits`` (the flag bit mask of
-    :data:`bandsolve.batch.images.FLAG_BITS`, as a float).
+    :data:`bandsolve.flags.FLAG_BITS`, as a float).
     """
     return [c for c in result_table_columns(model) if c not in _TEXT] + ["flag_bits"]
 
