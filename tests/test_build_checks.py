@@ -143,7 +143,7 @@ def test_nan_in_a_spectrum_is_a_clear_error():
     from bandsolve.calibration.build_pls import build_pls
 
     model = build_pls(spectra, ConcentrationTable(spectra.sample_ids, ["a", "b", "c"], C),
-                      components=3, cv="blinds:5")
+                      components=3, cv="interleaved:5")
     X = spectra.values[:2].copy()
     X[1, 10] = np.nan
     with pytest.raises(Exception, match="NaN or infinite"):

@@ -148,10 +148,10 @@ def test_command_line(tmp_path, capsys):
     parser = argparse.ArgumentParser()
     compare_cmd.register(parser.add_subparsers())
     args = parser.parse_args(["compare", "--spectra", str(tmp_path / "s.csv"),
-                              "--concentrations", str(tmp_path / "c.csv"), "--cv", "blinds:8",
+                              "--concentrations", str(tmp_path / "c.csv"), "--cv", "interleaved:8",
                               "--json"])
     assert args.func(args) == 0
     printed = json.loads(capsys.readouterr().out)
-    expected = compare_methods(spectra, table, cv="blinds:8").to_dict()
+    expected = compare_methods(spectra, table, cv="interleaved:8").to_dict()
     assert printed["overall"] == expected["overall"]
     assert printed["methods"][0]["rmsecv"] == pytest.approx(expected["methods"][0]["rmsecv"])

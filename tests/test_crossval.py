@@ -23,7 +23,7 @@ from bandsolve.crossval import (
 from bandsolve.errors import DataError, ModelError
 from bandsolve.pls import PLSRegressor
 
-SPECS = ["blocks:4", "blinds:4", "random:4", "random:3x2", "loo", "groups"]
+SPECS = ["contiguous:4", "interleaved:4", "random:4", "random:3x2", "loo", "groups"]
 
 
 def _bands(p: int, centres=(0.3, 0.5, 0.7), width: float = 0.12) -> np.ndarray:
@@ -126,7 +126,7 @@ def test_held_out_sample_never_influences_its_fold_mates(algorithm):
     rng = np.random.default_rng(9)
     X, Y = _data(rng, 25, 12)
     y = Y[:, 0]
-    cv = make_splitter("blocks:5")
+    cv = make_splitter("contiguous:5")
     base = cross_validate_pls(X, y, 3, cv=cv, algorithm=algorithm)
     i = 7  # fold 1 holds samples 5..9
     X2, y2 = X.copy(), y.copy()
@@ -150,11 +150,11 @@ def test_held_out_sample_never_influences_its_fold_mates(algorithm):
 
 def test_splitters_follow_their_definitions():
     X = np.zeros((11, 2))
-    blinds = list(make_splitter("blinds:3").split(X))
+    blinds = list(make_splitter("interleaved:3").split(X))
     # Venetian blinds (common practice): sample i is held out in fold i mod k.
     for k, (_, test) in enumerate(blinds):
         np.testing.assert_array_equal(test, np.arange(k, 11, 3))
-    blocks = [test for _, test in make_splitter("blocks:3").split(X)]
+    blocks = [test for _, test in make_splitter("contiguous:3").split(X)]
     # Contiguous blocks: same partition as numpy.array_split (reference library).
     for got, want in zip(blocks, np.array_split(np.arange(11), 3), strict=True):
         np.testing.assert_array_equal(got, want)
@@ -172,10 +172,10 @@ def test_splitters_follow_their_definitions():
 @pytest.mark.parametrize(("spec", "kwargs", "message"), [
     ("blinds", {}, "not understood"),
     ("folds:3", {}, "not understood"),
-    ("blinds:1", {}, "at least 2"),
+    ("interleaved:1", {}, "at least 2"),
     ("random:3x0", {}, "at least 1"),
-    ("blocks:3x2", {}, "only 'random:KxR'"),
-    ("blocks:50", {"n_samples": 10}, "only 10 samples"),
+    ("contiguous:3x2", {}, "only 'random:KxR'"),
+    ("contiguous:50", {"n_samples": 10}, "only 10 samples"),
     ("groups", {}, "needs a group label"),
     ("groups:4", {"groups": [1, 1, 2, 2, 3]}, "only 3 groups"),
 ])
@@ -184,10 +184,17 @@ def test_bad_specs_raise_model_error(spec, kwargs, message):
         make_splitter(spec, **kwargs)
 
 
+@pytest.mark.parametrize(("old", "new"), [("blocks:5", "contiguous:5"),
+                                          ("blinds:10", "interleaved:10")])
+def test_old_spellings_are_refused_with_the_new_name(old, new):
+    with pytest.raises(ModelError, match=f"now written '{new}'"):
+        make_splitter(old)
+
+
 def test_bad_inputs_raise_clear_errors():
     X, Y = _data(np.random.default_rng(0), 10, 5)
     with pytest.raises(ModelError, match="only 10 samples"):
-        cross_validate_pls(X, Y, 2, cv="blinds:12")
+        cross_validate_pls(X, Y, 2, cv="interleaved:12")
     with pytest.raises(ModelError, match="cannot split"):
         cross_validate_pls(X, Y, 2, cv=KFold(12))
     with pytest.raises(DataError, match="one row of concentrations"):
@@ -203,7 +210,7 @@ def test_bad_inputs_raise_clear_errors():
 def test_estimator_cv_and_result_fields_match_sklearn():
     rng = np.random.default_rng(10)
     X, Y = _data(rng, 30, 8)
-    res = cross_validate_estimator(LinearRegression(), X, Y, cv="blocks:5")
+    res = cross_validate_estimator(LinearRegression(), X, Y, cv="contiguous:5")
     ref = cross_val_predict(LinearRegression(), X, Y, cv=KFold(5))
     # Reference library: scikit-learn cross_val_predict with the same folds.
     np.testing.assert_allclose(res.predictions[0], ref, atol=1e-10)
@@ -298,8 +305,8 @@ def test_selection_rules_on_a_known_curve():
 def test_selection_pooling_ignores_concentration_units():
     rng = np.random.default_rng(17)
     X, Y = _data(rng, 30, 20)
-    res = cross_validate_pls(X, Y, 6, cv="blinds:5")
-    res_mg = cross_validate_pls(X, Y * [1.0, 1000.0], 6, cv="blinds:5")
+    res = cross_validate_pls(X, Y, 6, cv="interleaved:5")
+    res_mg = cross_validate_pls(X, Y * [1.0, 1000.0], 6, cv="interleaved:5")
     for rule in ("min", "one-se", "randomization"):
         # Theory: dividing by each analyte's variance makes the pooled loss unit-free.
         assert (select_components(res, rule).n_components
@@ -321,7 +328,7 @@ def test_cv_chosen_pls_reaches_the_noise_limited_bound():
     # from memory).
     bound = sigma * np.sqrt(np.diag(np.linalg.inv(K @ K.T)))
     for j in range(3):
-        res = cross_validate_pls(X_cal, C_cal[:, j], 8, cv="blinds:8")
+        res = cross_validate_pls(X_cal, C_cal[:, j], 8, cv="interleaved:8")
         chosen = select_components(res, rule="randomization").n_components
         model = PLSRegressor(chosen).fit(X_cal, C_cal[:, j])
         rmsep = np.sqrt(np.mean((model.predict(X_test) - C_test[:, j]) ** 2))

@@ -49,8 +49,8 @@ def _models():
     return {
         "cls": build_cls(spectra, table, intercept=True, baseline="offset"),
         "cls_absorptivities": build_cls_from_absorptivities(absorptivities, 1.0),
-        "pls2": build_pls(spectra, table, cv="blocks:4", max_components=5),
-        "pls1": build_pls(spectra, table, cv="blocks:4", max_components=5, mode="pls1"),
+        "pls2": build_pls(spectra, table, cv="contiguous:4", max_components=5),
+        "pls1": build_pls(spectra, table, cv="contiguous:4", max_components=5, mode="pls1"),
     }
 
 

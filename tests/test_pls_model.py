@@ -29,7 +29,8 @@ def calibration():
     rng = np.random.default_rng(42)
     C, A = _simulate(rng, K, 40)
     ids = [f"cal{i}" for i in range(40)]
-    cal = build_pls(SpectralSet(axis, A, ids), ConcentrationTable(ids, LABELS, C), cv="blinds:8")
+    cal = build_pls(SpectralSet(axis, A, ids), ConcentrationTable(ids, LABELS, C),
+                    cv="interleaved:8")
     return axis, K, rng, cal
 
 
@@ -71,7 +72,7 @@ def test_faber_bro_intervals_cover_truth(calibration):
         C, A = _simulate(rng, K, 40)
         ids = [f"cal{i}" for i in range(40)]
         cal = build_pls(SpectralSet(axis, A, ids), ConcentrationTable(ids, LABELS, C),
-                        components=3, cv="blinds:5")
+                        components=3, cv="interleaved:5")
         Ct, At = _simulate(rng, K, 100, low=0.1, high=0.9)
         res = cal.predict(SpectralSet(axis, At, [f"u{rep}-{i}" for i in range(100)]))
         for k, lab in enumerate(LABELS):
@@ -130,7 +131,7 @@ def test_q_limit_false_alarm_rate(n, p, method, low, high):
         C, A = _simulate(rng, K, n)
         ids = [f"c{i}" for i in range(n)]
         cal = build_pls(SpectralSet(axis, A, ids), ConcentrationTable(ids, LABELS, C),
-                        components=3, cv="blinds:8", q_limit=method, limit_alpha=0.05)
+                        components=3, cv="interleaved:8", q_limit=method, limit_alpha=0.05)
         _, At = _simulate(rng, K, 1500)
         res = cal.predict(SpectralSet(axis, At, [f"u{i}" for i in range(1500)]))
         rates.append((res["residual_ratio"] > 1).mean())

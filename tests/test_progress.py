@@ -36,7 +36,7 @@ def test_compare_reports_each_stage():
     calls = []
     compare_methods(read_spectra(demo / "calibration_spectra.csv"),
                     read_concentrations(demo / "calibration_concentrations.csv"),
-                    cv="blinds:5", max_components=6, n_permutations=99,
+                    cv="interleaved:5", max_components=6, n_permutations=99,
                     progress=lambda done, total, label: calls.append((done, total)))
     # Two CLS variants, PLS, the tests and the evidence: five stages, counted in order.
     assert calls == [(i, 5) for i in range(1, 6)]

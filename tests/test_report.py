@@ -68,7 +68,7 @@ def demo(tmp_path_factory):
         "files": files,
     }
     data["cls"] = build_cls(*data["cal"], provenance={"data_label": DEMO_LABEL})
-    data["pls"] = build_pls(*data["cal"], cv="blinds:5", max_components=6)
+    data["pls"] = build_pls(*data["cal"], cv="interleaved:5", max_components=6)
     data["batch"] = predict_inputs(data["cls"], [str(p) for p in files.routine])
     return data
 

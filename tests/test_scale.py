@@ -38,7 +38,7 @@ def models():
     cal, C = _spectra(30, 1)
     table = ConcentrationTable(cal.sample_ids, LABELS, C)
     return {"cls": build_cls(cal, table),
-            "pls": build_pls(cal, table, cv="blocks:5", max_components=5)}
+            "pls": build_pls(cal, table, cv="contiguous:5", max_components=5)}
 
 
 @pytest.fixture(scope="module")

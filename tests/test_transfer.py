@@ -128,7 +128,7 @@ def _scenario(kind: str, new: Instrument, random_state: int):
             return build_cls(spectra(A, "c"), table(C, "c"), baseline="offset")
         # The same count for both models (3 analytes + the day-to-day baseline), so the
         # comparison measures the transfer and not a different cross-validated choice.
-        return build_pls(spectra(A, "c"), table(C, "c"), components=4, cv="blinds:5",
+        return build_pls(spectra(A, "c"), table(C, "c"), components=4, cv="interleaved:5",
                          max_components=6)
 
     A1 = Instrument().measure(C, rng)

@@ -106,7 +106,7 @@ def test_noise_from_residuals_is_labelled_and_close_to_the_truth():
 def test_pls_figures_match_scikit_learn():
     rng = np.random.default_rng(4)
     spectra, table, blanks = _sets(rng)
-    cal = build_pls(spectra, table, cv="blinds:10")
+    cal = build_pls(spectra, table, cv="interleaved:10")
     a = cal.selection.models[0].n_components
     assert a == 3  # three independent absorbers (theory)
     X, C = spectra.values, DESIGN

@@ -48,7 +48,7 @@ __all__ = [
     "ComponentSelection",
     "GroupSplitter",
     "RandomizationResult",
-    "VenetianBlinds",
+    "InterleavedFolds",
     "cross_validate_estimator",
     "cross_validate_pls",
     "make_splitter",
@@ -57,7 +57,7 @@ __all__ = [
 ]
 
 
-class VenetianBlinds(BaseCrossValidator):
+class InterleavedFolds(BaseCrossValidator):
     """Interleaved folds: sample i is held out in fold ``i mod n_splits``.
 
     Parameters
@@ -72,7 +72,7 @@ class VenetianBlinds(BaseCrossValidator):
     def _iter_test_indices(self, X=None, y=None, groups=None) -> Iterator[np.ndarray]:
         n = len(X)
         if not 2 <= self.n_splits <= n:
-            raise ValueError(f"venetian blinds need 2 <= n_splits <= n_samples={n}, got "
+            raise ValueError(f"interleaved folds need 2 <= n_splits <= n_samples={n}, got "
                              f"n_splits={self.n_splits}")
         for k in range(self.n_splits):
             yield np.arange(k, n, self.n_splits)
@@ -116,7 +116,11 @@ class GroupSplitter(BaseCrossValidator):
             yield test
 
 
-_SPEC = re.compile(r"^(blocks|blinds|random|groups):(\d+)(?:x(\d+))?$|^(loo|groups)$")
+_SPEC = re.compile(
+    r"^(contiguous|interleaved|random|groups):(\d+)(?:x(\d+))?$|^(loo|groups)$")
+
+#: Spellings of earlier versions, refused with the name that replaced them.
+_RENAMED = {"blocks": "contiguous", "blinds": "interleaved"}
 
 
 def make_splitter(spec: str, groups=None, random_state: int = 0,
@@ -126,7 +130,8 @@ def make_splitter(spec: str, groups=None, random_state: int = 0,
     Parameters
     ----------
     spec : str
-        ``"blocks:K"`` (K contiguous blocks), ``"blinds:K"`` (venetian blinds),
+        ``"contiguous:K"`` (K folds of consecutive samples), ``"interleaved:K"`` (sample i in
+        fold i mod K),
         ``"random:K"`` (shuffled K-fold), ``"random:KxR"`` (K-fold repeated R times with new
         shuffles), ``"loo"`` (leave one out), ``"groups"`` (leave one group out) or
         ``"groups:K"`` (K folds of whole groups).
@@ -148,10 +153,15 @@ def make_splitter(spec: str, groups=None, random_state: int = 0,
         For an unknown spec, K < 2, R < 1, K > n_samples, or a ``groups`` spec without groups.
     """
     match = _SPEC.match(spec.strip().lower()) if isinstance(spec, str) else None
+    old, colon, _ = spec.strip().lower().partition(":") if isinstance(spec, str) else ("", "", "")
+    if match is None and colon and old in _RENAMED:
+        new = spec.strip().lower().replace(old, _RENAMED[old], 1)
+        raise ModelError(f"cross-validation spec {spec!r} is now written {new!r} ('{old}' was "
+                         f"renamed '{_RENAMED[old]}', which says what the folds are).")
     if match is None:
         raise ModelError(f"cross-validation spec {spec!r} is not understood; use one of "
-                         "'blocks:K', 'blinds:K', 'random:K', 'random:KxR', 'loo', 'groups' "
-                         "or 'groups:K' (for example 'blinds:10').")
+                         "'contiguous:K', 'interleaved:K', 'random:K', 'random:KxR', 'loo', "
+                         "'groups' or 'groups:K' (for example 'interleaved:10').")
     kind = match.group(1) or match.group(4)
     k = int(match.group(2)) if match.group(2) else None
     repeats = int(match.group(3)) if match.group(3) else None
@@ -170,7 +180,7 @@ def make_splitter(spec: str, groups=None, random_state: int = 0,
         if groups is None:
             raise ModelError(f"cross-validation spec {spec!r} needs a group label for every "
                              "spectrum (e.g. a sample-id column); supply groups or use "
-                             "'blinds:K'.")
+                             "'interleaved:K'.")
         n_groups = np.unique(np.asarray(groups)).size
         if k is not None and k > n_groups:
             raise ModelError(f"cross-validation spec {spec!r} asks for {k} folds but there "
@@ -178,10 +188,10 @@ def make_splitter(spec: str, groups=None, random_state: int = 0,
         return GroupSplitter(groups, k)
     if kind == "loo":
         return LeaveOneOut()
-    if kind == "blocks":
+    if kind == "contiguous":
         return KFold(k)
-    if kind == "blinds":
-        return VenetianBlinds(k)
+    if kind == "interleaved":
+        return InterleavedFolds(k)
     if repeats is not None:
         return RepeatedKFold(n_splits=k, n_repeats=repeats, random_state=random_state)
     return KFold(k, shuffle=True, random_state=random_state)
@@ -286,7 +296,7 @@ def _run(splits, Y: np.ndarray, settings: tuple, setting_name: str, fold_fn) -> 
         hotelling_t2=None if diag is None else diag[1], repeat_squared_errors=sum_sq)
 
 
-def cross_validate_pls(X, Y, max_components: int, cv="blinds:10", scale: bool = False,
+def cross_validate_pls(X, Y, max_components: int, cv="interleaved:10", scale: bool = False,
                        algorithm: str = "auto", groups=None) -> CVResult:
     """Cross-validate PLS for every component count 1..``max_components`` in one pass.
 
@@ -305,7 +315,7 @@ def cross_validate_pls(X, Y, max_components: int, cv="blinds:10", scale: bool = 
     max_components : int
         Largest component count A_max.  Counts beyond the rank of a training fold repeat the
         last model that could be fitted.
-    cv : str or splitter, default="blinds:10"
+    cv : str or splitter, default="interleaved:10"
         A :func:`make_splitter` spec or any scikit-learn splitter.
     scale : bool, default=False
         Autoscale X columns with each training fold's SD (ddof=1).
@@ -354,7 +364,7 @@ def cross_validate_pls(X, Y, max_components: int, cv="blinds:10", scale: bool = 
                     lambda k, train, test: engine.fold(k, train, test, len(settings)))
 
 
-def cross_validate_estimator(estimator, X, Y, cv="blinds:10", groups=None) -> CVResult:
+def cross_validate_estimator(estimator, X, Y, cv="interleaved:10", groups=None) -> CVResult:
     """Cross-validate any scikit-learn regressor (one setting; cloned and refitted per fold).
 
     Parameters
@@ -365,7 +375,7 @@ def cross_validate_estimator(estimator, X, Y, cv="blinds:10", groups=None) -> CV
         Spectra.
     Y : array-like of shape (n,) or (n, m)
         Reference concentrations; passed to ``fit`` with the given dimensionality.
-    cv : str or splitter, default="blinds:10"
+    cv : str or splitter, default="interleaved:10"
         A :func:`make_splitter` spec or any scikit-learn splitter.
     groups : array-like of shape (n,), optional
         Group labels passed to the splitter's ``split``.

@@ -49,7 +49,7 @@ def models(axis, pure, rng):
     spectra = SpectralSet(axis=axis, values=X, sample_ids=ids)
     table = ConcentrationTable(ids, ("a", "b", "c", "d"), C)
     return {"CLS": build_cls(spectra, table),
-            "PLS2": build_pls(spectra, table, components=4, cv="blocks:5", max_components=6)}
+            "PLS2": build_pls(spectra, table, components=4, cv="contiguous:5", max_components=6)}
 
 
 def best_of(func, repeats: int = 3) -> float:

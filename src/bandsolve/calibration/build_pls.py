@@ -36,7 +36,7 @@ __all__ = ["build_pls", "fit_pls_with_limits"]
 
 
 def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str = "auto",
-                        max_components: int = 15, cv: Any = "blinds:10", groups=None,
+                        max_components: int = 15, cv: Any = "interleaved:10", groups=None,
                         select: str = "randomization", alpha: float = 0.05,
                         scale: bool = False, limit_alpha: float = 0.01,
                         q_limit: str = "box",
@@ -110,7 +110,7 @@ def _q_limit(model: PLSRegressor, Z: np.ndarray, q_cv: np.ndarray, alpha: float,
 
 def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
               components: int | str = "auto", max_components: int = 15,
-              cv: Any = "blinds:10", groups=None, select: str = "randomization",
+              cv: Any = "interleaved:10", groups=None, select: str = "randomization",
               alpha: float = 0.05, mode: str = "pls2", scale: bool = False,
               window: list[tuple[float, float]] | None = None,
               savgol_window: int | None = None, savgol_polyorder: int = 2,
@@ -131,8 +131,8 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
     max_components : int
         Largest count tried (capped at n − 2 and p).
     cv : str or splitter
-        ``blocks:K``, ``blinds:K``, ``random:K``, ``random:KxR``, ``loo`` or ``groups`` (with
-        ``groups``); see :func:`bandsolve.crossval.make_splitter`.
+        ``contiguous:K``, ``interleaved:K``, ``random:K``, ``random:KxR``, ``loo`` or
+        ``groups`` (with ``groups``); see :func:`bandsolve.crossval.make_splitter`.
     groups : mapping or pandas.Series, optional
         Group label of each sample, keyed by sample id (for example
         :func:`bandsolve.concentrations.group_labels`), keeping replicate spectra of one

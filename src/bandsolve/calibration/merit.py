@@ -98,7 +98,7 @@ def _rmsecv(cal: Calibration, Z: np.ndarray, C: np.ndarray, cv: Any) -> np.ndarr
         return cal.kind.stored_rmsecv(cal.selection, C.shape[1])
     try:
         res = cross_validate_estimator(clone(cal.estimators[0]), Z, C,
-                                       cv=f"blinds:{min(10, len(Z))}" if cv is None else cv)
+                                       cv=f"interleaved:{min(10, len(Z))}" if cv is None else cv)
     except ModelError:  # e.g. a fold removes every standard of one analyte
         return None
     return res.rmsecv[0]
@@ -138,7 +138,7 @@ def calibration_merit(cal: Calibration, spectra: SpectralSet | None,
     blanks : SpectralSet, optional
         r ≥ 2 replicate blank spectra (absorbance) for σx and, for PLS, the blank's scores.
     cv : str or splitter, optional
-        Cross-validation for the CLS RMSECV (default ``blinds:K`` with K = min(10, n)). PLS
+        Cross-validation for the CLS RMSECV (default ``interleaved:K`` with K = min(10, n)). PLS
         uses the curve stored at build time.
     reference_variance : float or sequence of float, optional
         Variance of the reference concentrations σy² per analyte (concentration units²), used

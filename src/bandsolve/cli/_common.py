@@ -4,12 +4,23 @@ from __future__ import annotations
 
 import argparse
 import sys
+import textwrap
 
 import pandas as pd
 
+from bandsolve.cautions import SHORT_CAUTION
 from bandsolve.concentrations import ConcentrationTable, group_labels
 from bandsolve.io import read_concentrations
 from bandsolve.io.atomic import atomic_write
+
+#: Widest line of the text the commands print (characters).
+WIDTH = 100
+
+#: Help of every --cv option (the README's table says more).
+CV_HELP = ("cross-validation folds: contiguous:K (K runs of consecutive samples), "
+           "interleaved:K (sample i in fold i mod K), random:K, random:KxR (R repeats), loo "
+           "(leave one out), groups:COLUMN or groups:~REGEX (whole groups, from a text column "
+           "or the sample id) (default: %(default)s)")
 
 
 def add_input_options(parser: argparse.ArgumentParser) -> None:
@@ -57,3 +68,8 @@ def read_with_groups(path: str, cv: str) -> tuple[ConcentrationTable, pd.Series 
     key = cv[len("groups:"):]
     table = read_concentrations(path, label_columns=() if key.startswith("~") else (key,))
     return table, group_labels(table, key)
+
+
+def caution_text() -> str:
+    """The validation and safety caution, wrapped at :data:`WIDTH` characters."""
+    return textwrap.fill(SHORT_CAUTION, WIDTH)

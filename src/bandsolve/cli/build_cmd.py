@@ -14,7 +14,15 @@ from bandsolve.calibration.build import (
 )
 from bandsolve.calibration.model import Calibration
 from bandsolve.calibration.modelfile import save_model
-from bandsolve.cli._common import add_input_options, eprint, read_options, read_with_groups
+from bandsolve.cli._common import (
+    CV_HELP,
+    WIDTH,
+    add_input_options,
+    caution_text,
+    eprint,
+    read_options,
+    read_with_groups,
+)
 from bandsolve.errors import BandsolveError
 from bandsolve.io import read_absorptivities, read_concentrations, read_spectra
 from bandsolve.preprocess import parse_window
@@ -32,7 +40,7 @@ examples:
 
   # PLS with the number of components chosen by cross-validation
   bandsolve build --method pls --spectra cal_spectra.csv --concentrations cal_conc.csv \\
-      --cv blinds:5 --select randomization --out models/rinse-pls.bsm
+      --cv interleaved:5 --select randomization --out models/rinse-pls.bsm
 """
 
 
@@ -63,13 +71,16 @@ def register(sub: argparse._SubParsersAction) -> None:
                    help="significance level of the residual limit (default 0.01)")
     s = p.add_argument_group("PLS options")
     s.add_argument("--components", default="auto", help="auto (by cross-validation) or N")
-    s.add_argument("--max-components", type=int, default=15, metavar="N")
-    s.add_argument("--cv", default="blinds:10",
-                   help="blocks:K | blinds:K | random:K | random:KxR | loo | groups:COLUMN | "
-                        "groups:~REGEX (group by sample id)  (default blinds:10)")
+    s.add_argument("--max-components", type=int, default=15, metavar="N",
+                   help="largest number of PLS components tried by cross-validation "
+                        "(capped at samples − 2; default 15)")
+    s.add_argument("--cv", default="interleaved:10",
+                   help=CV_HELP)
     s.add_argument("--select", choices=["randomization", "one-se", "min"],
                    default="randomization", help="component selection rule")
-    s.add_argument("--select-alpha", type=float, default=0.05, metavar="ALPHA")
+    s.add_argument("--select-alpha", type=float, default=0.05, metavar="ALPHA",
+                   help="significance level of the randomization rule: a smaller count is "
+                        "kept unless its errors are worse at this level (default 0.05)")
     mode = s.add_mutually_exclusive_group()
     mode.add_argument("--pls1", dest="mode", action="store_const", const="pls1",
                       help="one model per analyte")
@@ -82,7 +93,9 @@ def register(sub: argparse._SubParsersAction) -> None:
                         "wavelengths)")
     s.add_argument("--savgol-window", type=int, metavar="POINTS",
                    help="Savitzky–Golay window (odd number of points)")
-    s.add_argument("--derivative", type=int, choices=[0, 1, 2], default=0)
+    s.add_argument("--derivative", type=int, choices=[0, 1, 2], default=0,
+                   help="Savitzky-Golay derivative order: 1 removes a constant baseline, 2 "
+                        "also a sloping one (needs --savgol-window; default 0, smoothing only)")
     s.add_argument("--offset", action="store_true", help="remove each spectrum's mean offset")
     add_input_options(p)
     p.set_defaults(func=run, mode="pls2")
@@ -154,24 +167,45 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
                                  ceiling=args.ceiling, provenance=prov)
 
 
+def _p(value: float | None) -> str:
+    if value is None:
+        return "-"
+    # 0.001 is the smallest p-value 999 permutations can give: the true one may be smaller.
+    return "≤ 0.001" if value <= 0.001 else f"{value:.3f}"
+
+
 def selection_table(cal: Calibration) -> str:
-    """The RMSECV curve of each PLS model as a compact text table, chosen count marked ``*``."""
+    """The RMSECV curve of each PLS model as a text table (full analyte labels, at most
+    :data:`WIDTH` characters a line), chosen count marked ``*``, p-values explained."""
     models = cal.selection.models if cal.selection is not None else ()
     blocks = []
     for i, ev in enumerate(models):
         names = list(cal.analytes) if len(models) == 1 else [cal.analytes[i]]
         rms = np.asarray(ev.rmsecv, dtype=float)
         pvals = ev.pvalues
-        lines = [f"RMSECV by number of components ({ev.rule}, chosen: {ev.n_components})",
-                 "   A " + "".join(f"{a[:16]:>18}" for a in names)
-                 + ("   p-value" if pvals else "")]
-        for j, a in enumerate(ev.settings):
-            mark = "*" if a == ev.n_components else " "
-            row = f" {mark}{a:>2} " + "".join(f"{v:>18.4g}" for v in rms[j])
-            if pvals:
-                pv = pvals[j]
-                row += f"   {pv:>7.3f}" if pv is not None else "         -"
-            lines.append(row)
+        widths = [max(10, len(a)) + 2 for a in names]
+        lines = [f"RMSECV by number of components ({ev.rule}, chosen: {ev.n_components})"]
+        start = 0
+        while start < len(names):  # as many analytes per block as fit in WIDTH columns
+            stop = start + 1
+            while stop < len(names) and 5 + sum(widths[start:stop + 1]) + 10 <= WIDTH:
+                stop += 1
+            lines.append("   A " + "".join(f"{a:>{w}}" for a, w in
+                                           zip(names[start:stop], widths[start:stop],
+                                               strict=True))
+                         + ("   p-value" if pvals else ""))
+            for j, a in enumerate(ev.settings):
+                mark = "*" if a == ev.n_components else " "
+                row = f" {mark}{a:>2} " + "".join(
+                    f"{v:>{w}.4g}" for v, w in zip(rms[j, start:stop], widths[start:stop],
+                                                   strict=True))
+                lines.append(row + (f"  {_p(pvals[j]):>8}" if pvals else ""))
+            start = stop
+        if pvals:
+            lines.append("p-value: randomization test of that count against the count with "
+                         "the lowest RMSECV")
+            lines.append("(van der Voet 1994); - : not tested (the count with the lowest RMSECV "
+                         "and larger counts).")
         blocks.append("\n".join(lines))
     return "\n\n".join(blocks)
 
@@ -186,4 +220,5 @@ def run(args: argparse.Namespace) -> int:
         eprint(f"bandsolve: warning: {cal.provenance['merit_note']}")
     eprint(f"{cal.method.upper()} model for {len(cal.analytes)} analytes "
            f"({', '.join(cal.analytes)}) written to {args.out} (checksum {checksum[:12]})")
+    eprint(caution_text())
     return 0

@@ -6,7 +6,7 @@ import argparse
 import json
 
 from bandsolve.cautions import SHORT_CAUTION
-from bandsolve.cli._common import add_input_options, read_options, read_with_groups
+from bandsolve.cli._common import CV_HELP, add_input_options, read_options, read_with_groups
 from bandsolve.errors import BandsolveError
 from bandsolve.evaluate.compare import compare_methods
 from bandsolve.io import read_concentrations, read_spectra
@@ -34,14 +34,14 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--test-spectra", metavar="FILE", help="independent test spectra")
     p.add_argument("--test-concentrations", metavar="FILE",
                    help="reference concentrations of the test samples")
-    p.add_argument("--cv", default="blinds:10",
-                   help="blocks:K | blinds:K | random:K | random:KxR | loo | groups:COLUMN | "
-                        "groups:~REGEX (default blinds:10)")
+    p.add_argument("--cv", default="interleaved:10",
+                   help=CV_HELP)
     p.add_argument("--window", metavar="RANGES", help="axis ranges to use, e.g. 400-700")
     p.add_argument("--intercept", action="store_true", help="CLS background term")
     p.add_argument("--baseline", choices=["none", "offset", "linear", "quadratic"],
                    default="linear", help="baseline terms of the second CLS (default linear)")
-    p.add_argument("--max-components", type=int, default=15, metavar="N")
+    p.add_argument("--max-components", type=int, default=15, metavar="N",
+                   help="largest number of PLS components tried (default 15)")
     p.add_argument("--select", choices=["randomization", "one-se", "min"],
                    default="randomization", help="PLS component selection rule")
     p.add_argument("--alpha", type=float, default=0.05,

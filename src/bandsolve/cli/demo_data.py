@@ -174,7 +174,7 @@ def run_demo(folder: str | Path) -> DemoRun:
     # `bandsolve compare` recommends on these data).
     models = {"cls": build_cls(spectra, table, baseline="offset", blanks=blanks,
                                provenance=prov),
-              "pls": build_pls(spectra, table, cv="blinds:5", max_components=8, blanks=blanks,
+              "pls": build_pls(spectra, table, cv="interleaved:5", max_components=8, blanks=blanks,
                                provenance=prov)}
     outputs: dict[str, Path] = {}
     tables = {}
@@ -205,5 +205,5 @@ def _write_report(folder: Path, model, spectra, table, files: DemoFiles, batch) 
         validation_spectra=val_spectra, validation_table=val_table,
         blanks=read_spectra(files.blanks), batch=batch,
         assessment=assess(model, val_spectra, val_table),
-        comparison=compare_methods(spectra, table, val_spectra, val_table, cv="blinds:5",
+        comparison=compare_methods(spectra, table, val_spectra, val_table, cv="interleaved:5",
                                    max_components=8))

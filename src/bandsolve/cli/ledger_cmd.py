@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 from bandsolve.batch.ledger import list_inputs, list_results, list_runs
-from bandsolve.cli._common import eprint
+from bandsolve.cli._common import caution_text, eprint
 from bandsolve.flags import FLAG_COLUMN
 from bandsolve.io.atomic import atomic_write
 
@@ -43,6 +43,12 @@ def _shown_columns(results) -> list[str]:
 
 
 def run(args: argparse.Namespace) -> int:
+    code = _run(args)
+    eprint(caution_text())
+    return code
+
+
+def _run(args: argparse.Namespace) -> int:
     if args.export or args.run is not None or args.sample:
         results = list_results(args.ledger, run=args.run, since=args.since, sample=args.sample)
         if args.export:

@@ -11,7 +11,7 @@ from bandsolve.batch.predict import DEFAULT_CHUNK, result_table_columns, run_bat
 from bandsolve.batch.writers import FORMATS, format_for, open_writer
 from bandsolve.calibration.modelfile import load_model
 from bandsolve.cli._codes import EXIT_FLAGGED, EXIT_PARTIAL
-from bandsolve.cli._common import add_input_options, eprint, read_options
+from bandsolve.cli._common import add_input_options, caution_text, eprint, read_options
 from bandsolve.errors import FormatError
 from bandsolve.io.atomic import atomic_write
 from bandsolve.progress import progress_bar
@@ -125,6 +125,7 @@ def run_command(args: argparse.Namespace) -> int:
     for failure in summary.failures:
         eprint(f"bandsolve: skipped {failure.input}: {failure.reason}")
     eprint(_summary_line(summary, args.out))
+    eprint(caution_text())
     if summary.failures or not summary.n_predicted:
         return EXIT_PARTIAL
     if args.fail_on_flags and summary.n_flagged:

@@ -247,7 +247,7 @@ def _overall(recs: list[Recommendation], names: list[str], sq: dict[str, np.ndar
 
 def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
                     test_spectra: SpectralSet | None = None,
-                    test_table: ConcentrationTable | None = None, cv: Any = "blinds:10", *,
+                    test_table: ConcentrationTable | None = None, cv: Any = "interleaved:10", *,
                     window: list[tuple[float, float]] | None = None, intercept: bool = False,
                     baseline: str = "linear", max_components: int = 15,
                     select: str = "randomization", select_alpha: float = 0.05,

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import textwrap
 from collections.abc import Sequence
 from dataclasses import asdict, dataclass
 from typing import TYPE_CHECKING
@@ -16,6 +17,11 @@ if TYPE_CHECKING:  # only for annotations: merit imports this module
     from bandsolve.merit.signal import SignalFigures
 
 __all__ = ["AnalyteFigures", "FiguresOfMerit", "figures_of_merit"]
+
+
+def split_name(label: str) -> str:
+    """The analyte name without a trailing unit bracket (``"dye A [mg/L]"`` → ``"dye A"``)."""
+    return label.split(" [")[0] if label.endswith("]") else label
 
 
 @dataclass(frozen=True)
@@ -56,6 +62,16 @@ _HEADERS = {
     "univariate_rmsec": ("univ. RMSEC", "{u}"),
 }
 
+#: What each abbreviation of the summary means (printed under it).
+ABBREVIATIONS = (
+    "SEN sensitivity (net analyte signal per unit concentration); SEL selectivity (0-1, 1 = "
+    "no overlap); γ analytical sensitivity SEN/σx and γ⁻¹ its inverse (the smallest "
+    "concentration difference the noise lets you tell apart); LOD, LOQ detection and "
+    "quantitation limits; h0 leverage of a blank; σx spectral noise; RMSEC, RMSECV root-mean-"
+    "square error of calibration and of cross-validation; univ. the best single wavelength "
+    "used alone (λ, its LOD and RMSEC), for comparison; - not available."
+)
+
 
 @dataclass(frozen=True)
 class FiguresOfMerit:
@@ -82,8 +98,10 @@ class FiguresOfMerit:
         frame = pd.DataFrame([asdict(row) for row in self.analytes])
         return frame.set_index("analyte")
 
-    def summary(self) -> str:
-        """Return a readable fixed-width table; units in the column headers."""
+    def summary(self, width: int = 100) -> str:
+        """Return a readable fixed-width table, one row per figure (unit in brackets) and one
+        column per analyte, split into blocks no wider than ``width`` characters, followed by
+        what each abbreviation means."""
         units = {row.unit for row in self.analytes}
         u = units.pop() if len(units) == 1 else "unit"
         present = [
@@ -92,19 +110,24 @@ class FiguresOfMerit:
         ]
         heads = [f"{_HEADERS[n][0]} [{_HEADERS[n][1].format(s=self.signal_unit, u=u)}]"
                  for n in present]
-        widths = [max(10, len(h)) for h in heads]
-        name_w = max(7, *(len(row.analyte) for row in self.analytes))
+        head_w = max(len("figure"), *(len(h) for h in heads))
+        names = [split_name(row.analyte) for row in self.analytes]
+        col_w = max(10, *(len(n) for n in names))
+        per_block = max(1, (width - head_w) // (col_w + 2))
         lines = [f"Figures of merit ({self.method} model)"]
         if self.condition_number is not None:
             lines.append(f"condition number of K: {self.condition_number:.4g}")
-        pairs = zip(heads, widths, strict=True)
-        lines.append(f"{'analyte':<{name_w}}" + "".join(f"  {h:>{w}}" for h, w in pairs))
-        for row in self.analytes:
-            cells = ["-" if (v := getattr(row, n)) is None else format(v, ".4g") for n in present]
-            text = "".join(f"  {c:>{w}}" for c, w in zip(cells, widths, strict=True))
-            lines.append(f"{row.analyte:<{name_w}}{text}")
+        for start in range(0, len(self.analytes), per_block):
+            rows = self.analytes[start:start + per_block]
+            lines.append(f"{'figure':<{head_w}}"
+                         + "".join(f"  {n:>{col_w}}" for n in names[start:start + per_block]))
+            for name, head in zip(present, heads, strict=True):
+                cells = ["-" if (v := getattr(r, name)) is None else format(v, ".4g")
+                         for r in rows]
+                lines.append(f"{head:<{head_w}}" + "".join(f"  {c:>{col_w}}" for c in cells))
         origins = sorted({row.sigma_x_origin for row in self.analytes})
         lines.append(f"σx from: {', '.join(origins)}")
+        lines += textwrap.wrap(ABBREVIATIONS, width)
         return "\n".join(lines)
 
     def to_dict(self) -> dict[str, object]:
