@@ -83,7 +83,7 @@ def test_one_pass_curve_equals_brute_force_refits(spec, scale, n, p):
 
 
 @pytest.mark.parametrize("stored_fold_products", [True, False])
-@pytest.mark.parametrize("spec", ["blocks:5", "blinds:5", "random:4x2"])
+@pytest.mark.parametrize("spec", ["contiguous:5", "interleaved:5", "random:4x2"])
 def test_tall_engine_paths_equal_brute_force(spec, stored_fold_products, monkeypatch):
     # X is read in row blocks of 3 (the path of large data sets), with the per-fold
     # cross-products either stored once or recomputed in every fold; repeats take the
