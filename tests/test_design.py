@@ -23,7 +23,7 @@ from bandsolve.design import (
     preparation_html,
     preparation_sheet,
     validation_set,
-    write_plan_csv,
+    write_plan_files,
     write_preparation_csv,
 )
 from bandsolve.errors import BandsolveWarning, DataError
@@ -313,8 +313,9 @@ def test_preparation_sheet_property(highs, stock_ratio, volume):
 def test_writers_round_trip_and_html(tmp_path):
     ranges = [AnalyteRange("<b>dye</b>", 0.0, 10.0, "mg/L"), RANGES[1]]
     plan = calibration_plan(ranges, n_validation=2)
-    write_plan_csv(plan, tmp_path / "plan.csv")
-    back = pd.read_csv(tmp_path / "plan.csv", index_col="sample")
+    written = write_plan_files(plan, tmp_path / "plan.csv")
+    assert [p.name for p in written] == ["plan-calibration.csv", "plan-validation.csv"]
+    back = pd.concat([pd.read_csv(p, index_col="sample") for p in written])
     pd.testing.assert_frame_equal(back, plan.concentrations, rtol=1e-9)
     sheet = preparation_sheet(plan, {"<b>dye</b>": (100, "mg/L"), "dye B": (50, "mg/L")}, 25.0)
     write_preparation_csv(sheet, tmp_path / "prep.csv")
@@ -324,7 +325,8 @@ def test_writers_round_trip_and_html(tmp_path):
     exact = sheet.volumes_ml.to_numpy()
     half_unit = 0.5 * 10.0 ** (np.floor(np.log10(np.where(exact > 0, exact, 1.0))) - 3)
     assert np.all(np.abs(prep[sheet.volumes_ml.columns].to_numpy() - exact) <= half_unit * 1.0001)
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["plan.csv", "prep.csv"]  # no temp files
+    assert sorted(p.name for p in tmp_path.iterdir()) == [  # no temporary files left
+        "plan-calibration.csv", "plan-validation.csv", "prep.csv"]
     page = preparation_html(sheet)
     assert "<b>dye</b>" not in page and "&lt;b&gt;dye&lt;/b&gt;" in page
     assert "@media print" in page and "validated" in page and "safety" in page

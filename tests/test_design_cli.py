@@ -41,13 +41,15 @@ def test_cli_writes_plan_and_sheet(tmp_path, capsys):
                  "--absorptivity", str(tmp_path / "eps.csv"), "--stock", "dye A=1 g/L",
                  "dye B=500 mg/L", "--volume", "50 mL", "--out", str(out)])
     assert code == 0
-    assert {p.name for p in tmp_path.iterdir()} >= {"plan.csv", "plan-prep.csv",
-                                                   "plan-prep.html", "plan-design.json"}
+    assert {p.name for p in tmp_path.iterdir()} >= {
+        "plan-calibration.csv", "plan-validation.csv", "plan-prep.csv", "plan-prep.html",
+        "plan-design.json"}
     text = capsys.readouterr().out
     assert "Largest |r|" in text
     # Beer-Lambert with the rows matched by name: top mixture 10 mg/L A -> 1.0 AU at 450 nm.
     assert "Largest predicted absorbance (1 cm cell): 1.000 AU" in text
-    assert len(pd.read_csv(out)) == 28
+    assert len(pd.read_csv(tmp_path / "plan-calibration.csv")) == 25
+    assert len(pd.read_csv(tmp_path / "plan-validation.csv")) == 3
     with pytest.raises(DataError, match="--volume"):
         _cli(["--analytes", "dye A=0-10 mg/L", "--stock", "dye A=1 g/L"])
 
@@ -108,8 +110,7 @@ def test_cli_rounds_validation_and_volumes(tmp_path):
     assert main(["design", "--analytes", "dye A=0-10 mg/L", "dye B=0-5 mg/L", "--validation",
                  "8", "--stock", "dye A=1000 mg/L", "dye B=0.7 g/L", "--volume", "50 mL",
                  "--out", str(out)]) == 0
-    plan = pd.read_csv(out, index_col="sample", dtype=str)
-    val = plan.loc[plan.index.str.startswith("val-")]
+    val = pd.read_csv(tmp_path / "plan-validation.csv", index_col="sample", dtype=str)
     # 3 significant figures of the widths 10 and 5 mg/L: 0.1 and 0.01 mg/L steps.
     for column, places in (("dye A [mg/L]", 1), ("dye B [mg/L]", 2)):
         assert all(len(v.partition(".")[2]) <= places for v in val[column])

@@ -6,7 +6,7 @@ import argparse
 import json
 from pathlib import Path
 
-from bandsolve.cautions import SHORT_CAUTION
+from bandsolve.cli._common import caution_text
 from bandsolve.design import (
     VOLUME_FIGURES,
     Amount,
@@ -18,9 +18,10 @@ from bandsolve.design import (
     preparation_html,
     preparation_sheet,
     range_decimals,
-    write_plan_csv,
+    write_plan_files,
     write_preparation_csv,
 )
+from bandsolve.design.pipettes import Pipette, parse_pipette
 from bandsolve.errors import DataError
 from bandsolve.io import read_absorptivities
 from bandsolve.io.atomic import atomic_write
@@ -44,9 +45,11 @@ _EPILOG = """\
 worked example:
   bandsolve design --analytes "dye A=0-10 mg/L" "dye B=0-5 mg/L" "dye C=0-8 mg/L" \\
       --validation 6 --stock "dye A=1000 mg/L" "dye B=500 mg/L" "dye C=0.8 g/L" \\
-      --volume "50 mL" --out plan.csv
-  writes plan.csv (25 calibration mixtures cal-01..cal-25 and 6 validation mixtures
-  val-01..val-06, rounded to 0.1 mg/L for dye A), plan-design.json (plan and quality),
+      --volume "50 mL" --pipettes "100-1000 uL by 5 uL" "1-10 mL by 0.1 mL" --out plan.csv
+  writes plan-calibration.csv (25 calibration mixtures cal-01..cal-25) and
+  plan-validation.csv (6 validation mixtures val-01..val-06), each ready for
+  'bandsolve build/assess --concentrations' as written and holding the concentrations the
+  pipetted volumes actually give; plan-design.json (plan and quality),
   plan-prep.csv and plan-prep.html (e.g. a mixture with 10 mg/L of dye A needs 0.5 mL of
   its 1000 mg/L stock in a 50 mL flask), and prints the design quality: largest |r|
   between analytes, level counts and D-efficiency."""
@@ -85,15 +88,22 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                         help='stock solutions, e.g. "dye A=1000 mg/L"')
     parser.add_argument("--volume", help='final volume of each mixture, e.g. "50 mL"')
     parser.add_argument("--min-pipette", default="0.1 mL",
-                        help='smallest volume to pipette (default "0.1 mL")')
+                        help='smallest volume to pipette (default "0.1 mL"; with --pipettes, '
+                             "the smallest volume of the smallest pipette)")
+    parser.add_argument("--pipettes", nargs="+", metavar="PIPETTE",
+                        help='the pipettes you have, adjustable ("100-1000 uL by 5 uL") or '
+                             'volumetric ("5 mL"): stock volumes are rounded to what they '
+                             "deliver and the prepared concentrations recomputed, printed and "
+                             "written to the plan files")
     parser.add_argument("--random-state", type=int, default=0, metavar="N",
                         help="random state of D-optimal starts and validation mixtures")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
     parser.add_argument("--out", type=Path, metavar="PLAN.csv",
-                        help="write the plan here, with PLAN-design.json (plan and design "
-                             "quality) and, with stocks, PLAN-prep.csv (volumes to 4 "
-                             "significant figures) and PLAN-prep.html (to 0.001 mL); the "
-                             "folder must exist")
+                        help="name of the plan: writes PLAN-calibration.csv and "
+                             "PLAN-validation.csv (for build and assess, as they are), "
+                             "PLAN-design.json (plan and design quality) and, with stocks, "
+                             "PLAN-prep.csv and PLAN-prep.html (volumes to 4 significant "
+                             "figures, or as the --pipettes deliver them); the folder must exist")
     parser.set_defaults(func=run)
 
 
@@ -114,6 +124,13 @@ def _stocks(args: argparse.Namespace) -> tuple[dict[str, Amount], float, float] 
     return stocks, parse_volume(args.volume), parse_volume(args.min_pipette)
 
 
+def _pipettes(args: argparse.Namespace) -> list[Pipette]:
+    if args.pipettes and not args.stock:
+        raise DataError("--pipettes round the stock volumes of a preparation sheet; add "
+                        '--stock and --volume, e.g. --stock "dye A=1000 mg/L" --volume "50 mL"')
+    return [parse_pipette(text) for text in args.pipettes or ()]
+
+
 def run(args: argparse.Namespace) -> int:
     """Run ``bandsolve design``; returns the exit code.
 
@@ -123,6 +140,7 @@ def run(args: argparse.Namespace) -> int:
     _check_out(args.out)
     analytes = [parse_analyte_range(text) for text in args.analytes]
     stock_options = _stocks(args)
+    pipettes = _pipettes(args)
     absorptivity = wavelengths = None
     if args.absorptivity is not None:
         table = read_absorptivities(args.absorptivity)
@@ -133,12 +151,16 @@ def run(args: argparse.Namespace) -> int:
         validation_decimals=range_decimals(analytes, args.validation_figures),
         random_state=args.random_state, progress=progress_bar(args.quiet),
     )
-    sheet = None if stock_options is None else preparation_sheet(plan, *stock_options)
+    sheet = (None if stock_options is None
+             else preparation_sheet(plan, *stock_options, pipettes=pipettes))
     print(plan.summary())
-    print(SHORT_CAUTION)
+    print(caution_text())
     if sheet is not None:
         print()
         print(sheet.summary())
+        if pipettes:
+            print("\nPrepared concentrations (from the rounded volumes):")
+            print(sheet.prepared_concentrations().to_string(float_format="{:.6g}".format))
     if args.out is None:
         frame = plan.to_frame()
         if sheet is not None:
@@ -147,11 +169,11 @@ def run(args: argparse.Namespace) -> int:
         print()
         print(frame.to_string())
         return 0
-    write_plan_csv(plan, args.out)
+    written = write_plan_files(plan, args.out, sheet)
     quality = args.out.with_name(f"{args.out.stem}-design.json")
     with atomic_write(quality) as handle:  # the design and its quality, kept with the plan
         json.dump(plan.to_dict(), handle, indent=1, default=float)
-    written = [args.out, quality]
+    written.append(quality)
     if sheet is not None:
         prep_csv = args.out.with_name(f"{args.out.stem}-prep.csv")
         prep_html = args.out.with_name(f"{args.out.stem}-prep.html")

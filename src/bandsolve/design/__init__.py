@@ -53,7 +53,7 @@ from bandsolve.design.prep_sheet import (
     PreparationSheet,
     preparation_html,
     preparation_sheet,
-    write_plan_csv,
+    write_plan_files,
     write_preparation_csv,
 )
 
@@ -80,6 +80,6 @@ __all__ = [
     "preparation_sheet",
     "range_decimals",
     "validation_set",
-    "write_plan_csv",
+    "write_plan_files",
     "write_preparation_csv",
 ]

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -18,7 +19,7 @@ from bandsolve.design.points import (
     d_optimal_design,
     validation_set,
 )
-from bandsolve.errors import DataError
+from bandsolve.errors import BandsolveWarning, DataError
 from bandsolve.progress import ProgressCallback
 
 __all__ = ["AbsorbanceCheck", "CalibrationPlan", "DesignQuality", "calibration_plan"]
@@ -102,6 +103,11 @@ class CalibrationPlan:
     quality: DesignQuality
     absorbance: AbsorbanceCheck | None = None
 
+    @property
+    def is_calibration(self) -> np.ndarray:
+        """True for calibration mixtures (``cal-…``), False for validation ones (n,)."""
+        return np.asarray(self.concentrations.index.str.startswith("cal-"))
+
     def to_frame(self) -> pd.DataFrame:
         """Concentration table, plus the largest predicted absorbance when it was checked."""
         frame = self.concentrations.copy()
@@ -141,7 +147,7 @@ class CalibrationPlan:
     def summary(self) -> str:
         """Readable account of the design and its quality."""
         q = self.quality
-        is_cal = self.concentrations.index.str.startswith("cal-")
+        is_cal = self.is_calibration
         lines = [
             f"Calibration design: {self.design}",
             f"Mixtures: {int(is_cal.sum())} calibration, {int((~is_cal).sum())} validation",
@@ -211,6 +217,16 @@ def _check_absorptivity(absorptivity: ArrayLike, wavelengths: ArrayLike | None,
         raise DataError(f"the wavelength axis has {axis.size} values but the absorptivities "
                         f"have {values.shape[1]} columns; give one wavelength per column")
     return values, axis
+
+
+def _warn_few_levels(coded: NDArray[np.float64], analytes: Sequence[AnalyteRange]) -> None:
+    few = [f"{a.name} ({np.unique(coded[:, k]).size})" for k, a in enumerate(analytes)
+           if np.unique(coded[:, k]).size < 3]
+    if few:
+        warnings.warn(
+            f"fewer than three concentration levels for {', '.join(few)}: with two levels a "
+            "curved (non-linear) response looks exactly like a straight line, so "
+            "non-linearity cannot be seen; use 3 or 5 levels", BandsolveWarning, stacklevel=3)
 
 
 def calibration_plan(
@@ -295,8 +311,11 @@ def calibration_plan(
                 conc = _to_concentration(grid, analytes, half_range)
                 return np.max(path_length_cm * conc @ values, axis=1) <= ceiling_au
         coded = d_optimal_design(n_runs, len(analytes), levels, constraints=constraint,
-                                 random_state=random_state, progress=progress)
-        design = f"D-optimal, {n_runs} mixtures on a {levels}-level grid (Fedorov exchange)"
+                                 random_state=random_state, progress=progress,
+                                 quadratic=levels >= 3)
+        design = (f"D-optimal, {n_runs} mixtures on a {levels}-level grid (Fedorov exchange, "
+                  "linear and squared terms so that every analyte has three levels)")
+    _warn_few_levels(coded, analytes)
     cal = _to_concentration(coded, analytes, half_range)
     val = validation_set(analytes, n_validation, cal, random_state, validation_decimals)
     ids = [f"cal-{i + 1:02d}" for i in range(len(cal))]

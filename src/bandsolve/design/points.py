@@ -171,6 +171,7 @@ def d_optimal_design(
     max_iter: int = 500,
     random_state: int | np.random.Generator | None = 0,
     progress: ProgressCallback | None = None,
+    quadratic: bool = False,
 ) -> NDArray[np.float64]:
     """D-optimal design chosen from a candidate grid by Fedorov point exchange.
 
@@ -179,8 +180,10 @@ def d_optimal_design(
     coefficients. Starting from random candidate subsets, the exchange repeatedly replaces the
     design point and candidate whose swap raises the determinant most (by the factor
     ``1 + Δ``), until no swap helps; the best of ``n_starts`` starts is returned. Points may
-    repeat (replicate mixtures). For this model the optimum uses only the extreme levels, so
-    the design cannot reveal curvature; prefer the cyclic design when nonlinearity matters.
+    repeat (replicate mixtures). For the linear model the optimum uses only the extreme
+    levels, so the design cannot reveal curvature; ``quadratic=True`` adds a squared term per
+    analyte (``x_k²``), which needs three levels of every analyte to be estimated, so the
+    chosen mixtures include the centre level.
 
     Parameters
     ----------
@@ -205,6 +208,8 @@ def d_optimal_design(
         Random state of the random starts.
     progress : callable, optional
         ``progress(done, total, label)`` after each start (see :mod:`bandsolve.progress`).
+    quadratic : bool, default False
+        Model intercept + linear + pure quadratic terms (needs ``2·n_factors + 1`` runs).
 
     Returns
     -------
@@ -230,11 +235,12 @@ def d_optimal_design(
     if constraints is not None:
         for rule in [constraints] if callable(constraints) else constraints:
             grid = grid[np.asarray(rule(grid), dtype=bool)]
-    n_terms = n_factors + 1
+    n_terms = (2 if quadratic else 1) * n_factors + 1
     if n_runs < n_terms:
+        terms = "a linear and a squared term" if quadratic else "one term"
         raise DataError(f"a design for {n_factors} analytes needs at least {n_terms} mixtures "
-                        f"(intercept + one term per analyte), not {n_runs}; ask for more runs")
-    model = np.column_stack([np.ones(len(grid)), grid])
+                        f"(intercept + {terms} per analyte), not {n_runs}; ask for more runs")
+    model = np.column_stack([np.ones(len(grid)), grid] + ([grid**2] if quadratic else []))
     if len(grid) == 0 or np.linalg.matrix_rank(model) < n_terms:
         raise DataError(
             f"the constraints leave {len(grid)} candidate mixtures, too few to separate "

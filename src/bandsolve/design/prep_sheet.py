@@ -5,14 +5,16 @@ from __future__ import annotations
 import html
 import math
 import os
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from bandsolve.cautions import SHORT_CAUTION
 from bandsolve.design.amounts import Amount, concentration_factor
+from bandsolve.design.pipettes import Pipette, deliverable_volumes
 from bandsolve.design.plan import CalibrationPlan
 from bandsolve.errors import DataError, where
 from bandsolve.io.atomic import atomic_write
@@ -22,7 +24,7 @@ __all__ = [
     "PreparationSheet",
     "preparation_html",
     "preparation_sheet",
-    "write_plan_csv",
+    "write_plan_files",
     "write_preparation_csv",
 ]
 
@@ -75,6 +77,11 @@ class PreparationSheet:
         Smallest volume considered accurate to pipette (mL).
     flags : tuple of PipetteFlag
         Stock volumes below ``min_pipette_ml``, with a suggested intermediate dilution.
+    pipettes : tuple of Pipette
+        The pipettes the volumes were rounded to (empty: volumes exact).
+    prepared : DataFrame
+        Concentrations the rounded volumes actually give (``C_stock·V_stock/V_final``), same
+        shape as ``concentrations``; equal to the targets when no pipettes were named.
     """
 
     concentrations: pd.DataFrame
@@ -83,6 +90,13 @@ class PreparationSheet:
     final_volume_ml: float
     min_pipette_ml: float
     flags: tuple[PipetteFlag, ...]
+    pipettes: tuple[Pipette, ...] = ()
+    prepared: pd.DataFrame | None = None
+
+    def prepared_concentrations(self) -> pd.DataFrame:
+        """The concentrations to give ``bandsolve build`` for these mixtures (the prepared
+        ones when volumes were rounded to pipettes, else the targets)."""
+        return self.concentrations if self.prepared is None else self.prepared
 
     def to_frame(self, significant_figures: int | None = None) -> pd.DataFrame:
         """Targets, volumes and a ``notes`` column (pipetting advice) per mixture.
@@ -111,6 +125,19 @@ class PreparationSheet:
             f"Volumes below the pipetting minimum: {len(self.flags)}",
         ]
         lines += [f"  {f.sample}: {f.message}" for f in self.flags]
+        if self.pipettes and self.prepared is not None:
+            target = self.concentrations.to_numpy()
+            change = np.abs(self.prepared.to_numpy() - target)
+            rel = np.divide(change, target, out=np.zeros_like(change), where=target > 0)
+            i, k = np.unravel_index(int(np.argmax(rel)), rel.shape)
+            lines += [
+                "Volumes rounded to what these pipettes deliver: "
+                + "; ".join(p.text for p in self.pipettes),
+                f"Prepared concentrations differ from the targets by at most {100 * rel[i, k]:.2g} "
+                f"% ({self.concentrations.index[i]}, {self.concentrations.columns[k]}); the "
+                "plan files hold the prepared concentrations, recomputed as "
+                "C_stock × V_stock / V_final.",
+            ]
         return "\n".join(lines)
 
 
@@ -132,6 +159,7 @@ def preparation_sheet(
     stocks: Mapping[str, tuple[float, str] | Amount],
     final_volume_ml: float,
     min_pipette_ml: float = DEFAULT_MIN_PIPETTE_ML,
+    pipettes: Sequence[Pipette] = (),
 ) -> PreparationSheet:
     """Volumes of stock solutions and solvent that make up every mixture of a plan.
 
@@ -149,7 +177,12 @@ def preparation_sheet(
         Volume of each mixture (mL), e.g. a 50 mL volumetric flask.
     min_pipette_ml : float, default 0.1
         Smallest stock volume (mL) considered accurate to pipette; smaller nonzero volumes are
-        flagged with a suggested intermediate dilution of the stock.
+        flagged with a suggested intermediate dilution of the stock. With ``pipettes`` it is
+        the smallest volume the smallest pipette delivers.
+    pipettes : sequence of Pipette, optional
+        The laboratory's pipettes (:func:`bandsolve.design.pipettes.parse_pipette`): each
+        stock volume is rounded to the nearest volume one of them delivers and the prepared
+        concentrations are recomputed from the rounded volumes (``C₂ = C₁V₁/V₂``).
 
     Returns
     -------
@@ -192,6 +225,15 @@ def preparation_sheet(
             "or lower the top of the ranges (a larger final volume does not help: each stock "
             "is the same fraction of any volume)"
         )
+    prepared = None
+    if pipettes:
+        min_pipette_ml = min(p.low_ml for p in pipettes)
+        rounded = deliverable_volumes(volumes, pipettes)
+        volumes = np.where(np.isnan(rounded), volumes, rounded)  # undeliverable: flagged below
+        prepared = pd.DataFrame(volumes * stock_conc / (factors * final_volume_ml),
+                                index=plan.concentrations.index,
+                                columns=plan.concentrations.columns)
+        total = volumes.sum(axis=1)
     solvent = np.maximum(final_volume_ml - total, 0.0)
     table = pd.DataFrame(volumes, index=plan.concentrations.index,
                          columns=[f"{n} stock [mL]" for n in names])
@@ -203,7 +245,7 @@ def preparation_sheet(
         if 0 < volumes[i, k] < min_pipette_ml
     )
     return PreparationSheet(plan.concentrations.copy(), amounts, table, float(final_volume_ml),
-                            float(min_pipette_ml), flags)
+                            float(min_pipette_ml), flags, tuple(pipettes), prepared)
 
 
 _FLOAT = "%.10g"  # ten significant figures: exact for prepared values, free of binary noise
@@ -214,9 +256,31 @@ def _write_atomic(path: str | os.PathLike[str], text: str) -> None:
         handle.write(text)
 
 
-def write_plan_csv(plan: CalibrationPlan, path: str | os.PathLike[str]) -> None:
-    """Write the plan's concentration table (``sample`` + one column per analyte) as CSV."""
-    _write_atomic(path, plan.concentrations.to_csv(float_format=_FLOAT))
+def write_plan_files(plan: CalibrationPlan, path: str | os.PathLike[str],
+                     sheet: PreparationSheet | None = None) -> list[Path]:
+    """Write the calibration and the validation mixtures as two concentration tables.
+
+    ``PLAN.csv`` gives ``PLAN-calibration.csv`` and (with validation mixtures)
+    ``PLAN-validation.csv``: ``sample`` + one column per analyte, exactly what ``bandsolve
+    build --concentrations`` and ``bandsolve assess --concentrations`` read, so they are used
+    as written. With a preparation sheet whose volumes were rounded to pipettes, the tables
+    hold the prepared concentrations.
+
+    Returns
+    -------
+    list of Path
+        The files written.
+    """
+    path = Path(path)
+    table = plan.concentrations if sheet is None else sheet.prepared_concentrations()
+    is_cal = np.asarray(plan.is_calibration)
+    written = []
+    for role, rows in (("calibration", is_cal), ("validation", ~is_cal)):
+        if rows.any():
+            target = path.with_name(f"{path.stem}-{role}.csv")
+            _write_atomic(target, table[rows].to_csv(float_format=_FLOAT))
+            written.append(target)
+    return written
 
 
 def write_preparation_csv(sheet: PreparationSheet, path: str | os.PathLike[str],
@@ -251,7 +315,8 @@ td.flag { background: #ffe9b3; font-weight: bold; }
 def preparation_html(sheet: PreparationSheet) -> str:
     """Printable, self-contained HTML page of the preparation sheet.
 
-    One table lists every mixture: target concentrations, stock volumes (mL, to 0.001 mL),
+    One table lists every mixture: target concentrations, stock volumes (mL, 4 significant
+    figures, or as the named pipettes deliver them),
     solvent, notes and a box to tick when the mixture is made. Volumes below the pipetting
     minimum are highlighted. The page opens with a note that the plan must be checked, the
     method validated, and hazardous chemicals handled under local safety rules.
@@ -267,8 +332,8 @@ def preparation_html(sheet: PreparationSheet) -> str:
         cells += [f"<td>{row[c]:.4g}</td>" for c in conc_cols]
         for stock in sheet.stocks:
             cls = ' class="flag"' if (sample, stock.name) in flagged else ""
-            cells.append(f"<td{cls}>{row[f'{stock.name} stock [mL]']:.3f}</td>")
-        cells.append(f"<td>{row['solvent [mL]']:.3f}</td>")
+            cells.append(f"<td{cls}>{row[f'{stock.name} stock [mL]']:.4g}</td>")
+        cells.append(f"<td>{row['solvent [mL]']:.4g}</td>")
         cells.append(f'<td class="notes">{esc(row["notes"])}</td><td>&#9744;</td>')
         rows.append("<tr>" + "".join(cells) + "</tr>")
     stocks = "".join(f"<li>{esc(s.name)}: {s.value:g} {esc(s.unit)}</li>" for s in sheet.stocks)
