@@ -19,9 +19,11 @@ fully predicted or listed as a failure with its reason.
 from __future__ import annotations
 
 import contextlib
+import itertools
 import os
+import warnings
 from collections.abc import Iterable, Iterator, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Protocol
 
@@ -29,8 +31,10 @@ import numpy as np
 import pandas as pd
 
 from bandsolve.calibration.model import EVAL_ROWS, Calibration, result_columns
-from bandsolve.errors import BandsolveError, DataError, FormatError
+from bandsolve.errors import BandsolveError, BandsolveWarning, DataError, FormatError
 from bandsolve.flags import FLAG_COLUMN
+from bandsolve.io._wide import RowBlock, cut_rows
+from bandsolve.io.csv_spectra import WideRows
 from bandsolve.io.single import expand_inputs
 from bandsolve.progress import ProgressCallback, step
 from bandsolve.spectra import SpectralSet
@@ -39,12 +43,9 @@ __all__ = ["EVAL_ROWS", "BatchFailure", "BatchResult", "BatchSummary",
            "predict_inputs", "predict_sets", "run_batch", "result_table_columns", "iter_array_sets",
            "evaluate_set"]
 
-#: File endings read from folders when no pattern is given.
-
-
-#: Text files at least this large, in the automatic layout, are streamed when their first
-#: lines read as a wide table; smaller files are read whole.
-STREAM_BYTES = 4 << 20
+#: Text of a wide table held by one task, at most (bytes), unless one evaluation block of
+#: :data:`EVAL_ROWS` rows is longer: memory is bounded by bytes, not by a count of rows.
+TASK_BYTES = 16 << 20
 
 DEFAULT_CHUNK = 10_000
 
@@ -99,44 +100,68 @@ def result_table_columns(model: Calibration) -> list[str]:
 
 
 # ---------------------------------------------------------------------- reading
-def _streamable(item: str, options: dict[str, Any]) -> bool:
-    """True when ``item`` can be streamed as a wide table with the same result as reading it."""
-    from bandsolve.io import read_spectra_text
+def _read_sets(item: str, options: dict[str, Any], stdin_text: str | None
+               ) -> Iterator[SpectralSet | WideRows]:
+    """The spectra of one input: blocks of rows still to parse for a wide text table (every
+    size alike), else whole spectral sets."""
+    from bandsolve.io import read_spectra, read_spectra_text
+    from bandsolve.io.csv_spectra import open_spectra_text
     from bandsolve.io.jcamp import JCAMP_SUFFIXES
-
-    path = Path(item)
-    if path.suffix.lower() in JCAMP_SUFFIXES or options.get("replicates") == "average":
-        return False
-    layout = options.get("layout", "auto")
-    if layout == "wide":
-        return True
-    if layout != "auto" or path.stat().st_size < STREAM_BYTES:
-        return False
-    with open(path, encoding="utf-8-sig", errors="replace") as handle:
-        head = "".join(line for _, line in zip(range(64), handle, strict=False))
-    read = {k: v for k, v in options.items() if k not in ("layout", "replicates")}
-    try:
-        auto = read_spectra_text(head, layout="auto", **read)
-        wide = read_spectra_text(head, layout="wide", **read)
-    except BandsolveError:
-        return False
-    return auto.sample_ids == wide.sample_ids and np.array_equal(auto.axis, wide.axis)
-
-
-def _read_sets(item: str, options: dict[str, Any], stdin_text: str | None,
-               chunk_size: int) -> Iterator[SpectralSet]:
-    from bandsolve.io import iter_spectra_chunks, read_spectra, read_spectra_text
 
     if item == "-":
         yield read_spectra_text(stdin_text or "", source="<stdin>", **options)
         return
     if not os.path.exists(item):
         raise DataError(f"{item}: no such file; check the path")
-    if not os.path.isdir(item) and _streamable(item, options):
-        stream = {k: options.get(k) for k in ("axis_unit", "quantity", "path_length_cm")}
-        yield from iter_spectra_chunks(item, chunk_size, **stream)
-    else:
+    path = Path(item)
+    if (path.is_dir() or path.suffix.lower() in JCAMP_SUFFIXES
+            or options.get("replicates") == "average"):
         yield read_spectra(item, **options)
+        return
+    stream = {k: v for k, v in options.items() if k != "replicates"}
+    with open_spectra_text(item, **stream) as opened:
+        if isinstance(opened, SpectralSet):
+            yield opened
+        else:
+            yield from opened
+
+
+def _tasks(parts: Iterator[SpectralSet | WideRows], chunk_size: int
+           ) -> Iterator[SpectralSet | WideRows]:
+    """Re-cut one input's parts into tasks of whole evaluation blocks."""
+    first = next(parts, None)
+    if first is None:
+        return
+    rest = itertools.chain([first], parts)
+    if isinstance(first, SpectralSet):
+        yield from _regroup(rest, _task_rows(chunk_size))
+        return
+    text = sum(len(b.data) for b in first.blocks)
+    bytes_per_row = max(text / max(len(first), 1), 1.0)
+    by_bytes = max(1, int(TASK_BYTES // (EVAL_ROWS * bytes_per_row))) * EVAL_ROWS
+    yield from _regroup_rows(rest, min(_task_rows(chunk_size), by_bytes))
+
+
+def _regroup_rows(parts: Iterable[WideRows], task_rows: int) -> Iterator[WideRows]:
+    """Blocks of rows re-cut into tasks of exactly ``task_rows`` rows (the last may be short);
+    only the block that straddles two tasks is copied."""
+    pending: list[RowBlock] = []
+    held, first, model_part = 0, True, None
+    for part in parts:
+        model_part = part
+        for block in part.blocks:
+            while held + len(block) >= task_rows:
+                need = task_rows - held
+                head, block = cut_rows(block, need) if need < len(block) else (block, None)
+                yield replace(part, blocks=(*pending, head), first=first)
+                first, pending, held = False, [], 0
+                if block is None:
+                    break
+            if block is not None and len(block):
+                pending.append(block)
+                held += len(block)
+    if held and model_part is not None:
+        yield replace(model_part, blocks=tuple(pending), first=first)
 
 
 def _rows(s: SpectralSet, start: int, stop: int) -> SpectralSet:
@@ -174,13 +199,43 @@ def evaluate_set(model: Calibration, spectra: SpectralSet) -> pd.DataFrame:
     return model.predict(spectra)
 
 
-def _task(model: Calibration, position: int, payload: SpectralSet | BatchFailure):
+def _task(model: Calibration, position: int, payload: SpectralSet | WideRows | BatchFailure):
+    """Parse (blocks of a wide table) and predict one task, in whichever process runs it.
+
+    Returns ``(position, results or failure, (line numbers of the rows or None, warnings))``;
+    warnings are handed back so that workers in other processes do not lose them.
+    """
     if isinstance(payload, BatchFailure):
-        return position, payload
+        return position, payload, None
     try:
-        return position, evaluate_set(model, payload)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", BandsolveWarning)
+            spectra = payload.spectra() if isinstance(payload, WideRows) else payload
+            frame = evaluate_set(model, spectra)
     except BandsolveError as exc:
-        return position, BatchFailure(payload.source or "", str(exc))
+        source = payload.table.source if isinstance(payload, WideRows) else payload.source
+        return position, BatchFailure(source or "", str(exc)), None
+    lines = payload.lines if isinstance(payload, WideRows) else None
+    return position, frame, (lines, [(str(w.message), w.category) for w in caught])
+
+
+def _checked(results, files: Sequence[str]):
+    """Results in order, with ids checked across each file's tasks and warnings passed on."""
+    from bandsolve.io._wide import IdGuard
+
+    guards: dict[int, IdGuard] = {}
+    for position, result, extra in results:
+        if extra is not None:
+            lines, caught = extra
+            for message, category in caught:
+                warnings.warn(message, category, stacklevel=2)
+            if lines is not None:
+                guard = guards.setdefault(position, IdGuard(files[position]))
+                try:
+                    guard.add(result["sample"].tolist(), lines)
+                except BandsolveError as exc:
+                    result = BatchFailure(files[position], str(exc))
+        yield position, result
 
 
 def iter_array_sets(values: np.ndarray, axis: np.ndarray, axis_unit: str, source: str,
@@ -212,7 +267,7 @@ def predict_sets(model: Calibration, sets: Iterable[SpectralSet],
     Each set must start an evaluation block (as made by :func:`iter_array_sets`). The first
     error stops the iteration.
     """
-    for _, result in _results(model, ((0, s) for s in sets), n_jobs):
+    for _, result in _checked(_results(model, ((0, s) for s in sets), n_jobs), [""]):
         if isinstance(result, BatchFailure):
             raise DataError(result.reason)
         yield result
@@ -220,14 +275,12 @@ def predict_sets(model: Calibration, sets: Iterable[SpectralSet],
 
 def _payloads(files: Sequence[str], options: dict[str, Any], stdin_text: str | None,
               chunk_size: int, skip: set[int]):
-    task_rows = _task_rows(chunk_size)
     for position, item in enumerate(files):
         try:
-            for spectra in _regroup(_read_sets(item, options, stdin_text, chunk_size),
-                                    task_rows):
+            for payload in _tasks(_read_sets(item, options, stdin_text), chunk_size):
                 if position in skip:
                     break
-                yield position, spectra
+                yield position, payload
         except (BandsolveError, OSError, UnicodeError) as exc:
             yield position, BatchFailure(item, str(exc))
 
@@ -309,7 +362,7 @@ def run_batch(model: Calibration, inputs: Sequence[str], sinks: Sequence[Sink], 
     payloads = _payloads(files, read_options or {}, stdin_text, chunk_size, failed)
     with _engine(scheduler):
         n_workers = -1 if scheduler and n_jobs == 1 else n_jobs
-        for position, result in _results(model, payloads, n_workers):
+        for position, result in _checked(_results(model, payloads, n_workers), files):
             if position in failed:
                 continue
             if position != current:

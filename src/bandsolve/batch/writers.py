@@ -7,6 +7,7 @@ an input that fails half-way leaves no rows behind and memory stays bounded.
 
 from __future__ import annotations
 
+import io
 import json
 import math
 import shutil
@@ -19,7 +20,7 @@ import pandas as pd
 from bandsolve.errors import FormatError
 from bandsolve.flags import FLAG_COLUMN
 
-__all__ = ["FORMATS", "open_writer", "format_for"]
+__all__ = ["FORMATS", "open_writer", "format_for", "csv_rows"]
 
 FORMATS = ("csv", "json", "parquet")
 _SPOOL_BYTES = 8 << 20
@@ -50,6 +51,49 @@ def format_for(out: str | None, fmt: str | None) -> str:
                       f"{', '.join('.' + f for f in FORMATS)} or add --format")
 
 
+def csv_rows(frame: pd.DataFrame) -> str:
+    """The rows of ``frame`` as CSV text without header (RFC 4180 quoting, empty for NaN).
+
+    Numbers are written in the shortest form that reads back to the same float, so a round
+    trip is exact. pyarrow's compiled writer is used when it is installed (about 8x faster
+    than ``DataFrame.to_csv``, measured in ``tests/benchmarks/bench_read.py``); otherwise
+    Python's ``repr`` per value, joined row by row (about 1.7x faster than ``to_csv``).
+    """
+    if not len(frame):
+        return ""
+    try:
+        import pyarrow as pa
+        import pyarrow.csv as pacsv
+    except ImportError:
+        return _csv_rows_python(frame)
+    table = pa.Table.from_pandas(frame, preserve_index=False)
+    text = [c for c in frame.columns if frame[c].dtype.kind not in "fiub"]
+    plain = not any(frame[c].astype(str).str.contains(r'[",\r\n]', regex=True).any()
+                    for c in text)
+    buffer = io.BytesIO()
+    pacsv.write_csv(table, buffer, pacsv.WriteOptions(
+        include_header=False, quoting_style="none" if plain else "needed"))
+    return buffer.getvalue().decode("utf-8")
+
+
+def _csv_rows_python(frame: pd.DataFrame) -> str:
+    columns = []
+    for name in frame.columns:
+        column = frame[name]
+        if column.dtype.kind == "f":
+            values = column.to_numpy()
+            columns.append(["" if v != v else repr(v) for v in values.tolist()])
+        else:
+            columns.append([_quoted(str(v)) for v in column.tolist()])
+    return "\n".join(map(",".join, zip(*columns, strict=True))) + "\n"
+
+
+def _quoted(text: str) -> str:
+    if any(ch in text for ch in ',"\r\n'):
+        return '"' + text.replace('"', '""') + '"'
+    return text
+
+
 class _TextWriter:
     """CSV (header once) or a JSON array of row objects, spooled per input."""
 
@@ -67,7 +111,7 @@ class _TextWriter:
 
     def write(self, frame: pd.DataFrame) -> None:
         if self.fmt == "csv":
-            frame.to_csv(self._spool, header=False, index=False)
+            self._spool.write(csv_rows(frame))
             return
         for record in frame.to_dict(orient="records"):
             clean = {k: (None if isinstance(v, float) and not math.isfinite(v) else v)

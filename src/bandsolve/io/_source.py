@@ -34,7 +34,7 @@ __all__ = ["MAX_LINE_BYTES", "BLOCK_BYTES", "Block", "TextSource"]
 #: characters per value is 2 MB.
 MAX_LINE_BYTES = 32 << 20
 #: Default size of a block of lines handed to a parser (bytes).
-BLOCK_BYTES = 8 << 20
+BLOCK_BYTES = 4 << 20
 _READ = 1 << 20
 _BOMS = ((codecs.BOM_UTF8, "utf-8-sig"), (codecs.BOM_UTF16_LE, "utf-16-le"),
          (codecs.BOM_UTF16_BE, "utf-16-be"))
@@ -78,6 +78,7 @@ class TextSource:
         self.encoding: str | None = None  # "utf-8" or "latin-1" once decided
         self._utf16: codecs.IncrementalDecoder | None = None
         self._first = True
+        self._eof = False
 
     def close(self) -> None:
         self._raw.close()
@@ -90,17 +91,24 @@ class TextSource:
 
     # ------------------------------------------------------------------ raw reading
     def _read(self, n: int) -> bytes:
+        """Up to ``n`` more bytes (transcoded from UTF-16 when so marked); sets ``_eof``."""
         try:
-            data = self._raw.read(n)
+            raw = self._raw.read(n)
         except OSError as exc:
             raise FormatError(f"{self.source}: cannot read the file ({exc.strerror or exc})"
                               ) from None
+        self._eof = not raw
         if self._first:
             self._first = False
-            data = self._start(data)
-        if self._utf16 is not None:
-            data = self._utf16.decode(data, final=not data).encode("utf-8")
-        return data
+            raw = self._start(raw)
+        if self._utf16 is None:
+            return raw
+        try:
+            return self._utf16.decode(raw, final=self._eof).encode("utf-8")
+        except UnicodeDecodeError:
+            raise FormatError(f"{where(self.source)}the file declares UTF-16 (by its byte-order "
+                              "mark) but holds bytes that are not UTF-16; save it again as "
+                              "UTF-8") from None
 
     def _start(self, data: bytes) -> bytes:
         for bom, name in _BOMS:
@@ -121,43 +129,29 @@ class TextSource:
 
     # ------------------------------------------------------------------ blocks
     def blocks(self) -> Iterator[Block]:
-        """Blocks of whole lines, in file order (see the module notes for the checks)."""
-        pending = b""
-        line = 1
+        """Blocks of whole lines, in file order (see the module notes for the checks).
+
+        A block ends at the last line end within ``budget`` bytes, or after its first line
+        when that line alone is longer.
+        """
+        data, line = b"", 1
         while True:
-            try:
-                chunk = self._read(max(self.budget - len(pending), _READ))
-            except UnicodeDecodeError:
-                raise FormatError(f"{where(self.source, row=line)}the file declares UTF-16 (by "
-                                  "its byte-order mark) but holds bytes that are not UTF-16; "
-                                  "save it again as UTF-8") from None
-            data = pending + chunk
-            if not data:
-                return
-            cut = data.rfind(b"\n") + 1 if chunk else len(data)
-            if cut == 0:
-                if len(data) > MAX_LINE_BYTES:
+            while not self._eof and (len(data) < self.budget or b"\n" not in data):
+                if len(data) > MAX_LINE_BYTES and b"\n" not in data:
                     raise FormatError(
                         f"{where(self.source, row=line)}the line is longer than "
                         f"{MAX_LINE_BYTES >> 20} MB without a line end; this is not a table "
                         "of spectra (check the file, or its line ends)"
                     )
-                pending = data
-                continue
-            if cut < len(data) and len(data) - cut > MAX_LINE_BYTES:
-                row = line + data.count(b"\n", 0, cut)
-                raise FormatError(
-                    f"{where(self.source, row=row)}the line is "
-                    f"longer than {MAX_LINE_BYTES >> 20} MB without a line end; this is not a "
-                    "table of spectra (check the file, or its line ends)"
-                )
-            block, pending = data[:cut], data[cut:]
-            if block:
-                self._check(block, line)
-                yield Block(block, line, unterminated=not chunk and not block.endswith(b"\n"))
-                line += block.count(b"\n")
-            if not chunk:
+                data += self._read(max(self.budget - len(data), _READ))
+            if not data:
                 return
+            cut = (data.rfind(b"\n", 0, self.budget) + 1 or data.find(b"\n") + 1
+                   or len(data))
+            block, data = data[:cut], data[cut:]
+            self._check(block, line)
+            yield Block(block, line, unterminated=not data and not block.endswith(b"\n"))
+            line += block.count(b"\n")
 
     def _check(self, block: bytes, line: int) -> None:
         if b"\x00" in block:

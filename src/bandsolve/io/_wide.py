@@ -126,19 +126,25 @@ def cut_rows(block: RowBlock, n: int) -> tuple[RowBlock, RowBlock]:
 
 
 # ---------------------------------------------------------------------- parsing
-def parse_rows(table: WideTable, block: RowBlock) -> tuple[np.ndarray, list[str]]:
-    """Values (n, p) and sample ids of the rows of ``block``.
+def parse_rows(table: WideTable, block: RowBlock, guard: IdGuard | None = None,
+               ) -> tuple[np.ndarray, list[str]]:
+    """Values (n, p) and stripped sample ids of the rows of ``block``.
+
+    The first problem in row order is reported, whatever the block boundaries: a cell that is
+    not a finite number, a row with the wrong number of cells, an empty id, or (with
+    ``guard``) an id met before.
 
     Raises
     ------
-    FormatError
-        Naming the row and column of the first cell that is not a finite number, or a row
-        with the wrong number of cells.
+    FormatError, DataError
+        Naming the row (and the column, for a cell) and how to fix it.
     """
     parsed = _compiled(table, block)
-    if parsed is not None:
+    if parsed is not None and all(parsed[1]):
+        if guard is not None:
+            guard.add(parsed[1], block.lines)
         return parsed
-    return _careful(table, block)
+    return _careful(table, block, guard)
 
 
 def _compiled(table: WideTable, block: RowBlock) -> tuple[np.ndarray, list[str]] | None:
@@ -150,30 +156,46 @@ def _compiled(table: WideTable, block: RowBlock) -> tuple[np.ndarray, list[str]]
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             frame = pd.read_csv(
-                io.BytesIO(block.data), engine="c", header=None, names=range(table.width),
-                index_col=False, sep=r"\s+" if dialect.delimiter is None else dialect.delimiter,
+                io.BytesIO(block.data), engine="c", header=None,
+                sep=r"\s+" if dialect.delimiter is None else dialect.delimiter,
                 decimal=dialect.decimal, quotechar='"', doublequote=True,
                 skipinitialspace=True, na_filter=False, dtype=dtypes, encoding=block.encoding,
                 skip_blank_lines=False, low_memory=False)
     except (ValueError, TypeError, UnicodeError, pd.errors.ParserError):
         return None
-    if len(frame) != len(block):
+    if frame.shape != (len(block), table.width):
         return None
     values = frame.iloc[:, 1:].to_numpy(dtype=np.float64)
     if not np.isfinite(values).all():
         return None
-    return values, frame[0].tolist()
+    return values, [str(s).strip() for s in frame[0].tolist()]
 
 
-def _careful(table: WideTable, block: RowBlock) -> tuple[np.ndarray, list[str]]:
-    texts = [data_text(t) for t in block.data.decode(block.encoding).split("\n")]
-    numbered = zip(block.lines.tolist(), texts, strict=False)
-    rows = split_rows(numbered, table.dialect, table.width, table.source)
-    values = np.empty((len(rows), len(table.names)))
-    for k, r in enumerate(rows):
-        values[k] = to_numbers(r.cells[1:], table.dialect, source=table.source, line=r.line,
-                               names=table.names, sample=r.cells[0] or None)
-    return values, [r.cells[0] for r in rows]
+def _careful(table: WideTable, block: RowBlock, guard: IdGuard | None
+             ) -> tuple[np.ndarray, list[str]]:
+    """Row by row with the careful parser; the ids before a failing row are checked for
+    repeats first, so the error reported is the first in row order."""
+    texts = block.data.decode(block.encoding).split("\n")
+    lines = block.lines.tolist()
+    values, ids, failure = [], [], None
+    for line, text in zip(lines, texts, strict=False):
+        try:
+            row = split_rows([(line, data_text(text))], table.dialect, table.width,
+                             table.source)[0]
+            values.append(to_numbers(row.cells[1:], table.dialect, source=table.source,
+                                     line=line, names=table.names, sample=row.cells[0] or None))
+            if not row.cells[0].strip():
+                raise FormatError(f"{where(table.source)}row {line} has an empty sample id; "
+                                  "give it an id")
+        except FormatError as exc:
+            failure = exc
+            break
+        ids.append(row.cells[0].strip())
+    if guard is not None:
+        guard.add(ids, block.lines[:len(ids)])
+    if failure is not None:
+        raise failure
+    return np.array(values).reshape(len(ids), len(table.names)), ids
 
 
 # ---------------------------------------------------------------------- repeated ids
@@ -199,12 +221,12 @@ class IdGuard:
         self._runs: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []
 
     def add(self, ids: Sequence[str], lines: np.ndarray) -> None:
-        """Record the (stripped) ids of consecutive rows; raise on the first repeat."""
+        """Record the stripped ids of consecutive rows; raise on the first repeat."""
         from pandas.util import hash_array
 
         if not len(ids):
             return
-        keys = np.array([s.strip() for s in ids], dtype=object)
+        keys = np.array(ids, dtype=object)
         h1, h2 = (hash_array(keys, hash_key=k, categorize=False) for k in _HASH_KEYS)
         lines = np.asarray(lines, dtype=np.int64)
         order = np.argsort(h1, kind="stable")

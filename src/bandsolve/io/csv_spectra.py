@@ -30,6 +30,7 @@ yielded some chunks before its error is found.
 
 from __future__ import annotations
 
+import contextlib
 import itertools
 import warnings
 from collections.abc import Iterator
@@ -43,13 +44,21 @@ from bandsolve.errors import BandsolveWarning, FormatError, where
 from bandsolve.io._build import Options, build, final_checks, options_from_file
 from bandsolve.io._layouts import PARSERS, detect_layout
 from bandsolve.io._source import BLOCK_BYTES, Block, TextSource, as_source
-from bandsolve.io._text import Dialect, data_lines, data_text, read_meta, sniff, split_rows
-from bandsolve.io._wide import IdGuard, WideTable, header_of, parse_rows, row_blocks
+from bandsolve.io._text import (
+    Dialect,
+    data_lines,
+    data_text,
+    is_number,
+    read_meta,
+    sniff,
+    split_rows,
+)
+from bandsolve.io._wide import IdGuard, RowBlock, WideTable, header_of, parse_rows, row_blocks
 from bandsolve.io.atomic import atomic_write
 from bandsolve.spectra import SpectralSet
 
 __all__ = ["LAYOUTS", "HEAD_LINES", "read_spectra_text", "read_spectra_file",
-           "iter_spectra_chunks", "write_spectra_csv"]
+           "iter_spectra_chunks", "open_spectra_text", "WideRows", "write_spectra_csv"]
 
 LAYOUTS = ("auto", "wide", "transposed", "long", "single")
 #: Data lines read to choose the delimiter, the decimal mark and the layout.
@@ -93,11 +102,30 @@ def _open(src: TextSource, layout: str, options: Options) -> _Opened:
             break
     source = src.source
     dialect = sniff([t for _, t in head], source)
+    _refuse_prose(head, dialect, source)
     rows = split_rows(head, dialect, None, source)
     filled = options_from_file(options, meta, source)
     if layout == "auto":
         layout = detect_layout(rows, dialect, source)
     return _Opened(src, layout, dialect, filled, head, itertools.chain(taken, blocks))
+
+
+def _refuse_prose(head: list[tuple[int, str]], dialect: Dialect, source: str) -> None:
+    """A file without a single number below its first line is a note, not a table."""
+    for _, text in head[1:]:
+        try:
+            cells = dialect.split(text)
+        except ValueError:
+            continue
+        if any(is_number(c, dialect.decimal) for c in cells):
+            return
+    if len(head) > 1:
+        raise FormatError(
+            f"{where(source)}no numbers in the first {len(head)} lines below the first one, "
+            "so this is not a table of spectra (a note or another document?); move it out of "
+            "the folder or choose the spectra files by a pattern (--glob on the command line, "
+            "pattern= in Python)"
+        )
 
 
 def _lines(block: Block, src: TextSource) -> Iterator[tuple[int, str]]:
@@ -198,9 +226,7 @@ def _wide_parts(opened: _Opened, table: WideTable, guard: bool = True
     ids_seen = IdGuard(opened.src.source) if guard else None
     last = None
     for block in row_blocks(opened.blocks, opened.src, table.header_line):
-        values, ids = parse_rows(table, block)
-        if ids_seen is not None:
-            ids_seen.add(ids, block.lines)
+        values, ids = parse_rows(table, block, ids_seen)
         last = block
         yield values, ids, block.lines
     if last is not None and last.unterminated:
@@ -217,6 +243,69 @@ def warn_unterminated(source: str, line: int) -> None:
 
 
 # ---------------------------------------------------------------------- streaming
+@dataclass(frozen=True)
+class WideRows:
+    """Rows of a wide table still to parse, as consecutive blocks: what a parallel worker
+    needs (picklable)."""
+
+    table: WideTable
+    options: Options
+    blocks: tuple[RowBlock, ...]
+    first: bool = False
+
+    def __len__(self) -> int:
+        return sum(len(b) for b in self.blocks)
+
+    @property
+    def lines(self) -> np.ndarray:
+        """File line number of each row."""
+        return np.concatenate([b.lines for b in self.blocks])
+
+    def spectra(self) -> SpectralSet:
+        """The rows as spectra (ids not checked against other blocks: see :class:`IdGuard`);
+        the first block of a file also gets the warnings of :func:`final_checks`."""
+        values = np.empty((len(self), self.table.axis.size))
+        ids: list[str] = []
+        for block in self.blocks:  # one block at a time: the parser's memory stays small
+            part, names = parse_rows(self.table, block)
+            values[len(ids):len(ids) + len(names)] = part
+            ids.extend(names)
+        spectra = build(self.table.axis, values, ids,
+                        [f"row {n}" for n in self.lines.tolist()], self.options,
+                        self.table.source, unit_from=_unit_from(self.options))
+        return final_checks(spectra) if self.first else spectra
+
+
+@contextlib.contextmanager
+def open_spectra_text(file: str | Path | BinaryIO, *, layout: str = "auto",
+                      axis_unit: str | None = None, quantity: str | None = None,
+                      path_length_cm: float | None = None, source: str | None = None,
+                      budget: int = BLOCK_BYTES) -> Iterator[Iterator[WideRows] | SpectralSet]:
+    """A text file of spectra opened for parallel parsing.
+
+    Gives an iterator of :class:`WideRows` (blocks of about ``budget`` bytes) for a wide
+    table, else the spectra of the file read whole. The caller parses the blocks (in any
+    process) and checks the ids across blocks with :class:`~bandsolve.io._wide.IdGuard`.
+    """
+    options = Options(axis_unit, quantity, path_length_cm)
+    with TextSource(file, source, budget) as src:
+        opened = _open(src, layout, options)
+        if opened.layout != "wide":
+            yield _read_rest(opened)
+            return
+        table = opened.wide_table()
+
+        def blocks() -> Iterator[WideRows]:
+            last = None
+            for k, block in enumerate(row_blocks(opened.blocks, src, table.header_line)):
+                last = block
+                yield WideRows(table, opened.options, (block,), first=k == 0)
+            if last is not None and last.unterminated:
+                warn_unterminated(src.source, int(last.lines[-1]))
+
+        yield blocks()
+
+
 def iter_spectra_chunks(file: str | Path | BinaryIO, chunk_size: int, *,
                         layout: str = "auto", axis_unit: str | None = None,
                         quantity: str | None = None, path_length_cm: float | None = None,

@@ -1,0 +1,166 @@
+"""Benchmark: ``bandsolve predict`` on a large wide CSV against what a user would do by hand.
+
+Run on demand (not collected by pytest)::
+
+    /work/main/.venv/bin/python tests/benchmarks/bench_read.py [--n 200000] [--p 300]
+        [--sizes 50000,200000] [--jobs 1,2] [--repeats 2]
+
+For each file size it writes a wide CSV of n simulated spectra × p wavelengths (4 overlapping
+bands, 5 decimals, about 2.4 kB per row: 200,000 rows is ~480 MB), builds a CLS model on 60
+mixtures, then times, each in its own child process (wall clock, and peak resident memory of
+that process from ``wait4``):
+
+* **bandsolve**: ``bandsolve predict MODEL FILE --out results.csv`` (``--jobs`` as given),
+  the whole command: start-up, reading with every check, prediction with diagnostics and
+  flags, the results file written atomically;
+* **by hand**: ``pandas.read_csv`` of the same file, ``Calibration.predict`` on the array,
+  and the results written by ``pyarrow.csv.write_csv`` (the fastest CSV writer at hand);
+
+and prints the ratio (target: within 1.5x) and the peak memory (target: under 400 MB
+whatever the file size). It also times a ``.npy`` spectral image of the same spectra
+(``predict`` writing maps) against ``numpy.load`` + ``predict`` + ``numpy.save``.
+Numbers depend on the machine's load: the two sides are run alternately, best of
+``--repeats``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import subprocess
+import sys
+import tempfile
+import textwrap
+import time
+from pathlib import Path
+
+import numpy as np
+
+from bandsolve.calibration.build import build_cls
+from bandsolve.calibration.modelfile import save_model
+from bandsolve.concentrations import ConcentrationTable
+from bandsolve.spectra import SpectralSet
+
+BY_HAND = textwrap.dedent("""
+    import sys, numpy as np, pandas as pd, pyarrow as pa, pyarrow.csv as pacsv
+    from bandsolve.calibration.modelfile import load_model
+    from bandsolve.spectra import SpectralSet
+    model, path, out = load_model(sys.argv[1]), sys.argv[2], sys.argv[3]
+    frame = pd.read_csv(path, index_col=0)
+    spectra = SpectralSet(axis=frame.columns.astype(float).to_numpy(), values=frame.to_numpy(),
+                          sample_ids=frame.index.astype(str).tolist(), source=path)
+    del frame
+    results = model.predict(spectra)
+    pacsv.write_csv(pa.Table.from_pandas(results, preserve_index=False), out)
+""")
+
+NPY_BY_HAND = textwrap.dedent("""
+    import sys, numpy as np
+    from bandsolve.calibration.modelfile import load_model
+    model, path, out = load_model(sys.argv[1]), sys.argv[2], sys.argv[3]
+    cube = np.load(path, mmap_mode="r")
+    flat = cube.reshape(-1, cube.shape[-1])
+    maps = np.vstack([model.detail(np.asarray(flat[i:i + 16384])).concentrations
+                      for i in range(0, flat.shape[0], 16384)])
+    np.save(out, maps.reshape(cube.shape[0], cube.shape[1], -1))
+""")
+
+
+def bands(p: int) -> tuple[np.ndarray, np.ndarray]:
+    axis = np.linspace(400.0, 700.0, p)
+    return axis, np.vstack([np.exp(-0.5 * ((axis - c) / 40) ** 2) for c in (450, 500, 560, 620)])
+
+
+def make_model(axis, pure, rng, path: Path) -> None:
+    C = rng.uniform(0.1, 1.0, (60, 4))
+    X = C @ pure + 0.002 * rng.standard_normal((60, axis.size))
+    ids = [f"cal{i}" for i in range(60)]
+    table = ConcentrationTable(ids, tuple(f"dye {k} [mg/L]" for k in "ABCD"), C)
+    save_model(build_cls(SpectralSet(axis=axis, values=X, sample_ids=ids), table), path)
+
+
+def write_csv(path: Path, axis, pure, n: int, rng) -> None:
+    """A wide CSV: 2,000 simulated spectra formatted once, cycled under distinct ids (the
+    parsing cost is that of distinct values; only the writing is shortened)."""
+    X = rng.uniform(0.05, 0.5, (2000, 4)) @ pure + 0.002 * rng.standard_normal((2000, axis.size))
+    pool = [",".join(f"{v:.5f}" for v in row) for row in X]
+    with open(path, "w") as handle:
+        handle.write("sample," + ",".join(f"{a:.4f}" for a in axis) + "\n")
+        for start in range(0, n, 10_000):
+            handle.write("".join(f"x{i},{pool[i % 2000]}\n"
+                                 for i in range(start, min(start + 10_000, n))))
+
+
+def run(cmd: list[str]) -> tuple[float, float]:
+    """Wall time (s) and peak resident memory (MB) of one child process."""
+    start = time.perf_counter()
+    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    _, status, usage = os.wait4(proc.pid, 0)
+    elapsed = time.perf_counter() - start
+    err = proc.stderr.read().decode() if proc.stderr else ""
+    if os.waitstatus_to_exitcode(status) != 0:
+        raise SystemExit(f"{' '.join(cmd)} failed: {err}")
+    return elapsed, usage.ru_maxrss / 1024
+
+
+def best(cmds: dict[str, list[str]], repeats: int) -> dict[str, tuple[float, float]]:
+    out: dict[str, tuple[float, float]] = {}
+    for _ in range(repeats):
+        for name, cmd in cmds.items():
+            t, mb = run(cmd)
+            if name not in out or t < out[name][0]:
+                out[name] = (t, max(mb, out.get(name, (0, 0))[1]))
+    return out
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--p", type=int, default=300)
+    parser.add_argument("--sizes", default="50000,200000")
+    parser.add_argument("--jobs", default="1,2")
+    parser.add_argument("--repeats", type=int, default=2)
+    parser.add_argument("--no-npy", action="store_true")
+    args = parser.parse_args()
+    rng = np.random.default_rng(7)
+    axis, pure = bands(args.p)
+    py = sys.executable
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        model = folder / "model.bsm"
+        make_model(axis, pure, rng, model)
+        for n in (int(s) for s in args.sizes.split(",")):
+            data = folder / f"wide{n}.csv"
+            write_csv(data, axis, pure, n, rng)
+            size = data.stat().st_size / 1e6
+            cmds = {"by hand": [py, "-c", BY_HAND, str(model), str(data), str(folder / "h.csv")]}
+            for jobs in args.jobs.split(","):
+                cmds[f"bandsolve --jobs {jobs}"] = [
+                    py, "-m", "bandsolve.cli", "predict", str(model), str(data), "--out",
+                    str(folder / f"r{jobs}.csv"), "--quiet", "--jobs", jobs]
+            times = best(cmds, args.repeats)
+            base = times["by hand"][0]
+            print(f"\n{n} spectra x {args.p} points, {size:.0f} MB CSV")
+            for name, (t, mb) in times.items():
+                print(f"  {name:20s} {t:7.2f} s  {t / base:5.2f}x by hand   peak {mb:6.0f} MB")
+            data.unlink()
+            if args.no_npy or n != max(int(s) for s in args.sizes.split(",")):
+                continue
+            rows = n // 500
+            cube = folder / "image.npy"
+            X = rng.uniform(0.05, 0.5, (rows * 500, 4)) @ pure
+            np.save(cube, X.reshape(rows, 500, args.p))
+            del X
+            cmds = {"by hand": [py, "-c", NPY_BY_HAND, str(model), str(cube),
+                                str(folder / "maps.npy")],
+                    "bandsolve": [py, "-m", "bandsolve.cli", "predict", str(model), str(cube),
+                                  "--out", str(folder / "maps")]}
+            times = best(cmds, args.repeats)
+            base = times["by hand"][0]
+            print(f"\n.npy spectral image {rows} x 500 x {args.p}")
+            for name, (t, mb) in times.items():
+                print(f"  {name:20s} {t:7.2f} s  {t / base:5.2f}x by hand   peak {mb:6.0f} MB")
+            cube.unlink()
+
+
+if __name__ == "__main__":
+    main()
