@@ -78,7 +78,7 @@ def test_latin1_ids_stay_distinct_and_mixed_encodings_are_refused(tmp_path):
     mixed = tmp_path / "mixed.csv"
     mixed.write_bytes("sample,400\nµ1,1\n".encode() + "µ2,2\n".encode("latin-1"))
     for read in (lambda: read_spectra(mixed), lambda: list(iter_spectra_chunks(mixed, 1))):
-        with pytest.raises(FormatError, match="row 3: .*mixes text encodings"):
+        with pytest.raises(FormatError, match=r"row 3: .*mixes text encodings"):
             read()
 
 

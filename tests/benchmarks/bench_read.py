@@ -113,6 +113,13 @@ def best(cmds: dict[str, list[str]], repeats: int) -> dict[str, tuple[float, flo
     return out
 
 
+def report(title: str, times: dict[str, tuple[float, float]]) -> None:
+    base = times["by hand"][0]
+    print(f"\n{title}")
+    for name, (t, mb) in times.items():
+        print(f"  {name:20s} {t:7.2f} s  {t / base:5.2f}x by hand   peak {mb:6.0f} MB")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--p", type=int, default=300)
@@ -137,11 +144,7 @@ def main() -> None:
                 cmds[f"bandsolve --jobs {jobs}"] = [
                     py, "-m", "bandsolve.cli", "predict", str(model), str(data), "--out",
                     str(folder / f"r{jobs}.csv"), "--quiet", "--jobs", jobs]
-            times = best(cmds, args.repeats)
-            base = times["by hand"][0]
-            print(f"\n{n} spectra x {args.p} points, {size:.0f} MB CSV")
-            for name, (t, mb) in times.items():
-                print(f"  {name:20s} {t:7.2f} s  {t / base:5.2f}x by hand   peak {mb:6.0f} MB")
+            report(f"{n} spectra x {args.p} points, {size:.0f} MB CSV", best(cmds, args.repeats))
             data.unlink()
             if args.no_npy or n != max(int(s) for s in args.sizes.split(",")):
                 continue
@@ -154,11 +157,7 @@ def main() -> None:
                                 str(folder / "maps.npy")],
                     "bandsolve": [py, "-m", "bandsolve.cli", "predict", str(model), str(cube),
                                   "--out", str(folder / "maps")]}
-            times = best(cmds, args.repeats)
-            base = times["by hand"][0]
-            print(f"\n.npy spectral image {rows} x 500 x {args.p}")
-            for name, (t, mb) in times.items():
-                print(f"  {name:20s} {t:7.2f} s  {t / base:5.2f}x by hand   peak {mb:6.0f} MB")
+            report(f".npy spectral image {rows} x 500 x {args.p}", best(cmds, args.repeats))
             cube.unlink()
 
 

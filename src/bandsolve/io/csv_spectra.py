@@ -75,6 +75,7 @@ class _Opened:
     options: Options
     head: list
     blocks: Iterator[Block]
+    unit_from: str
 
     def wide_table(self) -> WideTable:
         return header_of(split_rows(self.head[:2], self.dialect, None, self.src.source),
@@ -107,7 +108,8 @@ def _open(src: TextSource, layout: str, options: Options) -> _Opened:
     filled = options_from_file(options, meta, source)
     if layout == "auto":
         layout = detect_layout(rows, dialect, source)
-    return _Opened(src, layout, dialect, filled, head, itertools.chain(taken, blocks))
+    return _Opened(src, layout, dialect, filled, head, itertools.chain(taken, blocks),
+                   "argument" if options.axis_unit else "file")
 
 
 def _refuse_prose(head: list[tuple[int, str]], dialect: Dialect, source: str) -> None:
@@ -201,11 +203,7 @@ def _read_whole(src: TextSource, layout: str, options: Options) -> SpectralSet:
     ids = [s for _, part, _ in parts for s in part]
     places = [f"row {n}" for _, _, lines in parts for n in lines.tolist()]
     return final_checks(build(table.axis, values, ids, places, opened.options, src.source,
-                              unit_from=_unit_from(options)))
-
-
-def _unit_from(options: Options) -> str:
-    return "argument" if options.axis_unit else "file"
+                              unit_from=opened.unit_from))
 
 
 def _read_rest(opened: _Opened) -> SpectralSet:
@@ -217,18 +215,25 @@ def _read_rest(opened: _Opened) -> SpectralSet:
     rows = split_rows(numbered, opened.dialect, None, src.source)
     axis, values, ids, places = PARSERS[opened.layout](rows, opened.dialect, src.source)
     return final_checks(build(axis, values, ids, places, opened.options, src.source,
-                              unit_from=_unit_from(opened.options)))
+                              unit_from=opened.unit_from))
 
 
 def _wide_parts(opened: _Opened, table: WideTable, guard: bool = True
                 ) -> Iterator[tuple[np.ndarray, list[str], np.ndarray]]:
     """Values, ids and line numbers of a wide table's rows, block by block."""
     ids_seen = IdGuard(opened.src.source) if guard else None
+    for block in _row_blocks(opened, table):
+        values, ids = parse_rows(table, block, ids_seen)
+        yield values, ids, block.lines
+
+
+def _row_blocks(opened: _Opened, table: WideTable) -> Iterator[RowBlock]:
+    """The data rows below the header, in blocks; warns at the end when the last line of the
+    file has no line end."""
     last = None
     for block in row_blocks(opened.blocks, opened.src, table.header_line):
-        values, ids = parse_rows(table, block, ids_seen)
         last = block
-        yield values, ids, block.lines
+        yield block
     if last is not None and last.unterminated:
         warn_unterminated(opened.src.source, int(last.lines[-1]))
 
@@ -251,6 +256,7 @@ class WideRows:
     table: WideTable
     options: Options
     blocks: tuple[RowBlock, ...]
+    unit_from: str = "file"
     first: bool = False
 
     def __len__(self) -> int:
@@ -272,7 +278,7 @@ class WideRows:
             ids.extend(names)
         spectra = build(self.table.axis, values, ids,
                         [f"row {n}" for n in self.lines.tolist()], self.options,
-                        self.table.source, unit_from=_unit_from(self.options))
+                        self.table.source, unit_from=self.unit_from)
         return final_checks(spectra) if self.first else spectra
 
 
@@ -295,15 +301,8 @@ def open_spectra_text(file: str | Path | BinaryIO, *, layout: str = "auto",
             return
         table = opened.wide_table()
 
-        def blocks() -> Iterator[WideRows]:
-            last = None
-            for k, block in enumerate(row_blocks(opened.blocks, src, table.header_line)):
-                last = block
-                yield WideRows(table, opened.options, (block,), first=k == 0)
-            if last is not None and last.unterminated:
-                warn_unterminated(src.source, int(last.lines[-1]))
-
-        yield blocks()
+        yield (WideRows(table, opened.options, (block,), opened.unit_from, first=k == 0)
+               for k, block in enumerate(_row_blocks(opened, table)))
 
 
 def iter_spectra_chunks(file: str | Path | BinaryIO, chunk_size: int, *,
@@ -325,20 +324,23 @@ def iter_spectra_chunks(file: str | Path | BinaryIO, chunk_size: int, *,
     """
     if not isinstance(chunk_size, int) or chunk_size < 1:
         raise FormatError(f"chunk_size must be a positive whole number, got {chunk_size!r}")
-    options = Options(axis_unit, quantity, path_length_cm)
-    with TextSource(file, source, budget) as src:
-        opened = _open(src, layout, options)
-        if opened.layout != "wide":
-            yield _read_rest(opened)
+    with open_spectra_text(file, layout=layout, axis_unit=axis_unit, quantity=quantity,
+                           path_length_cm=path_length_cm, source=source,
+                           budget=budget) as opened:
+        if isinstance(opened, SpectralSet):
+            yield opened
             return
-        table = opened.wide_table()
-        first = True
-        for values, ids, lines in _wide_parts(opened, table):
+        guard, first = None, True
+        for rows in opened:
+            table = rows.table
+            guard = guard or IdGuard(table.source)
+            values, ids = parse_rows(table, rows.blocks[0], guard)
+            lines = rows.lines
             for start in range(0, len(ids), chunk_size):
                 stop = start + chunk_size
                 chunk = build(table.axis, values[start:stop], ids[start:stop],
-                              [f"row {n}" for n in lines[start:stop].tolist()], opened.options,
-                              src.source, unit_from=_unit_from(options))
+                              [f"row {n}" for n in lines[start:stop].tolist()], rows.options,
+                              table.source, unit_from=rows.unit_from)
                 yield final_checks(chunk) if first else chunk
                 first = False
 
