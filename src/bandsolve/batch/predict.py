@@ -2,13 +2,17 @@
 
 How a batch runs
 ----------------
-Inputs are read one after another; wide CSV files are streamed ``chunk_size`` spectra at a
-time (:func:`bandsolve.io.iter_spectra_chunks`), other files are read whole. Spectra are
-regrouped into tasks of whole *evaluation blocks* of :data:`EVAL_ROWS` rows counted from the
-first spectrum of each input, and tasks are predicted in parallel with joblib (threads,
-processes, or a ``dask.distributed`` cluster). Because every spectrum is always evaluated in
-the same block, the numbers are bit-identical whatever the chunk size, the number of jobs or
-the engine (matrix products give last-digit differences when the row grouping changes).
+Inputs are read one after another. A wide text table (any size) is cut into blocks of whole
+lines (:func:`bandsolve.io.csv_spectra.open_spectra_text`) that are parsed inside the tasks,
+so with several jobs the parsing runs in the worker processes; other files are read whole.
+Rows are regrouped into tasks of whole *evaluation blocks* of :data:`EVAL_ROWS` rows counted
+from the first spectrum of each input (at most ``chunk_size`` spectra and about
+:data:`TASK_BYTES` of text), and tasks are predicted in parallel with joblib (threads,
+processes, or a ``dask.distributed`` cluster). Ids are checked for repeats across all the
+tasks of a file, in input order, as the whole-file reader does. Because every spectrum is
+always evaluated in the same block, the numbers are bit-identical whatever the chunk size, the
+number of jobs or the engine (matrix products give last-digit differences when the row
+grouping changes).
 
 Results leave in input order through *sinks* (an output file, a results ledger, an in-memory
 table). Each sink keeps an input's rows aside until the whole input has been predicted, so a
@@ -331,7 +335,9 @@ def run_batch(model: Calibration, inputs: Sequence[str], sinks: Sequence[Sink], 
     read_options : dict, optional
         Keyword arguments of :func:`bandsolve.io.read_spectra`.
     chunk_size : int
-        Spectra read at a time from a streamed file (memory is bounded by it).
+        Most spectra per task (rounded up to whole evaluation blocks); a task of a wide text
+        file also holds at most about :data:`TASK_BYTES` of text, so memory is bounded by
+        bytes.
     n_jobs : int
         Parallel joblib workers (-1: all cores). Results do not depend on it.
     scheduler : str, optional

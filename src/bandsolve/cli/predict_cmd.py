@@ -25,7 +25,8 @@ examples:
       --ledger results.sqlite --batch 2025-03-01 --operator am
   bandsolve predict models/rinse-cls.bsm image.npy --out maps/
 
-Large wide CSV files are streamed --chunk-size spectra at a time; the numbers never depend
+Wide CSV files are read in blocks of a few MB (memory does not grow with the file) and
+parsed inside the parallel tasks of at most --chunk-size spectra; the numbers never depend
 on --chunk-size, --jobs or --scheduler. An input that fails contributes no rows.
 A .npy input is a spectral image (rows x columns x wavelengths, absorbance): --out names a
 folder that receives one concentration map per analyte and a flag map (see bandsolve.batch.images).
@@ -64,7 +65,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     run.add_argument("--jobs", type=int, default=1, metavar="N",
                      help="parallel workers (-1: all cores; default 1)")
     run.add_argument("--chunk-size", type=_positive, default=DEFAULT_CHUNK, metavar="N",
-                     help=f"spectra read at a time from large files (default {DEFAULT_CHUNK})")
+                     help=f"most spectra per parallel task (default {DEFAULT_CHUNK}; a task "
+                          "holds at most about 16 MB of text)")
     run.add_argument("--scheduler", metavar="ADDRESS",
                      help="run on an existing dask.distributed cluster (needs the dask extra)")
     led = p.add_argument_group("results ledger")
