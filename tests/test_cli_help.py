@@ -82,12 +82,11 @@ def test_rmsecv_table_keeps_full_labels_fits_100_columns_and_explains_p(tmp_path
     import dataclasses
 
     from bandsolve.calibration.modelfile import load_model
-    from bandsolve.cli.build_cmd import selection_table
 
     model, _ = _model(tmp_path, "pls")
     cal = load_model(model)
     long = tuple(f"4-nitrophenol isomer {i} [mg/L]" for i in range(len(cal.analytes)))
-    text = selection_table(dataclasses.replace(cal, analytes=long))
+    text = dataclasses.replace(cal, analytes=long).selection.curves(long)
     assert all(label in text for label in long)  # no header cut short
     assert max(len(line) for line in text.splitlines()) <= 100
     assert "- : not tested" in text

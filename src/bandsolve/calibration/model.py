@@ -379,6 +379,14 @@ class Calibration:
         """Number of analytes."""
         return len(self.analytes)
 
+    def summary(self) -> str:
+        """A readable results sheet: definition, calibrated ranges, component choice, limits,
+        figures of merit and notes (with the cautions); see :mod:`.summary`."""
+        from bandsolve.calibration.summary import format_summary
+
+        return format_summary(self.describe(), self.limits, self.selection, self.merit,
+                              f"Calibration: {self.kind.title}")
+
     def describe(self) -> dict[str, Any]:
         """JSON-friendly summary: method, analytes and ranges, axis, preprocessing, limits."""
         return {

@@ -216,6 +216,13 @@ class ComponentChoice:
             standard_error=opt("standard_error", float), threshold=opt("threshold", float)))
 
 
+def _p(value: float | None) -> str:
+    if value is None:
+        return "-"
+    # 0.001 is the smallest p-value 999 permutations can give: the true one may be smaller.
+    return "≤ 0.001" if value <= 0.001 else f"{value:.3f}"
+
+
 @dataclass(frozen=True)
 class Selection:
     """Component selection of a PLS calibration: one :class:`ComponentChoice` per model.
@@ -229,6 +236,44 @@ class Selection:
 
     mode: str
     models: tuple[ComponentChoice, ...]
+
+    def curves(self, analytes: tuple[str, ...], width: int = 100) -> str:
+        """The RMSECV curve of each model as a text table: full analyte labels, at most
+        ``width`` characters a line, the chosen count marked ``*``, p-values explained.
+
+        Parameters
+        ----------
+        analytes : tuple of str
+            The calibration's analyte labels (one model for all, or one per analyte).
+        """
+        blocks = []
+        for i, c in enumerate(self.models):
+            names = list(analytes) if len(self.models) == 1 else [analytes[i]]
+            rms = np.asarray(c.rmsecv, dtype=float)
+            widths = [max(10, len(a)) + 2 for a in names]
+            lines = [f"RMSECV by number of components ({c.rule}, chosen: {c.n_components})"]
+            start = 0
+            while start < len(names):  # as many analytes per block as fit in the width
+                stop = start + 1
+                while stop < len(names) and 5 + sum(widths[start:stop + 1]) + 10 <= width:
+                    stop += 1
+                pairs = list(zip(names[start:stop], widths[start:stop], strict=True))
+                lines.append("   A " + "".join(f"{a:>{w}}" for a, w in pairs)
+                             + ("   p-value" if c.pvalues else ""))
+                for j, a in enumerate(c.settings):
+                    mark = "*" if a == c.n_components else " "
+                    row = f" {mark}{a:>2} " + "".join(
+                        f"{v:>{w}.4g}" for v, w in zip(rms[j, start:stop], widths[start:stop],
+                                                       strict=True))
+                    lines.append(row + (f"  {_p(c.pvalues[j]):>8}" if c.pvalues else ""))
+                start = stop
+            if c.pvalues:
+                lines.append("p-value: randomization test of that count against the count with "
+                             "the lowest RMSECV")
+                lines.append("(van der Voet 1994); - : not tested (the count with the lowest "
+                             "RMSECV and larger counts).")
+            blocks.append("\n".join(lines))
+        return "\n\n".join(blocks)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary (inverse of :meth:`from_dict`)."""

@@ -5,8 +5,6 @@ from __future__ import annotations
 import argparse
 from typing import Any
 
-import numpy as np
-
 from bandsolve.calibration.build import (
     build_cls,
     build_cls_from_absorptivities,
@@ -16,7 +14,6 @@ from bandsolve.calibration.model import Calibration
 from bandsolve.calibration.modelfile import save_model
 from bandsolve.cli._common import (
     CV_HELP,
-    WIDTH,
     add_input_options,
     caution_text,
     eprint,
@@ -167,55 +164,11 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
                                  ceiling=args.ceiling, provenance=prov)
 
 
-def _p(value: float | None) -> str:
-    if value is None:
-        return "-"
-    # 0.001 is the smallest p-value 999 permutations can give: the true one may be smaller.
-    return "≤ 0.001" if value <= 0.001 else f"{value:.3f}"
-
-
-def selection_table(cal: Calibration) -> str:
-    """The RMSECV curve of each PLS model as a text table (full analyte labels, at most
-    :data:`WIDTH` characters a line), chosen count marked ``*``, p-values explained."""
-    models = cal.selection.models if cal.selection is not None else ()
-    blocks = []
-    for i, ev in enumerate(models):
-        names = list(cal.analytes) if len(models) == 1 else [cal.analytes[i]]
-        rms = np.asarray(ev.rmsecv, dtype=float)
-        pvals = ev.pvalues
-        widths = [max(10, len(a)) + 2 for a in names]
-        lines = [f"RMSECV by number of components ({ev.rule}, chosen: {ev.n_components})"]
-        start = 0
-        while start < len(names):  # as many analytes per block as fit in WIDTH columns
-            stop = start + 1
-            while stop < len(names) and 5 + sum(widths[start:stop + 1]) + 10 <= WIDTH:
-                stop += 1
-            lines.append("   A " + "".join(f"{a:>{w}}" for a, w in
-                                           zip(names[start:stop], widths[start:stop],
-                                               strict=True))
-                         + ("   p-value" if pvals else ""))
-            for j, a in enumerate(ev.settings):
-                mark = "*" if a == ev.n_components else " "
-                row = f" {mark}{a:>2} " + "".join(
-                    f"{v:>{w}.4g}" for v, w in zip(rms[j, start:stop], widths[start:stop],
-                                                   strict=True))
-                lines.append(row + (f"  {_p(pvals[j]):>8}" if pvals else ""))
-            start = stop
-        if pvals:
-            lines.append("p-value: randomization test of that count against the count with "
-                         "the lowest RMSECV")
-            lines.append("(van der Voet 1994); - : not tested (the count with the lowest RMSECV "
-                         "and larger counts).")
-        blocks.append("\n".join(lines))
-    return "\n\n".join(blocks)
-
-
 def run(args: argparse.Namespace) -> int:
     cal = build_from_args(args)
     checksum = save_model(cal, args.out)
-    table = selection_table(cal)
-    if table:
-        eprint(table)
+    if cal.selection is not None:
+        eprint(cal.selection.curves(cal.analytes))
     if cal.provenance.get("merit_note"):
         eprint(f"bandsolve: warning: {cal.provenance['merit_note']}")
     eprint(f"{cal.method.upper()} model for {len(cal.analytes)} analytes "
