@@ -61,7 +61,7 @@ def test_inspect_shows_limits_explains_abbreviations_and_fits_100_columns(method
     assert main(["inspect", str(model)]) == 0
     text = capsys.readouterr().out
     assert max(len(line) for line in text.splitlines()) <= 100  # common practice: 100 columns
-    assert "diagnostic limits" in text and "Hotelling T²" in text and "leverage" in text
+    assert "diagnostic limits" in text.lower() and "Hotelling T²" in text and "leverage" in text
     for words in ("SEN sensitivity", "LOD, LOQ detection and quantitation limits",
                   "univ. the best single wavelength", "validated for its intended use"):
         assert words in " ".join(text.split()), words
