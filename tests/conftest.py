@@ -7,7 +7,17 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-DATASETS = Path(__file__).resolve().parents[1].parent / "shared" / "datasets"
+
+def _datasets() -> Path:
+    """``shared/datasets`` beside the checkout (or beside any folder above it: worktrees)."""
+    here = Path(__file__).resolve().parents[1]
+    for folder in here.parents:
+        if (folder / "shared" / "datasets").is_dir():
+            return folder / "shared" / "datasets"
+    return here.parent / "shared" / "datasets"
+
+
+DATASETS = _datasets()
 
 
 def gaussian_bands(axis: np.ndarray, centres, widths) -> np.ndarray:

@@ -35,6 +35,7 @@ def test_version_loads_no_heavy_library():
     assert _loaded_after(code) == []
 
 
+@pytest.mark.slow
 def test_one_command_does_not_load_plotting():
     # `build --help` imports the build command only; the report command is the one that plots.
     code = ("from bandsolve.cli import main\n"

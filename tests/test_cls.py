@@ -87,6 +87,7 @@ def test_spread_matches_noise_limited_covariance(three_bands):
                                / np.sqrt(reps) * 10)
 
 
+@pytest.mark.slow
 def test_prediction_intervals_cover_truth(three_bands):
     # 95 % intervals from the reported SE (METHODS §1: s²(1+h)(KKᵀ)⁻¹ with a t quantile) must
     # cover the truth 95 % ± 2 % of the time on simulated data (coverage definition).

@@ -76,6 +76,7 @@ def test_pvalues_are_small_when_one_method_is_clearly_better():
         assert np.all(stat > 0) and np.all(p_holm < 0.01) and np.all(p_holm >= p)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("smooth", [1, 5])
 def test_residual_structure_reference_is_valid_for_regression_residuals(smooth):
     rng = np.random.default_rng(23 + smooth)
@@ -116,6 +117,7 @@ def test_clean_data_do_not_favour_pls_and_folds_are_identical():
                                np.sqrt(np.mean((pls_pred - DESIGN) ** 2, axis=0)), rtol=1e-6)
 
 
+@pytest.mark.slow
 def test_unmodelled_absorber_leads_to_pls_with_the_evidence_named():
     rng = np.random.default_rng(25)
     spectra, table = _set(rng, DESIGN, "cal", interferent=True)
@@ -140,6 +142,7 @@ def test_unmodelled_absorber_leads_to_pls_with_the_evidence_named():
     assert "PLS" in result.summary() and json.dumps(result.to_dict())
 
 
+@pytest.mark.slow
 def test_command_line(tmp_path, capsys):
     rng = np.random.default_rng(26)
     spectra, table = _set(rng, DESIGN, "cal")

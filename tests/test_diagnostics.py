@@ -40,6 +40,7 @@ def _project(x: np.ndarray, mean: np.ndarray, loadings: np.ndarray):
     return t, x - mean - t @ loadings.T
 
 
+@pytest.mark.slow
 def test_limits_give_nominal_false_alarm_rate_on_new_samples():
     # Expected rate alpha = 0.05 for in-model samples: Hotelling T² exact F limit for a new
     # observation (Tracy, Young & Mason 1992); Q limits (Jackson & Mudholkar 1979; Box 1954).

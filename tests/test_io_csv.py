@@ -20,7 +20,7 @@ from bandsolve.io import (
 )
 from bandsolve.spectra import SpectralSet
 
-DATA = Path(__file__).resolve().parents[1] / ".." / "shared" / "datasets"
+from .conftest import dataset
 
 # Expected values below are the numbers typed into each hand-written file (common practice:
 # a reader must return what the file says).
@@ -230,6 +230,7 @@ _IDS = st.text(string.ascii_letters + string.digits + "-_ .", min_size=1, max_si
         st.data(),
     ))
 )
+@pytest.mark.slow
 def test_round_trip_write_read_is_exact(tmp_path, case):
     ids, axis, data = case
     axis = np.sort(np.array(axis))
@@ -249,9 +250,7 @@ def test_round_trip_write_read_is_exact(tmp_path, case):
 
 
 def test_real_three_aromatics_spectra():
-    path = DATA / "three-aromatics-ethanol" / "standards_spectra.csv"
-    if not path.exists():
-        pytest.skip("shared dataset not present")
+    path = dataset("three-aromatics-ethanol") / "standards_spectra.csv"
     s = read_spectra(path)
     # 220-600 nm at 1 nm steps, 15 spectra (dataset SOURCE.md)
     assert (s.axis[0], s.axis[-1], s.n_points, s.n_samples) == (220.0, 600.0, 381, 15)

@@ -84,12 +84,14 @@ _INPUT = st.one_of(st.binary(max_size=300), _text(_CSV_PIECES).map(str.encode),
                    st.text(max_size=200).map(lambda t: t.encode("utf-8", "surrogatepass")))
 
 
+@pytest.mark.slow
 @FUZZ
 @given(_INPUT)
 def test_text_spectra_reader(data):
     _check(read_spectra, data, ".csv")
 
 
+@pytest.mark.slow
 @FUZZ
 @given(_INPUT, st.sampled_from(["wide", "transposed", "long", "single"]))
 def test_text_spectra_reader_each_layout(data, layout):
@@ -103,6 +105,7 @@ def test_jcamp_reader(data):
     _check(read_spectra, data, ".jdx")
 
 
+@pytest.mark.slow
 @FUZZ
 @given(_INPUT)
 def test_table_readers(data):
@@ -110,6 +113,7 @@ def test_table_readers(data):
     _check(read_absorptivities, data, ".csv")
 
 
+@pytest.mark.slow
 @FUZZ
 @given(_INPUT, st.integers(1, 4))
 def test_chunked_reader(data, chunk_size):

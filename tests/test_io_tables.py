@@ -15,7 +15,7 @@ from bandsolve.concentrations import ConcentrationTable
 from bandsolve.errors import BandsolveWarning, DataError, FormatError
 from bandsolve.io import read_absorptivities, read_concentrations, write_concentrations_csv
 
-DATA = Path(__file__).resolve().parents[1] / ".." / "shared" / "datasets"
+from .conftest import dataset
 
 
 def _write(tmp_path: Path, text: str, name: str = "c.csv") -> Path:
@@ -94,9 +94,7 @@ def test_writer_refuses_labels_that_would_not_survive(tmp_path):
 
 
 def test_real_three_aromatics_concentrations():
-    path = DATA / "three-aromatics-ethanol" / "standards_concentrations.csv"
-    if not path.exists():
-        pytest.skip("shared dataset not present")
+    path = dataset("three-aromatics-ethanol") / "standards_concentrations.csv"
     table = read_concentrations(path)
     # three analytes in mol/L, 15 rows (dataset SOURCE.md)
     assert table.units == ("mol/L", "mol/L", "mol/L")

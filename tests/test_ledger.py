@@ -139,6 +139,7 @@ def test_run_waits_for_a_locked_ledger_and_lands(setup, tmp_path):
     assert len(list_results(ledger)) == 3
 
 
+@pytest.mark.slow
 def test_two_processes_writing_at_once_both_land(setup, tmp_path):
     d, _ = setup
     ledger = tmp_path / "l.sqlite"
@@ -171,6 +172,7 @@ def test_ledger_command_lists_and_exports(setup, tmp_path, capsys):
     assert list(exported["sample"]) == [f"a{i}" for i in range(4)]
 
 
+@pytest.mark.slow
 def test_killed_prediction_leaves_no_partial_output_and_no_partial_run(setup, tmp_path):
     d, _ = setup
     ledger, out = tmp_path / "l.sqlite", tmp_path / "out" / "r.csv"

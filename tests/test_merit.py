@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -17,8 +16,8 @@ from sklearn.metrics import mean_squared_error, r2_score
 from bandsolve import merit
 from bandsolve.errors import DataError, ModelFileError
 
-DATASETS = Path(__file__).resolve().parents[1] / ".." / "shared" / "datasets"
-DATA = DATASETS / "three-aromatics-ethanol"
+from .conftest import dataset
+
 WL = np.linspace(220.0, 400.0, 61)
 
 
@@ -231,8 +230,7 @@ def test_figures_of_merit_table_round_trip_and_summary():
 
 
 def test_real_blanks_and_standards_give_sensible_lods():
-    if not DATA.is_dir():
-        pytest.skip("three-aromatics-ethanol dataset not available")
+    DATA = dataset("three-aromatics-ethanol")
     spectra = pd.read_csv(DATA / "standards_spectra.csv", index_col=0)
     conc = pd.read_csv(DATA / "standards_concentrations.csv", index_col=0).loc[spectra.index]
     blanks = pd.read_csv(DATA / "blank_replicates_spectra.csv", index_col=0)

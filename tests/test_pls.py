@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import numpy as np
 import pandas as pd
 import pytest
@@ -19,7 +17,7 @@ from sklearn.utils.estimator_checks import parametrize_with_checks
 from bandsolve.errors import ModelError
 from bandsolve.pls import PLSRegressor
 
-DATASETS = Path(__file__).resolve().parents[1] / ".." / "shared" / "datasets"
+from .conftest import dataset
 
 
 def _mixtures(rng: np.random.Generator, n: int, p: int, m: int = 1, offset: float = 0.5):
@@ -171,9 +169,7 @@ def test_works_with_clone_pipeline_and_grid_search():
 
 
 def test_real_aromatics_standards_match_sklearn():
-    folder = DATASETS / "three-aromatics-ethanol"
-    if not (folder / "standards_spectra.csv").exists():
-        pytest.skip("shared dataset three-aromatics-ethanol not available")
+    folder = dataset("three-aromatics-ethanol")
     spectra = pd.read_csv(folder / "standards_spectra.csv")
     conc = pd.read_csv(folder / "standards_concentrations.csv")
     X = spectra.select_dtypes("number").to_numpy(dtype=float)

@@ -40,6 +40,7 @@ def test_standards_follow_beers_law_at_band_maximum(data):
         assert fit.rvalue**2 >= 0.99, (label, spectra.axis[j], fit.rvalue**2)
 
 
+@pytest.mark.slow
 def test_replicate_mixtures_agree_and_residuals_near_blank_noise(data):
     spectra, table, mixtures, blanks = data
     cal = build_cls(spectra, table, intercept=True)

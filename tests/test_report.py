@@ -84,6 +84,7 @@ def full_report(demo, tmp_path_factory):
     return written, path.read_text(encoding="utf-8"), calls
 
 
+@pytest.mark.slow
 def test_every_section_is_present_once(full_report):
     _, text, _ = full_report
     ids = _parse(text).section_ids
@@ -154,6 +155,7 @@ def test_written_atomically_with_no_leftovers(full_report):
     assert [p.name for p in written.parent.iterdir()] == [written.name]
 
 
+@pytest.mark.slow
 def test_model_alone_says_what_is_missing(demo):
     text = render_report(demo["pls"])
     ids = _parse(text).section_ids
@@ -179,6 +181,7 @@ class _Result:
         return pd.DataFrame({"RMSEP": [0.125]}, index=[self.word])
 
 
+@pytest.mark.slow
 def test_assessment_and_comparison_objects_are_rendered(demo):
     text = render_report(demo["cls"], assessment=_Result("assessment"),
                          comparison=_Result("comparison"))
@@ -221,6 +224,7 @@ def test_cls_net_analyte_signal_is_orthogonal_to_the_other_pure_spectra(demo):
         np.testing.assert_allclose(sel[k], np.linalg.norm(nas[k]) / np.linalg.norm(K[k]))
 
 
+@pytest.mark.slow
 def test_cli_writes_the_report(demo, tmp_path):
     from bandsolve.cli import report_cmd
 
@@ -289,6 +293,7 @@ def printed_report(demo, tmp_path_factory):
     return path, path.read_text(encoding="utf-8"), batch
 
 
+@pytest.mark.slow
 def test_comparison_table_without_index_or_none(printed_report):
     _, text, _ = printed_report
     part = _section(text, "comparison")
@@ -318,6 +323,7 @@ def test_skipped_batch_inputs_are_listed_with_their_reason(printed_report):
     assert f"<code>{failure.input}</code>: {html_escape(failure.reason)}" in part
 
 
+@pytest.mark.slow
 def test_cli_reports_skipped_batch_inputs_and_exits_partial(demo, tmp_path, capsys):
     from bandsolve.calibration.modelfile import save_model
     from bandsolve.cli import EXIT_PARTIAL, report_cmd
@@ -338,6 +344,7 @@ def test_cli_reports_skipped_batch_inputs_and_exits_partial(demo, tmp_path, caps
     assert f"<code>{bad}</code>" in batch and "batch-2-05" in batch
 
 
+@pytest.mark.slow
 def test_headless_browser_renders_the_report(full_report, tmp_path):
     browser = chromium()
     if browser is None:
@@ -362,6 +369,7 @@ def test_headless_browser_renders_the_report(full_report, tmp_path):
         assert f'id="{sid}"' in rendered
 
 
+@pytest.mark.slow
 def test_printed_pages_keep_every_word_of_the_summaries_and_tables(printed_report, demo,
                                                                     tmp_path):
     path, _, _ = printed_report

@@ -51,11 +51,14 @@ def test_descending_axis_is_flipped_with_the_values():
     np.testing.assert_array_equal(s.values, [[1.0, 2.0, 3.0]])
 
 
-def test_callers_arrays_stay_writable():
+def test_callers_arrays_stay_writable_and_the_set_keeps_its_copy():
     axis, values = AXIS.copy(), np.ones((1, AXIS.size))
-    SpectralSet(axis, values, ["x"])
+    s = SpectralSet(axis, values, ["x"])
+    assert axis.flags.writeable and values.flags.writeable
     axis[0] = 399.0  # must not raise "assignment destination is read-only"
     values[0, 0] = 2.0
+    # The set is independent of the caller's arrays.
+    assert s.axis[0] == AXIS[0] and s.values[0, 0] == 1.0
 
 
 @pytest.mark.parametrize("bad", [np.nan, np.inf])

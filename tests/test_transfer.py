@@ -156,6 +156,7 @@ def test_pds_with_ten_transfer_samples_is_within_1_5_of_recalibration(kind, name
     assert np.all(pds <= 1.5 * recal), (name, pds / recal)
 
 
+@pytest.mark.slow
 def test_without_transfer_errors_and_flags_are_reported_as_they_are():
     # The original model on the new instrument's spectra: nothing hidden, nothing corrected.
     # An axis offset with a baseline change leaves spectral residuals the model cannot fit

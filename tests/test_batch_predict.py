@@ -101,6 +101,7 @@ def test_batch_predicts_every_good_spectrum_and_reports_each_bad_file(
         assert np.all(np.abs(est - true) < 5 * se + 1e-3)
 
 
+@pytest.mark.slow
 def test_bad_file_contributes_no_rows_even_when_streamed(model, tmp_path):
     s, _ = _mixtures(2 * EVAL_ROWS + 5, 20)
     path = tmp_path / "late-nan.csv"
@@ -116,6 +117,7 @@ def test_bad_file_contributes_no_rows_even_when_streamed(model, tmp_path):
     assert [f.input for f in res.failures] == [str(path)]
 
 
+@pytest.mark.slow
 def test_results_do_not_depend_on_chunk_size_or_jobs(model, tmp_path):
     s, _ = _mixtures(EVAL_ROWS + 40, 30)
     path = tmp_path / "many.csv"

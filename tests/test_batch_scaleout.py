@@ -49,6 +49,7 @@ def cluster():
         yield c
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("method", ["cls", "pls"])
 def test_batch_on_a_local_cluster_equals_the_local_batch(models, cluster, tmp_path, method):
     model = models[method]
@@ -64,6 +65,7 @@ def test_batch_on_a_local_cluster_equals_the_local_batch(models, cluster, tmp_pa
     pd.testing.assert_frame_equal(remote.table, local.table, check_exact=True)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("method", ["cls", "pls"])
 def test_dask_array_and_dataframe_equal_the_local_path(models, cluster, method):
     model = models[method]

@@ -4,7 +4,6 @@ a Monte Carlo detection-rate experiment and real blank replicates."""
 from __future__ import annotations
 
 import itertools
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -19,7 +18,8 @@ from bandsolve.errors import DataError
 from bandsolve.merit import FiguresOfMerit
 from bandsolve.spectra import SpectralSet
 
-DATASETS = Path(__file__).resolve().parents[1] / ".." / "shared" / "datasets"
+from .conftest import dataset
+
 AXIS = np.linspace(400.0, 700.0, 151)
 K = np.vstack([np.exp(-0.5 * ((AXIS - c) / w) ** 2)  # broad overlapping bands, AU per mg/L
                for c, w in ((480, 40), (530, 45), (590, 40))])
@@ -41,6 +41,7 @@ def _blinds(n, k=10):
             for j in range(k)]
 
 
+@pytest.mark.slow
 def test_cls_figures_match_numpy_references():
     rng = np.random.default_rng(1)
     spectra, table, blanks = _sets(rng)
@@ -173,10 +174,9 @@ def test_missing_analyte_column_is_named():
         calibration_merit(cal, spectra, short)
 
 
+@pytest.mark.slow
 def test_real_three_aromatics_with_54_blank_replicates():
-    folder = DATASETS / "three-aromatics-ethanol"
-    if not folder.is_dir():
-        pytest.skip("three-aromatics-ethanol dataset not available")
+    folder = dataset("three-aromatics-ethanol")
     from bandsolve.io import read_concentrations, read_spectra
 
     spectra = read_spectra(folder / "standards_spectra.csv")

@@ -78,6 +78,7 @@ def test_missing_model_file_is_a_clean_error(tmp_path, capsys):
     assert "no such model file" in capsys.readouterr().err
 
 
+@pytest.mark.slow
 def test_demo_runs_end_to_end_and_flags_the_intruder(tmp_path, capsys):
     assert main(["demo", "--out", str(tmp_path / "demo")]) == 0
     res = pd.read_csv(tmp_path / "demo" / "results.csv", keep_default_na=False)
