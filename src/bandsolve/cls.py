@@ -18,11 +18,15 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 
 from bandsolve._scan import ScanParts, scan
 from bandsolve._state import RecordedState
+from bandsolve.cls_loo import LeaveOneOut, cls_leave_one_out
 from bandsolve.diagnostics import cls_calibration_variance, f_limit_from_values
 from bandsolve.errors import ModelError
 from bandsolve.merit.signal import cls_net_analyte_signal
 
 __all__ = ["BASELINE_TERMS", "CLSRegressor", "CLSPrediction"]
+
+#: Up to this many analytes the corners of the calibrated ranges are enumerated (2^m).
+_BOX_CORNERS_MAX = 16
 
 #: Number of polynomial baseline terms solved with the concentrations at prediction.
 BASELINE_TERMS = {"none": 0, "offset": 1, "linear": 2, "quadratic": 3}
@@ -44,9 +48,10 @@ class CLSPrediction:
     residual_ss : ndarray, shape (n,)
         Sum of squared spectral residuals ``rᵀr`` (AU²).
     residual_ratio : ndarray, shape (n,)
-        ``F_u / limit``: the sample's residual variance relative to calibration residuals,
+        ``F_u / limit`` with ``F_u = [rᵀr/(p − m − q)] / [s²_cal(1 + h_c)]``: the sample's
+        residual variance relative to what calibration noise plus the error of K̂ explain,
         divided by the limit; above 1 means an unmodelled absorber or baseline change.
-        NaN when the model has no calibration residuals.
+        NaN when the model has nothing to compare residuals with.
     leverage : ndarray, shape (n,)
         ``h_c = c̃ᵀ(CᵀC)⁻¹c̃``, the concentration leverage (0 for a model built from
         absorptivities).
@@ -97,15 +102,41 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         Calibration residual variance per channel, ``‖A − CK̂‖²_F / (p(n − m′))``, AU².
     residual_limit_ : float
         Limit of the F ratio, from leave-one-out calibration residuals (Box 1954 scaled χ²
-        fitted by moments); NaN when no calibration residuals exist.
+        fitted by moments); for a model from absorptivities with blank noise, the F quantile
+        ``F_{1−α}(p − m − q, ν_blank)``; NaN when there is nothing to compare with.
     cv_f_ratios_ : ndarray, shape (n,)
         Leave-one-out F ratios of the calibration samples that set the limit.
+
+    Notes
+    -----
+    **Standard error and residual ratio: K̂'s error counted once.** Write ``K̂ = K + Δ``;
+    the columns of Δ are ``N(0, σ²(CᵀC)⁻¹)``, independent across wavelengths for white noise.
+    For a new spectrum ``a = Kᵀc + e``, ``ĉ − c = (K̂K̂ᵀ)⁻¹K̂(e − Δᵀc)`` to first order, and
+    every element of ``u = e − Δᵀc`` has variance ``σ²(1 + h_c)``, ``h_c = c̃ᵀ(CᵀC)⁻¹c̃``.
+    Hence ``Cov(ĉ) ≈ σ²(1 + h_c)(K̂K̂ᵀ)⁻¹`` and the sample's own residual ``r = a − K̂ᵀĉ``
+    has ``E[rᵀr] = σ²(1 + h_c)(p − m − q)``: the residual variance
+    ``s² = rᵀr/(p − m − q)`` already estimates ``σ²(1 + h_c)``. The SE is therefore
+    ``√(s²[(K̂K̂ᵀ)⁻¹]_kk)`` with no further ``(1 + h_c)``, which would count the error of K̂
+    twice (1/0.7 too wide with pure standards). The residual test compares ``s²`` with what
+    calibration predicts for this sample, ``s²_cal(1 + h_c)``: without that divisor, mixtures
+    far from the standards' centre would be flagged for K̂'s error rather than for an
+    absorber (Haaland & Thomas 1988; METHODS §1). The leave-one-out ratios that set the
+    limit use the same form, each with the leverage it has as a new sample.
+
+    **Errors the white-noise SE cannot see.** Real spectra also carry errors that are
+    correlated across channels (baseline and gain changes from one measurement to the next),
+    which a sample's own residual does not reveal. :meth:`error_scale` compares the
+    leave-one-out errors of the calibration samples with the SEs their downdated models
+    report; limits built from it (``EstimatorLimits.error_scale``) widen the SE by that ratio
+    (the Birge ratio of the cross-validated errors, never below 1).
 
     References
     ----------
     Haaland, D. M.; Thomas, E. V. Anal. Chem. 1988, 60, 1193–1202.
     Haaland, D. M.; Melgaard, D. K. Appl. Spectrosc. 2000, 54, 1303–1312.
     Box, G. E. P. Ann. Math. Stat. 1954, 25, 290–302.
+    Faber, N. M.; Kowalski, B. R. J. Chemom. 1997, 11, 181–238 (error propagation in K̂).
+    Birge, R. T. Phys. Rev. 1932, 40, 207–227 (scaling SEs by the observed scatter).
 
     Examples
     --------
@@ -161,13 +192,16 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         resid = X - C @ coef
         self.s2_cal_ = (cls_calibration_variance(resid, C.shape[1]) if n > C.shape[1]
                         else float("nan"))
-        self.cv_f_ratios_ = self._loo_f_ratios(X, C) if n > C.shape[1] + 1 else np.array([])
+        self._loo = self._leave_one_out(X, C, coef)
+        self._training_y = Y
+        self.cv_f_ratios_ = self._f_ratios(self._loo)
         self.residual_limit_ = _residual_limit(self.cv_f_ratios_, self.alpha)
         return self
 
     @classmethod
     def from_pure_spectra(cls, pure_spectra, *, baseline: str = "none", wavelengths=None,
-                          alpha: float = 0.01, noise_sd: float | None = None) -> CLSRegressor:
+                          alpha: float = 0.01, noise_sd: float | None = None,
+                          noise_dof: int | None = None) -> CLSRegressor:
         """A fitted model from known pure spectra (absorptivity × path length), no standards.
 
         Parameters
@@ -176,9 +210,18 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
             Absorbance per unit concentration of each analyte in the measuring cell.
         noise_sd : float, optional
             Per-channel noise SD of the spectra (AU), e.g. from replicate blanks. With it the
-            residual ratio compares ``rᵀr/(p − m − q)`` with ``noise_sd²`` against the
-            ``χ²_{p−m−q}/(p−m−q)`` upper 1 − α point (white noise); without it no residual
-            limit exists and unmodelled absorbers cannot be flagged.
+            residual ratio compares ``rᵀr/(p − m − q)`` with ``noise_sd²``; without it no
+            residual limit exists and unmodelled absorbers cannot be flagged.
+        noise_dof : int, optional
+            Degrees of freedom behind ``noise_sd`` (``(r − 1)p`` for r replicate blanks). The
+            ratio of two independent variance estimates is referred to
+            ``F_{1−α}(p − m − q, noise_dof)`` (white noise; METHODS §10); without it the noise
+            is taken as known and the reference is ``χ²_{p−m−q}/(p − m − q)``, the F limit as
+            ``noise_dof → ∞``.
+
+        References
+        ----------
+        Olivieri, A. C. et al. Pure Appl. Chem. 2006, 78, 633–661 (σx from replicate blanks).
         """
         model = cls(fit_intercept=False, baseline=baseline, wavelengths=wavelengths, alpha=alpha)
         K = np.asarray(pure_spectra, dtype=float)
@@ -195,7 +238,9 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         dof = K.shape[1] - model.augmented_spectra_.shape[0]
         if noise_sd is not None and noise_sd > 0 and dof > 0:
             model.s2_cal_ = float(noise_sd) ** 2
-            model.residual_limit_ = float(stats.chi2.ppf(1 - alpha, dof) / dof)
+            model.residual_limit_ = float(
+                stats.f.ppf(1 - alpha, dof, noise_dof) if noise_dof
+                else stats.chi2.ppf(1 - alpha, dof) / dof)
         return model
 
     def _design(self, Y: np.ndarray) -> np.ndarray:
@@ -230,28 +275,52 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         z = (x - (x.max() + x.min()) / 2) / span
         return np.vstack([z**k for k in range(q)]) if q else np.empty((0, p))
 
-    def _loo_f_ratios(self, X: np.ndarray, C: np.ndarray) -> np.ndarray:
-        """Leave-one-out F ratios by downdating CᵀC and CᵀA (METHODS §1b).
+    def _leave_one_out(self, X: np.ndarray, C: np.ndarray, coef: np.ndarray
+                       ) -> LeaveOneOut | None:
+        """Leave-one-out predictions in closed form (:mod:`bandsolve.cls_loo`); None when
+        the calibration has too few samples to leave any out."""
+        if X.shape[0] <= C.shape[1] + 1:
+            return None
+        m = coef.shape[0] - (1 if self.fit_intercept else 0)
+        return cls_leave_one_out(X, C, coef, self.gram_inv_, m,
+                                 self._baseline_rows(X.shape[1]))
+
+    def _f_ratios(self, loo: LeaveOneOut | None) -> np.ndarray:
+        """``F_i = [r₍₋ᵢ₎ᵀr₍₋ᵢ₎/(p − m − q)] / [s²_cal(1 + h₍₋ᵢ₎)]`` of the calibration samples.
 
         A sample that alone carries an analyte (its only standard) cannot be left out: its
         ratio is NaN and the limit is set from the others.
         """
-        gram, cross = C.T @ C, C.T @ X
-        baseline = self._baseline_rows(X.shape[1])
-        m = C.shape[1] - (1 if self.fit_intercept else 0)
-        out = np.full(len(X), np.nan)
-        for i in range(len(X)):
-            ci = C[i]
-            try:
-                coef = linalg.solve(gram - np.outer(ci, ci), cross - np.outer(ci, X[i]),
-                                    assume_a="pos")
-                K = np.vstack([coef[:m], baseline])
-                a = X[i] - (coef[m] if self.fit_intercept else 0.0)
-                r = a - K.T @ linalg.solve(K @ K.T, K @ a, assume_a="pos")
-            except linalg.LinAlgError:
-                continue
-            out[i] = r @ r / max(X.shape[1] - K.shape[0], 1) / self.s2_cal_
-        return out
+        dof = self.augmented_spectra_.shape[1] - self.augmented_spectra_.shape[0]
+        if loo is None or dof < 1:  # nothing to leave out, or no spectral residual to test
+            return np.array([])
+        return loo.residual_ss / dof / (self.s2_cal_ * (1.0 + loo.leverage))
+
+    def loo_predictions(self) -> np.ndarray | None:
+        """Leave-one-out predictions of the calibration samples from :meth:`fit`, shape
+        (n, m), NaN rows for samples that cannot be left out (closed form, no refits); None
+        for a model loaded from a file or built from absorptivities (not kept)."""
+        loo = getattr(self, "_loo", None)
+        return None if loo is None else loo.concentrations.copy()
+
+    def error_scale(self) -> tuple[np.ndarray, int]:
+        """Ratio of leave-one-out errors to their reported SEs, per analyte, and its df.
+
+        ``κ_k = max(1, √(mean_i[(ĉ₍₋ᵢ₎k − c_ik)²/SE₍₋ᵢ₎k²]))`` over the calibration samples
+        that can be left out (all analytes of each, present or absent), with the number of
+        those samples as degrees of freedom. Under the white-noise model the studentized
+        errors have unit mean square and κ = 1; errors shared across channels (baseline or
+        gain changes between measurements) make it larger. Ones and 0 df when fewer than 3
+        samples can be left out. See the class Notes.
+        """
+        m = self.pure_spectra_.shape[0]
+        if getattr(self, "_loo", None) is None:
+            return np.ones(m), 0
+        z = (self._loo.concentrations - self._training_y) / self._loo.standard_errors
+        ok = np.isfinite(z).all(axis=1)
+        if ok.sum() < 3:
+            return np.ones(m), 0
+        return np.maximum(1.0, np.sqrt(np.mean(z[ok] ** 2, axis=0))), int(ok.sum())
 
     # ------------------------------------------------------------------ prediction
     def predict(self, X):
@@ -262,8 +331,8 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
     def predict_detail(self, X) -> CLSPrediction:
         """Concentrations with standard errors, spectral residuals and leverage.
 
-        ``Cov(ĉ) ≈ s²(1 + h_c)(K̂K̂ᵀ)⁻¹`` with ``s² = rᵀr/(p − m − q)`` from the sample's own
-        residual and ``h_c = c̃ᵀ(CᵀC)⁻¹c̃`` carrying the error in K̂ (METHODS §1).
+        ``Cov(ĉ) ≈ s²(K̂K̂ᵀ)⁻¹`` with ``s² = rᵀr/(p − m − q)`` from the sample's own
+        residual, which already carries the error in K̂ (class Notes; METHODS §1).
         """
         check_is_fitted(self, "pure_spectra_")
         return self.detail_checked(validate_data(self, X, reset=False))
@@ -303,9 +372,8 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         note = ""
         if dof > 0:
             s2 = rss / dof
-            var = s2[:, None] * (1 + lev)[:, None] * np.diag(self.aug_gram_inv_)[:m]
-            se = np.sqrt(var)
-            ratio = (s2 / self.s2_cal_) / self.residual_limit_
+            se = np.sqrt(s2[:, None] * np.diag(self.aug_gram_inv_)[:m])
+            ratio = (s2 / (self.s2_cal_ * (1.0 + lev))) / self.residual_limit_
         else:
             se = np.full_like(conc, np.nan)
             ratio = np.full(n, np.nan)
@@ -348,12 +416,32 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         check_is_fitted(self, "pure_spectra_")
         return self.augmented_spectra_.copy()
 
-    def leverage_limit(self, factor: float) -> float:
-        """Leverage warning limit ``factor · m′ / n`` (Hoaglin & Welsch 1978); NaN without
-        standards."""
+    def leverage_limit(self, factor: float, calibrated_range: np.ndarray) -> float:
+        """Leverage warning limit: ``factor`` × the largest leverage ``c̃ᵀ(CᵀC)⁻¹c̃`` of any
+        composition with every analyte inside ``calibrated_range`` (m × 2, low and high);
+        NaN without standards.
+
+        Under Beer's-law additivity every composition inside the calibrated ranges is
+        interpolation, so the limit starts there rather than at ``3m′/n`` of the standards'
+        own design, which flags ordinary mixtures of pure standards (METHODS §1,
+        extrapolation for CLS from pure standards). The leverage is a convex quadratic, so
+        its maximum over the box lies at a corner; with more than
+        :data:`_BOX_CORNERS_MAX` analytes the bound ``λ_max·max‖c̃‖²`` is used instead.
+        """
         if not self.from_standards:
             return float("nan")
-        return factor * self.gram_inv_.shape[0] / self.n_calibration_
+        low, high = np.asarray(calibrated_range, dtype=float).T
+        m = low.size
+        if m <= _BOX_CORNERS_MAX:
+            bits = (np.arange(2**m)[:, None] >> np.arange(m)) & 1
+            corners = np.where(bits == 1, high, low)
+            if self.fit_intercept:
+                corners = np.column_stack([corners, np.ones(len(corners))])
+            box = np.max(np.einsum("ij,jk,ik->i", corners, self.gram_inv_, corners))
+        else:
+            far = np.maximum(np.abs(low), np.abs(high))
+            box = np.linalg.eigvalsh(self.gram_inv_)[-1] * (far @ far + int(self.fit_intercept))
+        return float(factor * box)
 
     def blank_leverage(self) -> float:
         """h0 of the blank composition ``c0 = 0`` (1 for the intercept column), ``c0ᵀ(CᵀC)⁻¹c0``.

@@ -100,7 +100,8 @@ def result_table_columns(model: Calibration) -> list[str]:
     cols = ["sample", "source"]
     for label in model.analytes:
         cols.extend(result_columns(label))
-    return [*cols, "residual_ratio", "t2_ratio", "leverage_ratio", FLAG_COLUMN, "notes"]
+    return [*cols, "residual_ratio", "t2_ratio", "leverage_ratio", FLAG_COLUMN, "interval_basis",
+            "notes"]
 
 
 # ---------------------------------------------------------------------- reading

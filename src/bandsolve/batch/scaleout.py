@@ -20,15 +20,12 @@ import numpy as np
 import pandas as pd
 
 from bandsolve.batch.predict import EVAL_ROWS, evaluate_set, result_table_columns
-from bandsolve.calibration.model import Calibration
+from bandsolve.calibration.model import TEXT_COLUMNS, Calibration
 from bandsolve.errors import BandsolveError, DataError
 from bandsolve.flags import FLAG_COLUMN, flag_bits
 from bandsolve.spectra import SpectralSet
 
 __all__ = ["numeric_columns", "predict_dask"]
-
-_TEXT = ("sample", "source", FLAG_COLUMN, "notes")
-
 
 def numeric_columns(model: Calibration) -> list[str]:
     """Columns of the array :func:`predict_dask` returns for a Dask array, in order.
@@ -36,7 +33,7 @@ def numeric_columns(model: Calibration) -> list[str]:
     The result-table columns that are numbers, then ``flag_bits`` (the flag bit mask of
     :data:`bandsolve.flags.FLAG_BITS`, as a float).
     """
-    return [c for c in result_table_columns(model) if c not in _TEXT] + ["flag_bits"]
+    return [c for c in result_table_columns(model) if c not in TEXT_COLUMNS] + ["flag_bits"]
 
 
 def _numeric_block(block: np.ndarray, model: Calibration, axis: np.ndarray,
@@ -53,7 +50,7 @@ def _numeric_block(block: np.ndarray, model: Calibration, axis: np.ndarray,
 def _frame_partition(part: pd.DataFrame, model: Calibration, axis: np.ndarray,
                      source: str) -> pd.DataFrame:
     if not len(part):
-        return pd.DataFrame({c: pd.Series(dtype=str if c in _TEXT else float)
+        return pd.DataFrame({c: pd.Series(dtype=str if c in TEXT_COLUMNS else float)
                              for c in result_table_columns(model)})
     spectra = SpectralSet(axis=axis, values=part.to_numpy(dtype=float),
                           sample_ids=[str(i) for i in part.index], axis_unit=model.axis_unit,

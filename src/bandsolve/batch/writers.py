@@ -18,7 +18,6 @@ from typing import IO, Any
 import pandas as pd
 
 from bandsolve.errors import FormatError
-from bandsolve.flags import FLAG_COLUMN
 
 __all__ = ["FORMATS", "open_writer", "format_for", "csv_rows"]
 
@@ -180,8 +179,9 @@ class _ParquetWriter:
 
     def close(self) -> None:
         if self._writer is None:
-            text = ("sample", "source", FLAG_COLUMN, "notes")
-            empty = pd.DataFrame({c: pd.Series(dtype=str if c in text else float)
+            from bandsolve.calibration.model import TEXT_COLUMNS
+
+            empty = pd.DataFrame({c: pd.Series(dtype=str if c in TEXT_COLUMNS else float)
                                   for c in self.columns})
             self._writer = self._pq.ParquetWriter(self.handle, self._schema(empty))
         self._writer.close()

@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 
 from bandsolve import __version__
-from bandsolve.calibration.detail import LEVERAGE_FACTOR
+from bandsolve.calibration.detail import CLS_LEVERAGE_FACTOR
 from bandsolve.calibration.merit import blank_arrays, merit_from_arrays
 from bandsolve.calibration.model import Calibration
 from bandsolve.calibration.modelfile import sha256_file
@@ -116,6 +116,7 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
               baseline: str = "none", window: list[tuple[float, float]] | None = None,
               blank: SpectralSet | None = None, blanks: SpectralSet | None = None,
               alpha: float = 0.01, ceiling: float = DEFAULT_CEILING_AU,
+              leverage_factor: float = CLS_LEVERAGE_FACTOR,
               provenance: dict[str, Any] | None = None) -> Calibration:
     """Build a CLS calibration from standards or calibration mixtures.
 
@@ -142,9 +143,14 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
         Significance level of the spectral-residual limit.
     ceiling : float
         Photometric ceiling in AU; calibration spectra above it are refused.
+    leverage_factor : float
+        Leverage flag limit as a multiple of the largest leverage inside the calibrated
+        ranges (1: any composition with every analyte inside its range passes).
     provenance : dict, optional
         Extra provenance (training-file fingerprints, labels) stored with the model.
     """
+    if not (np.isfinite(leverage_factor) and leverage_factor > 0):
+        raise ModelError(f"leverage factor must be a positive number, not {leverage_factor}")
     spectra, C = training_arrays(spectra, table, blank)
     pre = SpectralPreprocessor(axis=spectra.axis, window=window).fit(spectra.values)
     check_ceiling(spectra, pre.used_mask, ceiling)
@@ -153,14 +159,16 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
                        alpha=alpha).fit(Z, C)
     settings = {"intercept": intercept, "baseline": baseline, "window": window,
                 "alpha": alpha, "blank_subtracted": blank is not None}
-    limits = Limits(LEVERAGE_FACTOR, (EstimatorLimits(
+    calibrated_range = np.column_stack([C.min(axis=0), C.max(axis=0)])
+    scale, scale_dof = est.error_scale()
+    limits = Limits(float(leverage_factor), (EstimatorLimits(
         alpha=alpha, residual=est.residual_limit,
         residual_method="Box scaled chi-squared fitted to leave-one-out calibration F ratios",
-        leverage=est.leverage_limit(LEVERAGE_FACTOR)),))
+        leverage=est.leverage_limit(leverage_factor, calibrated_range),
+        error_scale=tuple(scale.tolist()), error_scale_dof=scale_dof),))
     cal = Calibration(
         method="cls", analytes=table.analytes, axis=spectra.axis, axis_unit=spectra.axis_unit,
-        preprocessor=pre, estimators=[est],
-        calibrated_range=np.column_stack([C.min(axis=0), C.max(axis=0)]),
+        preprocessor=pre, estimators=[est], calibrated_range=calibrated_range,
         settings=settings, path_length_cm=spectra.path_length_cm, ceiling=ceiling,
         limits=limits, provenance=provenance_record(provenance, len(C)),
     )
@@ -226,9 +234,11 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
                       stacklevel=2)
     else:
         blank_x = blanks.on_grid(absorptivities.axis, absorptivities.axis_unit).values
-        noise = float(noise_from_blanks(pre.transform(blank_x)))
-    est = CLSRegressor.from_pure_spectra(K, baseline=baseline, wavelengths=pre.used_axis,
-                                         noise_sd=noise)
+        noise = noise_from_blanks(pre.transform(blank_x))
+    est = CLSRegressor.from_pure_spectra(
+        K, baseline=baseline, wavelengths=pre.used_axis,
+        noise_sd=None if noise is None else noise.sigma,
+        noise_dof=None if noise is None else noise.dof)
     m = K.shape[0]
     low, high = concentration_range or (0.0, np.inf)
     cal = Calibration(
@@ -238,10 +248,10 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
         settings={"from_absorptivities": True, "baseline": baseline, "window": window,
                   "path_length_cm": path_length_cm},
         path_length_cm=path_length_cm, ceiling=ceiling,
-        limits=Limits(LEVERAGE_FACTOR, (EstimatorLimits(
+        limits=Limits(CLS_LEVERAGE_FACTOR, (EstimatorLimits(
             alpha=float("nan") if noise is None else est.alpha, residual=est.residual_limit,
             residual_method="none (no calibration residuals, no blanks)" if noise is None else
-            "chi-squared with p-m-q degrees of freedom, noise from replicate blanks"),)),
+            "F(p-m-q, (r-1)p): residual variance over the noise of r replicate blanks"),)),
         provenance=provenance_record(provenance, 0),
     )
     return cal if blank_x is None else with_merit(cal, None, None, blank_x)

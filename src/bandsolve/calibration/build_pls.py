@@ -39,7 +39,7 @@ def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str =
                         max_components: int = 15, cv: Any = "interleaved:10", groups=None,
                         select: str = "randomization", alpha: float = 0.05,
                         scale: bool = False, limit_alpha: float = 0.01,
-                        q_limit: str = "box",
+                        q_limit: str = "box", leverage_factor: float = LEVERAGE_FACTOR,
                         random_state: int = 0
                         ) -> tuple[PLSRegressor, EstimatorLimits, ComponentChoice]:
     """Cross-validate, choose the component count, fit, and set the diagnostic limits.
@@ -57,7 +57,8 @@ def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str =
       wide (measured, α = 0.05: 0.08 % false alarms at n = 40, p = 121; 3.2 % at n = 200,
       p = 40; the default gave 5.4 % and 4.3 %).
     * Leverage: 3(A + 1)/n (Hoaglin & Welsch 1978).
-    * MSEC per analyte, ``Σ(y − ŷ)²/(n − A − 1)``, for the Faber & Bro (2002) standard error.
+    * MSEC per analyte, ``Σ(y − ŷ)²/(n − A − 1)`` (recorded), and RMSECV at the chosen count,
+      which sets the standard error (:func:`bandsolve.calibration.detail.pls_detail`).
 
     Returns
     -------
@@ -88,7 +89,7 @@ def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str =
         alpha=limit_alpha, residual=q.value, residual_method=q.method,
         residual_parameters=dict(q.parameters),
         t2=float(t2_limit(a, n, alpha=limit_alpha, kind="new")),
-        leverage=float(leverage_limit(a, n, factor=LEVERAGE_FACTOR)),
+        leverage=float(leverage_limit(a, n, factor=leverage_factor)),
         msec=tuple(msec.tolist()), rmsecv=tuple(cv_result.rmsecv[a - 1].tolist()))
     evidence = dict(chosen.evidence)
     evidence.update(rule=select if components == "auto" else f"fixed ({select} suggests "
@@ -117,6 +118,7 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
               derivative: int = 0, offset: bool = False, blank: SpectralSet | None = None,
               blanks: SpectralSet | None = None, limit_alpha: float = 0.01,
               q_limit: str = "box", ceiling: float = DEFAULT_CEILING_AU,
+              leverage_factor: float = LEVERAGE_FACTOR,
               progress: ProgressCallback | None = None,
               provenance: dict[str, Any] | None = None) -> Calibration:
     """Build a PLS calibration from calibration mixtures.
@@ -152,6 +154,8 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
         Significance level of the T², Q and flag limits.
     q_limit : {"jackson-mudholkar", "box"}
         How the Q limit is set (see :func:`fit_pls_with_limits`).
+    leverage_factor : float
+        Leverage warning limit ``leverage_factor·(A + 1)/n`` (2 or 3 are usual).
     progress : callable, optional
         ``progress(done, total, label)`` after each model (one per analyte for PLS1).
     """
@@ -170,7 +174,8 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
     for i, Y in enumerate(targets):
         model, lim, ev = fit_pls_with_limits(
             Z, Y, components=components, max_components=max_components, cv=cv, groups=groups,
-            select=select, alpha=alpha, scale=scale, limit_alpha=limit_alpha, q_limit=q_limit)
+            select=select, alpha=alpha, scale=scale, limit_alpha=limit_alpha, q_limit=q_limit,
+            leverage_factor=leverage_factor)
         models.append(model)
         limits.append(lim)
         evidence.append(ev)
@@ -186,7 +191,7 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
         preprocessor=pre, estimators=models,
         calibrated_range=np.column_stack([C.min(axis=0), C.max(axis=0)]),
         settings=settings, path_length_cm=spectra.path_length_cm, ceiling=ceiling,
-        limits=Limits(LEVERAGE_FACTOR, tuple(limits)),
+        limits=Limits(float(leverage_factor), tuple(limits)),
         selection=Selection(mode, tuple(evidence)),
         provenance=provenance_record(provenance, len(C)),
     )

@@ -15,10 +15,14 @@ from bandsolve.calibration.records import EstimatorLimits
 from bandsolve.cls import CLSRegressor
 from bandsolve.pls import PLSRegressor
 
-__all__ = ["Detail", "LEVERAGE_FACTOR", "cls_detail", "pls_detail"]
+__all__ = ["CLS_LEVERAGE_FACTOR", "Detail", "LEVERAGE_FACTOR", "cls_detail", "pls_detail"]
 
-#: Leverage warning limit is LEVERAGE_FACTOR × (parameters) / n (Hoaglin & Welsch 1978).
+#: PLS leverage warning limit is LEVERAGE_FACTOR × (A + 1) / n (Hoaglin & Welsch 1978).
 LEVERAGE_FACTOR = 3.0
+
+#: CLS leverage warning limit is CLS_LEVERAGE_FACTOR × the largest leverage of a composition
+#: inside the calibrated ranges (:meth:`CLSRegressor.leverage_limit`).
+CLS_LEVERAGE_FACTOR = 1.0
 
 
 @dataclass(frozen=True)
@@ -56,10 +60,15 @@ def cls_detail(model: CLSRegressor, limits: EstimatorLimits, H: np.ndarray,
                ss: np.ndarray) -> Detail:
     """Detail for a CLS model from its scan products (:meth:`CLSRegressor.scan_parts`).
 
-    SE from each sample's own residual, F-ratio and leverage ratios.
+    SE from each sample's own residual (:meth:`CLSRegressor.predict_detail`) times the
+    calibration's error scale κ ≥ 1 (``limits.error_scale``: the leave-one-out errors over
+    their SEs); where κ > 1 the t quantile takes the number of calibration samples behind it
+    as degrees of freedom. F ratio and leverage ratio against the stored limits.
     """
     d = model.detail_from_scan(H, ss)
     n, m = d.concentrations.shape
+    scale = np.asarray(limits.error_scale or np.ones(m), dtype=float)
+    dof = np.where(scale > 1.0, limits.error_scale_dof, d.dof)
     notes = [d.note] if d.note else []
     if model.from_standards:
         lev_ratio = d.leverage / limits.leverage
@@ -75,8 +84,8 @@ def cls_detail(model: CLSRegressor, limits: EstimatorLimits, H: np.ndarray,
             "replicate blank spectra (--blanks)")
     return Detail(
         concentrations=d.concentrations,
-        standard_errors=d.standard_errors,
-        dof=np.full(m, d.dof),
+        standard_errors=d.standard_errors * scale,
+        dof=dof,
         residual_ratio=d.residual_ratio,
         t2_ratio=np.full(n, np.nan),
         leverage_ratio=lev_ratio,
@@ -88,10 +97,26 @@ def pls_detail(models: Sequence[PLSRegressor], limits: Sequence[EstimatorLimits]
                scans: list[tuple[np.ndarray, np.ndarray]]) -> Detail:
     """Detail for PLS: one model (PLS2) or one per analyte (PLS1).
 
-    The SE is the Faber & Bro (2002) form ``σ(ŷ) ≈ √((1 + h)·MSEC − σ²_ref)`` with the
-    leverage ``h = 1/n + tᵀ(TᵀT)⁻¹t``; ratios of T², Q and leverage to their limits are
-    the largest over the per-analyte models for PLS1. ``scans`` holds each model's scan
-    products ``(H, ss)`` (:meth:`PLSRegressor.scan_parts`).
+    The SE has the leverage form of Faber & Bro (2002), ``σ²(ŷ) ≈ (1 + h)σ²_e − σ²_ref``
+    with ``h = 1/n + tᵀ(TᵀT)⁻¹t``, but the error variance σ²_e comes from the
+    cross-validated residuals instead of MSEC: ``σ²_e = RMSECV²/(1 + (A + 1)/n)``, since
+    RMSECV² estimates the prediction error of samples like the calibration ones, whose mean
+    leverage is ``(A + 1)/n``. MSEC on ``n − A − 1`` pseudo-degrees of freedom shrinks as
+    components are added while the true error grows (METHODS §10: 45 % coverage for PLS1 with
+    one component too many); RMSECV rises with over-fitting, so the interval follows the
+    real error on either side of the right count. Ratios of T², Q and leverage to their
+    limits are the largest over the per-analyte models for PLS1. ``scans`` holds each
+    model's scan products ``(H, ss)`` (:meth:`PLSRegressor.scan_parts`).
+
+    References
+    ----------
+    Faber, N. M. & Bro, R. (2002). Standard error of prediction for multiway PLS: 1.
+    Background and a simulation study. Chemom. Intell. Lab. Syst. 61, 133-149.
+    Faber, N. M., Song, X.-H. & Hopke, P. K. (2003). Sample-specific standard error of
+    prediction for partial least squares regression. TrAC 22, 330-334.
+    Faber, N. M. & Kowalski, B. R. (1997). Propagation of measurement errors for the
+    validation of predictions obtained by principal component regression and partial least
+    squares. J. Chemom. 11, 181-238.
     """
     n = scans[0][0].shape[0]
     concs, ses, dofs = [], [], []
@@ -100,10 +125,11 @@ def pls_detail(models: Sequence[PLSRegressor], limits: Sequence[EstimatorLimits]
     lev_ratio = np.zeros(n)
     for model, lim, (H, ss) in zip(models, limits, scans, strict=True):
         d = model.detail_from_scan(H, ss)
-        msec = np.asarray(lim.msec, dtype=float)
+        n_cal = d.dof + model.n_parameters  # d.dof = n − A − 1
+        error_var = np.asarray(lim.rmsecv, dtype=float) ** 2 / (1.0 + model.n_parameters / n_cal)
         s2_ref = (np.asarray(lim.reference_variance, dtype=float) if lim.reference_variance
-                  else np.zeros_like(msec))
-        var = (1 + d.leverage)[:, None] * msec[None, :] - s2_ref[None, :]
+                  else np.zeros_like(error_var))
+        var = (1 + d.leverage)[:, None] * error_var[None, :] - s2_ref[None, :]
         concs.append(d.concentrations)
         ses.append(np.sqrt(np.maximum(var, 0.0)))
         dofs.extend([d.dof] * d.concentrations.shape[1])

@@ -20,8 +20,8 @@ Conventions (stated in the table's documentation and checked by the tests):
   mean blank replicate when blanks are given, else of the all-zero spectrum after preprocessing
   (the blank of a blank-subtracted calibration).
 * RMSEC: ``√(Σe²/(n − m′))`` for CLS, ``√(Σe²/(n − A − 1))`` for PLS. RMSECV: ``√(PRESS/n)``;
-  CLS is cross-validated on the splitter ``cv``; PLS takes the curve stored at build time at the
-  chosen component count.
+  CLS is leave-one-out (closed form from the fit, no refits) unless a splitter ``cv`` is
+  given; PLS takes the curve stored at build time at the chosen component count.
 """
 
 from __future__ import annotations
@@ -96,9 +96,14 @@ def _signal(cal: Calibration, Z: np.ndarray | None, C: np.ndarray | None,
 def _rmsecv(cal: Calibration, Z: np.ndarray, C: np.ndarray, cv: Any) -> np.ndarray | None:
     if cal.selection is not None:  # recorded at build time with the component choice
         return cal.kind.stored_rmsecv(cal.selection, C.shape[1])
+    loo = cal.estimators[0].loo_predictions() if cv is None else None
+    if loo is not None and loo.shape == C.shape:
+        # Leave-one-out in closed form, computed once at fit (bandsolve.cls_loo): no refits.
+        # A sample that alone carries an analyte cannot be left out: no RMSECV then.
+        return np.sqrt(np.mean((loo - C) ** 2, axis=0)) if np.isfinite(loo).all() else None
     try:
         res = cross_validate_estimator(clone(cal.estimators[0]), Z, C,
-                                       cv=f"interleaved:{min(10, len(Z))}" if cv is None else cv)
+                                       cv="loo" if cv is None else cv)
     except ModelError:  # e.g. a fold removes every standard of one analyte
         return None
     return res.rmsecv[0]
@@ -138,7 +143,8 @@ def calibration_merit(cal: Calibration, spectra: SpectralSet | None,
     blanks : SpectralSet, optional
         r ≥ 2 replicate blank spectra (absorbance) for σx and, for PLS, the blank's scores.
     cv : str or splitter, optional
-        Cross-validation for the CLS RMSECV (default ``interleaved:K`` with K = min(10, n)). PLS
+        Cross-validation for the CLS RMSECV (default leave-one-out, in closed form from the
+        fit when the estimator was just fitted). PLS
         uses the curve stored at build time.
     reference_variance : float or sequence of float, optional
         Variance of the reference concentrations σy² per analyte (concentration units²), used

@@ -24,7 +24,7 @@ from bandsolve._scan import ScanParts, embed, scan
 from bandsolve._threads import single_blas_thread
 from bandsolve.calibration.detail import Detail
 from bandsolve.calibration.methods import CalibrationMethod, method_named
-from bandsolve.calibration.records import Limits, Selection
+from bandsolve.calibration.records import IntervalBasis, Limits, Selection
 from bandsolve.concentrations import ConcentrationTable, align, reference_matrix
 from bandsolve.errors import DataError, where
 from bandsolve.flags import FLAG_COLUMN, join_flags
@@ -33,10 +33,14 @@ from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
 from bandsolve.transfer import Transfer
 
-__all__ = ["EVAL_ROWS", "INTERVAL_LEVEL", "Aligned", "Calibration", "Detail", "result_columns"]
+__all__ = ["EVAL_ROWS", "INTERVAL_LEVEL", "TEXT_COLUMNS", "Aligned", "Calibration", "Detail",
+           "result_columns"]
 
 #: Coverage of the prediction intervals in every results table.
 INTERVAL_LEVEL = 0.95
+
+#: Columns of a results table that hold text; every other column is a number.
+TEXT_COLUMNS = ("sample", "source", FLAG_COLUMN, "interval_basis", "notes")
 
 #: Threads evaluating blocks at once (each block's numbers do not depend on which thread).
 _CORES = max(1, min(os.cpu_count() or 1, 8))
@@ -144,6 +148,11 @@ class Calibration:
         For a model moved to another instrument: the map applied to that instrument's
         spectra (or the correction applied to its predictions) before anything else, with
         its record (:mod:`bandsolve.transfer`).
+    interval : IntervalBasis or None
+        What the intervals rest on beyond calibration. None: calibration only. Written by
+        ``bandsolve assess --out-model``: the model-error SD τ per analyte that an
+        independent validation revealed, added in quadrature to every SE
+        (:mod:`bandsolve.evaluate.validated`).
     """
 
     method: str
@@ -161,6 +170,7 @@ class Calibration:
     merit: FiguresOfMerit | None = None
     provenance: Mapping[str, Any] = field(default_factory=dict)
     transfer: Transfer | None = None
+    interval: IntervalBasis | None = None
 
     def __post_init__(self) -> None:
         method_named(self.method)  # refuse an unknown method at once
@@ -181,6 +191,11 @@ class Calibration:
     def kind(self) -> CalibrationMethod:
         """The method's behaviour (:mod:`bandsolve.calibration.methods`)."""
         return method_named(self.method)
+
+    @property
+    def interval_basis(self) -> str:
+        """What the intervals rest on, in words (the ``interval_basis`` column of results)."""
+        return "calibration only" if self.interval is None else self.interval.label
 
     @property
     def used_mask(self) -> np.ndarray:
@@ -266,7 +281,8 @@ class Calibration:
             One row per spectrum: ``sample``, ``source``, then per analyte the estimate (column
             named exactly as the analyte), ``<analyte> SE``, ``<analyte> low95``,
             ``<analyte> high95``; then ``residual_ratio``, ``t2_ratio``, ``leverage_ratio``,
-            ``flags`` (codes in :data:`bandsolve.flags.FLAG_CODES`) and ``notes``.
+            ``flags`` (codes in :data:`bandsolve.flags.FLAG_CODES`), ``interval_basis``
+            (:attr:`interval_basis`) and ``notes``.
         """
         X, notes = self.prepare(spectra)
         detail = self.detail(X)
@@ -341,7 +357,20 @@ class Calibration:
         if not (all(np.isfinite(ss).all() for _, ss in scans) and np.isfinite(top).all()):
             raise DataError("spectra contain NaN or infinite values; fix or remove them")
         detail = self.kind.detail(self.estimators, self.limits.models, scans)
-        return dataclasses.replace(detail, max_absorbance=top)
+        return self._with_model_error(dataclasses.replace(detail, max_absorbance=top))
+
+    def _with_model_error(self, d: Detail) -> Detail:
+        """Add the validated model-error variance τ² to every SE (``√(s² + τ²)``).
+
+        The t quantile then uses the smaller of the calibration degrees of freedom and
+        ``n_validation − 1`` where τ > 0 (τ² is estimated from the validation samples).
+        """
+        if self.interval is None:
+            return d
+        tau = np.asarray(self.interval.model_error_sd, dtype=float)
+        dof = np.minimum(d.dof, self.interval.n_validation - 1)
+        return dataclasses.replace(d, standard_errors=np.sqrt(d.standard_errors**2 + tau**2),
+                                   dof=np.where(tau > 0, dof, d.dof))
 
     def _table(self, spectra: SpectralSet, d: Detail, over_ceiling: np.ndarray,
                notes: list[str]) -> pd.DataFrame:
@@ -370,6 +399,7 @@ class Calibration:
         cols["t2_ratio"] = d.t2_ratio
         cols["leverage_ratio"] = d.leverage_ratio
         cols[FLAG_COLUMN] = _flag_column(n, checks)
+        cols["interval_basis"] = [self.interval_basis] * n
         cols["notes"] = ["; ".join(dict.fromkeys(notes))] * n
         return pd.DataFrame(cols)
 
@@ -405,4 +435,6 @@ class Calibration:
             "selection": None if self.selection is None else self.selection.to_dict(),
             "merit": None if self.merit is None else self.merit.to_dict(),
             "provenance": dict(self.provenance),
+            "interval": ({"basis": "calibration only"} if self.interval is None
+                         else self.interval.to_dict()),
         } | ({"transfer": self.transfer.describe()} if self.transfer is not None else {})

@@ -4,7 +4,7 @@ Loading never executes code from the file: there is no pickle anywhere. Arrays a
 ``numpy.load(allow_pickle=False)``, estimator classes come from a fixed list, and every
 member's SHA-256 is checked against the manifest before anything is used.
 
-Layout (schema 3)::
+Layout (schema 4; schema 3 files, without the ``interval`` record, read the same way)::
 
     manifest.json   format name, schema version, SHA-256 of every other member, content hash
     model.json      the calibration's fields by name (see FIELDS); typed records (limits,
@@ -32,9 +32,9 @@ from typing import Any
 
 import numpy as np
 
-from bandsolve.calibration.detail import LEVERAGE_FACTOR
+from bandsolve.calibration.detail import CLS_LEVERAGE_FACTOR, LEVERAGE_FACTOR
 from bandsolve.calibration.model import Calibration
-from bandsolve.calibration.records import EstimatorLimits, Limits, Selection
+from bandsolve.calibration.records import EstimatorLimits, IntervalBasis, Limits, Selection
 from bandsolve.cls import CLSRegressor
 from bandsolve.errors import ModelFileError
 from bandsolve.io.atomic import atomic_write
@@ -48,7 +48,7 @@ __all__ = ["FIELDS", "RECORDS", "SCHEMA_VERSION", "save_model", "load_model", "s
 
 #: Version of the layout written. Raise it whenever a field is added (older bandsolve versions
 #: then refuse the file instead of ignoring a field that changes the results).
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 FORMAT_NAME = "bandsolve-model"
 
 #: Plain fields of :class:`Calibration` (numbers, strings, arrays, dictionaries of those).
@@ -57,7 +57,7 @@ FIELDS = ("method", "analytes", "axis", "axis_unit", "calibrated_range", "settin
 #: Fields holding typed records: name → class with ``to_dict``/``from_dict``. A record absent
 #: from an older file loads as None. To add one, see DEVELOPERS.md ("Adding to the model").
 RECORDS: dict[str, Any] = {"limits": Limits, "selection": Selection, "merit": FiguresOfMerit,
-                           "transfer": Transfer}
+                           "transfer": Transfer, "interval": IntervalBasis}
 
 _ESTIMATORS: dict[str, Any] = {c.__name__: c for c in (CLSRegressor, PLSRegressor,
                                                          SpectralPreprocessor)}
@@ -244,7 +244,7 @@ def load_model(path: str | os.PathLike[str]) -> Calibration:
 
 
 def _calibration(doc: dict[str, Any], arrays: dict[str, np.ndarray]) -> Calibration:
-    """Schema 2: named fields and typed records."""
+    """Schemas 3 and 4: named fields and typed records."""
     known = {*FIELDS, *RECORDS, "preprocessor", "estimators"}
     unknown = sorted(set(doc) - known)
     if unknown:
@@ -271,12 +271,13 @@ def _calibration_v1(doc: dict[str, Any], arrays: dict[str, np.ndarray]) -> Calib
             "residual_parameters": m.get("q_parameters") or {}, "t2": m["t2_limit"],
             "leverage": m["leverage_limit"], "msec": m["msec"], "rmsecv": m.get("rmsecv", []),
             "reference_variance": m.get("reference_variance")}) for m in limits["models"])
-    else:  # CLS: the limit lives in the estimator, the leverage limit was computed on use
+    else:  # CLS: the limit lives in the estimator; leverage against the calibrated ranges
         res, est = limits.get("residual") or {}, estimators[0]
+        factor = CLS_LEVERAGE_FACTOR
         models = (EstimatorLimits(
             alpha=float(res.get("alpha") or "nan"), residual=est.residual_limit,
             residual_method=str(res.get("method", "")),
-            leverage=est.leverage_limit(factor)),)
+            leverage=est.leverage_limit(factor, _decode(doc["calibrated_range"], arrays))),)
     selection, merit = _decode(doc.get("selection"), arrays), _decode(doc.get("merit"), arrays)
     return Calibration(
         method=doc["method"], analytes=tuple(doc["analytes"]),

@@ -18,7 +18,7 @@ import pandas as pd
 
 from bandsolve.errors import ModelFileError
 
-__all__ = ["ComponentChoice", "EstimatorLimits", "Limits", "Selection"]
+__all__ = ["ComponentChoice", "EstimatorLimits", "IntervalBasis", "Limits", "Selection"]
 
 _T = TypeVar("_T")
 _NAN = float("nan")
@@ -67,6 +67,12 @@ class EstimatorLimits:
     reference_variance : tuple of float
         Variance of the reference values σ²_ref per analyte, subtracted in the PLS
         standard error (empty: zero).
+    error_scale : tuple of float
+        CLS: factor ≥ 1 per analyte applied to the white-noise SE, the ratio of the
+        leave-one-out errors to their reported SEs (``CLSRegressor.error_scale``; empty: 1).
+    error_scale_dof : int
+        Calibration samples behind ``error_scale`` (degrees of freedom of the t quantile
+        where the scale exceeds 1).
     """
 
     alpha: float
@@ -78,6 +84,8 @@ class EstimatorLimits:
     msec: tuple[float, ...] = ()
     rmsecv: tuple[float, ...] = ()
     reference_variance: tuple[float, ...] = ()
+    error_scale: tuple[float, ...] = ()
+    error_scale_dof: int = 0
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary (inverse of :meth:`from_dict`)."""
@@ -86,7 +94,8 @@ class EstimatorLimits:
                 "residual_parameters": dict(self.residual_parameters), "t2": self.t2,
                 "leverage": self.leverage, "msec": list(self.msec),
                 "rmsecv": list(self.rmsecv),
-                "reference_variance": list(self.reference_variance)}
+                "reference_variance": list(self.reference_variance),
+                "error_scale": list(self.error_scale), "error_scale_dof": self.error_scale_dof}
 
     @classmethod
     def from_dict(cls, data: Mapping[str, Any]) -> EstimatorLimits:
@@ -98,7 +107,9 @@ class EstimatorLimits:
                                  for k, v in dict(data["residual_parameters"]).items()},
             t2=_float(data["t2"]), leverage=_float(data["leverage"]),
             msec=_floats(data["msec"]), rmsecv=_floats(data["rmsecv"]),
-            reference_variance=_floats(data.get("reference_variance") or ())))
+            reference_variance=_floats(data.get("reference_variance") or ()),
+            error_scale=_floats(data.get("error_scale") or ()),
+            error_scale_dof=int(data.get("error_scale_dof") or 0)))
 
 
 @dataclass(frozen=True)
@@ -108,7 +119,9 @@ class Limits:
     Attributes
     ----------
     leverage_factor : float
-        The leverage warning limit is this factor × (parameters)/n (Hoaglin & Welsch 1978).
+        PLS: the leverage warning limit is this factor × (A + 1)/n (Hoaglin & Welsch 1978).
+        CLS: this factor × the largest leverage of a composition inside the calibrated
+        ranges (``CLSRegressor.leverage_limit``).
     models : tuple of EstimatorLimits
         In the order of ``Calibration.estimators``.
     """
@@ -285,3 +298,55 @@ class Selection:
         models = _parse("selection", lambda: list(data["models"]))
         return _parse("selection", lambda: cls(
             mode=str(data["mode"]), models=tuple(ComponentChoice.from_dict(m) for m in models)))
+
+
+@dataclass(frozen=True)
+class IntervalBasis:
+    """What a model's prediction intervals rest on beyond calibration: an independent validation.
+
+    Written by ``bandsolve assess --out-model`` (:mod:`bandsolve.evaluate.validated`); a
+    model without it has calibration-only intervals.
+
+    Attributes
+    ----------
+    method : str
+        How validation enters the intervals, in words.
+    model_error_sd : tuple of float
+        τ per analyte (concentration units), added in quadrature to every SE.
+    n_validation : int
+        Independent validation samples τ was estimated from; the t quantile then uses
+        ``n_validation − 1`` degrees of freedom where τ > 0.
+    validation_files : tuple of dict
+        Name and SHA-256 of each validation file.
+    created : str
+        When the validated model was written (ISO 8601, UTC).
+    """
+
+    method: str
+    model_error_sd: tuple[float, ...]
+    n_validation: int
+    validation_files: tuple[dict[str, str], ...] = ()
+    created: str = ""
+
+    @property
+    def label(self) -> str:
+        """The basis in words, for every result row."""
+        return (f"validated on {self.n_validation} independent samples (calibration SE plus "
+                "model error)")
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-friendly dictionary (inverse of :meth:`from_dict`)."""
+        return {"basis": "validated", "method": self.method,
+                "model_error_sd": list(self.model_error_sd), "n_validation": self.n_validation,
+                "validation_files": [dict(f) for f in self.validation_files],
+                "created": self.created}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> IntervalBasis:
+        """Rebuild from :meth:`to_dict` output."""
+        return _parse("interval", lambda: cls(
+            method=str(data["method"]), model_error_sd=_floats(data["model_error_sd"]),
+            n_validation=int(data["n_validation"]),
+            validation_files=tuple({str(k): str(v) for k, v in dict(f).items()}
+                                   for f in data.get("validation_files") or ()),
+            created=str(data.get("created") or "")))

@@ -4,11 +4,13 @@ from __future__ import annotations
 
 import argparse
 import json
+from pathlib import Path
 
-from bandsolve.calibration.modelfile import load_model
+from bandsolve.calibration.modelfile import load_model, save_model
 from bandsolve.cautions import SHORT_CAUTION
-from bandsolve.cli._common import add_input_options, read_options, write_table
-from bandsolve.evaluate.assess import assess, read_spectra_files
+from bandsolve.cli._common import add_input_options, eprint, read_options, write_table
+from bandsolve.errors import BandsolveError
+from bandsolve.evaluate.assess import assess, read_spectra_files, validated_model
 from bandsolve.io import read_concentrations
 
 EXAMPLES = """\
@@ -18,6 +20,13 @@ examples:
   bandsolve assess models/rinse-cls.bsm --spectra test/ --concentrations test_conc.csv \\
       --samples per-sample.csv --json > assessment.json
   bandsolve assess models/rinse-pls.bsm --spectra day1.csv day2.csv --concentrations ref.csv
+  bandsolve assess models/rinse-cls.bsm --spectra val/ --concentrations val_conc.csv \
+      --out-model models/rinse-cls-validated.bsm
+
+--out-model writes a NEW model file (the assessed one is never changed) whose 95 % intervals
+add the model error this independent test set revealed to every standard error; results of
+that model say "validated on N independent samples". Use 30 or more validation mixtures
+measured the way routine samples are (other days, other cells, other analysts).
 
 --spectra takes files (each may hold many spectra) and folders, searched like predict's
 inputs; all are stacked into one test set. When a given file is one the model was built
@@ -42,12 +51,18 @@ def register(sub: argparse._SubParsersAction) -> None:
                    help="write the per-sample table (reference, predicted, error, SE, flags)")
     p.add_argument("--alpha", type=float, default=0.05,
                    help="level of the confidence intervals and tests (default 0.05)")
+    p.add_argument("--out-model", metavar="NEW.bsm",
+                   help="write a new model whose intervals include the model error this "
+                        "independent test set revealed")
     p.add_argument("--json", action="store_true", help="machine-readable output")
     add_input_options(p)
     p.set_defaults(func=run)
 
 
 def run(args: argparse.Namespace) -> int:
+    if args.out_model and Path(args.out_model).resolve() == Path(args.model).resolve():
+        raise BandsolveError(f"--out-model {args.out_model} is the assessed model itself; "
+                             "give a new file name (a model is never changed in place)")
     model = load_model(args.model)
     test = read_spectra_files(args.spectra, read_options(args), pattern=args.glob)
     table = read_concentrations(args.concentrations)
@@ -55,6 +70,11 @@ def run(args: argparse.Namespace) -> int:
                     files=[*test.files, args.concentrations])
     if args.samples:
         write_table(result.samples, args.samples)
+    if args.out_model:
+        new = validated_model(model, result, [*test.files, args.concentrations])
+        checksum = save_model(new, args.out_model)
+        eprint(f"validated model written to {args.out_model} (checksum {checksum[:12]}): "
+               f"intervals now rest on {new.interval_basis}")
     if args.json:
         print(json.dumps(result.to_dict(), indent=2, default=str))
     else:

@@ -58,6 +58,9 @@ def register(sub: argparse._SubParsersAction) -> None:
                    help="replicate blank spectra for the noise level of the figures of merit "
                         "(LOD, LOQ); without them it is estimated from calibration residuals")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--leverage-factor", type=float, metavar="F",
+                   help="leverage flag limit: CLS F × the largest leverage inside the "
+                        "calibrated ranges (default 1); PLS F × (A+1)/n (default 3)")
     p.add_argument("--ceiling", type=float, default=2.0, metavar="AU",
                    help="photometric ceiling in absorbance units (default 2.0)")
     c = p.add_argument_group("CLS options")
@@ -160,8 +163,9 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
         raise BandsolveError("give --spectra and --concentrations (or --absorptivity for CLS)")
     spectra = read_spectra(args.spectra, **read_options(args))
     blank = read_spectra(args.blank, **read_options(args)) if args.blank else None
+    lev = {} if args.leverage_factor is None else {"leverage_factor": args.leverage_factor}
     return BUILDERS[args.method](args, spectra, window=window, blank=blank, blanks=blanks,
-                                 ceiling=args.ceiling, provenance=prov)
+                                 ceiling=args.ceiling, provenance=prov, **lev)
 
 
 def run(args: argparse.Namespace) -> int:

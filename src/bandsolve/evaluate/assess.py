@@ -10,24 +10,26 @@ squares with t intervals on ``n_p − 2`` df and the joint F-test of ``b = 1, a 
 
 from __future__ import annotations
 
+import dataclasses
 import os
 import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
+import numpy as np
 import pandas as pd
 from scipy import stats
 
-from bandsolve.calibration.model import Calibration
+from bandsolve.calibration.model import Calibration, result_columns
 from bandsolve.concentrations import ConcentrationTable, split_unit
-from bandsolve.errors import BandsolveWarning
+from bandsolve.errors import BandsolveWarning, DataError
 from bandsolve.flags import FLAG_COLUMN, split_flags
 from bandsolve.merit import RegressionStatistics, regression_statistics
 from bandsolve.spectra import SpectralSet
 
 __all__ = ["AnalyteAssessment", "Assessment", "SpectraFiles", "assess", "calibration_files",
-           "read_spectra_files"]
+           "read_spectra_files", "validated_model"]
 
 #: Why figures computed on the calibration samples themselves prove little.
 NOT_INDEPENDENT = "RMSEP on them is not an independent validation"
@@ -95,6 +97,15 @@ class AnalyteAssessment:
     consistency_p : float or None
         ``P(F(n_p, n_cal) ≥ RMSEP²/RMSECV²)``: small when the test errors are larger than the
         calibration promised.
+    covered, n_intervals : int
+        Test samples whose reference lies inside the model's 95 % interval, out of those
+        with an interval.
+    coverage_ci : (float, float)
+        Clopper–Pearson interval of the coverage at the assessment's level.
+    model_error_sd : float
+        τ̂, the model-error SD this test set reveals beyond the calibration-only SE
+        (:func:`bandsolve.evaluate.validated.additive_model_error`); what ``--out-model``
+        stores.
     """
 
     analyte: str
@@ -103,6 +114,15 @@ class AnalyteAssessment:
     rmsecv: float | None
     rmsep_ratio: float | None
     consistency_p: float | None
+    covered: int = 0
+    n_intervals: int = 0
+    coverage_ci: tuple[float, float] = (float("nan"), float("nan"))
+    model_error_sd: float = float("nan")
+
+    @property
+    def coverage(self) -> float:
+        """Share of references inside their 95 % interval (NaN without intervals)."""
+        return self.covered / self.n_intervals if self.n_intervals else float("nan")
 
 
 @dataclass(frozen=True)
@@ -120,7 +140,8 @@ class Assessment:
         Spectra per flag code.
     samples : pandas.DataFrame
         Per sample: ``sample``, per analyte ``<label> reference``, ``<label>`` (predicted),
-        ``<label> error``, ``<label> SE``; then ``flags``.
+        ``<label> error``, ``<label> SE``, ``<label> low95``, ``<label> high95``,
+        ``<label> SE (calibration)``; then ``flags``.
     alpha : float
         Level of the confidence intervals and tests.
     calibration_files : tuple of str
@@ -136,6 +157,7 @@ class Assessment:
     samples: pd.DataFrame
     alpha: float
     calibration_files: tuple[str, ...] = ()
+    interval_basis: str = "calibration only"
 
     @property
     def independent(self) -> bool:
@@ -168,6 +190,8 @@ class Assessment:
                 "intercept low": s.intercept_ci[0], "intercept high": s.intercept_ci[1],
                 "line F": s.line_f, "line p": s.line_p, "RMSECV (model)": a.rmsecv,
                 "RMSEP/RMSECV": a.rmsep_ratio, "consistency p": a.consistency_p,
+                "coverage": a.coverage, "coverage low": a.coverage_ci[0],
+                "coverage high": a.coverage_ci[1], "model error SD": a.model_error_sd,
             })
         return pd.DataFrame(rows).set_index("analyte")
 
@@ -193,9 +217,16 @@ class Assessment:
             if a.rmsecv is not None:
                 lines.append(f"  model RMSECV {a.rmsecv:.4g}: RMSEP/RMSECV = "
                              f"{a.rmsep_ratio:.3g} (F-test p = {a.consistency_p:.3g})")
+            if a.n_intervals:
+                lines.append(
+                    f"  95 % intervals cover {a.covered} of {a.n_intervals} references "
+                    f"({100 * a.coverage:.0f} %, {pct} % CI {100 * a.coverage_ci[0]:.0f}–"
+                    f"{100 * a.coverage_ci[1]:.0f} %); model error beyond the calibration SE: "
+                    f"{a.model_error_sd:.3g} {u}")
         flagged = ", ".join(f"{k} {v}" for k, v in sorted(self.flag_counts.items()))
         lines.append(f"flagged results: {self.n_flagged} of {self.n_samples} "
                      f"({100 * self.fraction_flagged:.0f} %)" + (f": {flagged}" if flagged else ""))
+        lines.append(f"intervals: {self.interval_basis}")
         lines.append("conventions: RMSEP √(Σe²/n); bias test t = |bias|√n/SEP on n−1 df; SEP "
                      "bias-corrected (n−1); RPD = SD(reference)/SEP; line by OLS, joint F-test "
                      "on (2, n−2) df; e = predicted − reference")
@@ -215,8 +246,12 @@ class Assessment:
             "note": self.note,
             "analytes": [{"analyte": a.analyte, "unit": a.unit,
                           "statistics": a.statistics.to_dict(), "rmsecv": a.rmsecv,
-                          "rmsep_ratio": a.rmsep_ratio, "consistency_p": a.consistency_p}
+                          "rmsep_ratio": a.rmsep_ratio, "consistency_p": a.consistency_p,
+                          "covered": a.covered, "n_intervals": a.n_intervals,
+                          "coverage": a.coverage, "coverage_ci": list(a.coverage_ci),
+                          "model_error_sd": a.model_error_sd}
                          for a in self.analytes],
+            "interval_basis": self.interval_basis,
             "samples": self.samples.to_dict(orient="records"),
         }
 
@@ -256,8 +291,12 @@ def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
     calibration. Pure Appl. Chem. 78, 633-661.
     ICH Q2(R2) (2023). Validation of analytical procedures (accuracy on an independent set).
     """
+    from bandsolve.evaluate.validated import additive_model_error, coverage_interval
+
     reference = cal.align(spectra, table).reference
     predicted = cal.predict(spectra)
+    base = predicted if not cal.interval else dataclasses.replace(
+        cal, interval=None).predict(spectra)  # calibration-only SE, for τ²
     n = len(predicted)
     n_cal = int(cal.provenance.get("n_calibration_samples") or 0)
     samples: dict[str, Any] = {"sample": predicted["sample"].tolist()}
@@ -268,13 +307,26 @@ def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
         samples[label] = y_hat
         samples[f"{label} error"] = y_hat - reference[:, k]
         samples[f"{label} SE"] = predicted[f"{label} SE"].to_numpy(dtype=float)
+        name_lo, name_hi = result_columns(label)[2:]
+        low, high = (predicted[c].to_numpy(dtype=float) for c in (name_lo, name_hi))
+        samples[name_lo], samples[name_hi] = low, high
+        se_cal = base[f"{label} SE"].to_numpy(dtype=float)
+        samples[f"{label} SE (calibration)"] = se_cal
+        has = np.isfinite(low) & np.isfinite(high)
+        covered = int(np.sum(has & (low <= reference[:, k]) & (reference[:, k] <= high)))
+        try:
+            tau = float(np.sqrt(additive_model_error(y_hat - reference[:, k], se_cal)))
+        except DataError:  # no standard errors to compare with
+            tau = float("nan")
         s = regression_statistics(reference[:, k], y_hat, alpha=alpha)
         ratio = p_value = None
         if cv is not None and cv > 0:
             ratio = s.rmse / cv
             p_value = float(stats.f.sf(ratio**2, n, n_cal)) if n_cal > 0 else None
         name, unit = split_unit(label)
-        results.append(AnalyteAssessment(name, unit or "unit", s, cv, ratio, p_value))
+        results.append(AnalyteAssessment(name, unit or "unit", s, cv, ratio, p_value, covered,
+                                         int(has.sum()), coverage_interval(
+                                             covered, int(has.sum()), alpha), tau))
     samples[FLAG_COLUMN] = predicted[FLAG_COLUMN].tolist()
     counts: dict[str, int] = {}
     for text in samples[FLAG_COLUMN]:
@@ -282,7 +334,40 @@ def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
             counts[code] = counts.get(code, 0) + 1
     n_flagged = sum(1 for text in samples[FLAG_COLUMN] if split_flags(text))
     result = Assessment(cal.method, tuple(results), n, n_flagged, counts,
-                        pd.DataFrame(samples), float(alpha), calibration_files(cal, files))
+                        pd.DataFrame(samples), float(alpha), calibration_files(cal, files),
+                        cal.interval_basis)
     if not result.independent:
         warnings.warn(result.note, BandsolveWarning, stacklevel=2)
     return result
+
+
+def validated_model(cal: Calibration, result: Assessment,
+                    files: Sequence[str]) -> Calibration:
+    """A new model whose intervals carry the model error ``result`` revealed.
+
+    Parameters
+    ----------
+    cal : Calibration
+        The model that was assessed.
+    result : Assessment
+        Its assessment on an independent test set (refused when not independent: the
+        calibration's own samples cannot reveal errors calibration cannot see).
+    files : sequence of str
+        The test files, fingerprinted (name, SHA-256) into the new model.
+
+    Returns
+    -------
+    Calibration
+        See :func:`bandsolve.evaluate.validated.validated_calibration`.
+    """
+    from bandsolve.calibration.modelfile import sha256_file
+    from bandsolve.evaluate.validated import validated_calibration
+
+    if not result.independent:
+        raise DataError(f"{result.note}; validate on samples the model was not built from")
+    frame = result.samples
+    errors = np.column_stack([frame[f"{a} error"] for a in cal.analytes])
+    ses = np.column_stack([frame[f"{a} SE (calibration)"] for a in cal.analytes])
+    prints = [{"name": os.path.basename(f), "sha256": sha256_file(f)} for f in files
+              if os.path.isfile(f)]
+    return validated_calibration(cal, errors, ses, prints)

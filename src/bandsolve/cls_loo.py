@@ -1,0 +1,125 @@
+"""Leave-one-out CLS in closed form: every calibration sample predicted by the model without it.
+
+Removing sample i from ``K̂ = (CᵀC)⁻¹CᵀA`` is a rank-one downdate (Sherman–Morrison):
+``K̂₍₋ᵢ₎ = K̂ − u_i e_iᵀ`` with ``u_i = G c_i/(1 − h_ii)``, ``G = (CᵀC)⁻¹``, ``h_ii = c_iᵀGc_i``
+and ``e_i = a_i − K̂ᵀc_i`` the fitted residual (Cook & Weisberg 1982, §2.2; the same identity
+gives PRESS residuals in ordinary regression). Prediction of ``a_i`` with the downdated spectra
+then needs only ``K_aug₍₋ᵢ₎K_aug₍₋ᵢ₎ᵀ`` and ``K_aug₍₋ᵢ₎a_i``, which are small (k × k and k)
+corrections of products formed once for all samples. Nothing is refitted: the cost is
+``O(npk)`` for the products plus n solves of size k, against n refits of ``O(npk)`` each.
+
+References
+----------
+Sherman, J. & Morrison, W. J. (1950). Adjustment of an inverse matrix corresponding to a change
+in one element of a given matrix. Ann. Math. Stat. 21, 124-127.
+Cook, R. D. & Weisberg, S. (1982). Residuals and Influence in Regression. Chapman & Hall.
+Haaland, D. M. & Thomas, E. V. (1988). Partial least-squares methods for spectral analyses. 1.
+Anal. Chem. 60, 1193-1202.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["LeaveOneOut", "cls_leave_one_out"]
+
+#: ``1 − h_ii`` below this: the sample alone determines a model term and cannot be left out.
+_ALONE = 1e-9
+
+
+@dataclass(frozen=True)
+class LeaveOneOut:
+    """Leave-one-out predictions of the calibration samples.
+
+    Attributes
+    ----------
+    concentrations : ndarray, shape (n, m)
+        ``ĉ₍₋ᵢ₎``: each sample predicted by the model fitted without it (concentration units);
+        NaN rows for samples that alone carry a model term (an analyte's only standard).
+    residual_ss : ndarray, shape (n,)
+        ``‖a_i − bg₍₋ᵢ₎ − K_aug₍₋ᵢ₎ᵀĉ_aug‖²`` (AU²); NaN where the sample cannot be left out.
+    leverage : ndarray, shape (n,)
+        ``c̃ᵀ(C₍₋ᵢ₎ᵀC₍₋ᵢ₎)⁻¹c̃`` at the predicted composition ``c̃`` (with the intercept 1), the
+        leverage the sample would get as a new sample; NaN where it cannot be left out.
+    standard_errors : ndarray, shape (n, m)
+        The standard error the downdated model reports for its prediction of sample i,
+        ``√(s²_i[(K_aug₍₋ᵢ₎K_aug₍₋ᵢ₎ᵀ)⁻¹]_kk)`` with ``s²_i = r₍₋ᵢ₎ᵀr₍₋ᵢ₎/(p − m − q)``;
+        NaN where the sample cannot be left out or no residual degrees of freedom remain.
+    """
+
+    concentrations: np.ndarray
+    residual_ss: np.ndarray
+    leverage: np.ndarray
+    standard_errors: np.ndarray
+
+
+def cls_leave_one_out(X: np.ndarray, design: np.ndarray, coef: np.ndarray, gram_inv: np.ndarray,
+                      n_analytes: int, baseline_rows: np.ndarray) -> LeaveOneOut:
+    """Closed-form leave-one-out CLS predictions (see the module docstring).
+
+    Parameters
+    ----------
+    X : ndarray, shape (n, p)
+        Calibration spectra (AU).
+    design : ndarray, shape (n, m′)
+        Concentrations, with a ones column last when the model has an intercept.
+    coef : ndarray, shape (m′, p)
+        ``K̂`` (first ``n_analytes`` rows) and, with an intercept, the background row.
+    gram_inv : ndarray, shape (m′, m′)
+        ``(CᵀC)⁻¹`` of ``design``.
+    n_analytes : int
+        m, the number of concentration columns.
+    baseline_rows : ndarray, shape (q, p)
+        Baseline polynomial rows solved with the concentrations at prediction.
+
+    Returns
+    -------
+    LeaveOneOut
+    """
+    n, p = X.shape
+    m, mp = n_analytes, design.shape[1]
+    intercept = mp > m
+    E = X - design @ coef                       # fitted residuals e_i, (n, p)
+    h = np.einsum("ij,jk,ik->i", design, gram_inv, design)
+    alone = 1.0 - h < _ALONE
+    U = (design @ gram_inv) / np.where(alone, 1.0, 1.0 - h)[:, None]   # u_i, (n, m′)
+    bg = coef[m] if intercept else np.zeros(p)
+    K = np.vstack([coef[:m], baseline_rows])    # K_aug, (k, p)
+    k = K.shape[0]
+    Xb = X - bg
+    ub = U[:, m] if intercept else np.zeros(n)  # background downdate: a_i = x_i − bg + ub e_i
+    Ku = np.zeros((n, k))
+    Ku[:, :m] = U[:, :m]                          # ũ_i: only analyte rows of K_aug change
+    KE, KX = E @ K.T, Xb @ K.T                  # K_aug e_i and K_aug (x_i − bg), (n, k)
+    ee = np.einsum("ij,ij->i", E, E)
+    ex = np.einsum("ij,ij->i", E, Xb)
+    xx = np.einsum("ij,ij->i", Xb, Xb)
+    # K₍₋ᵢ₎K₍₋ᵢ₎ᵀ = KKᵀ − ũ(Ke)ᵀ − (Ke)ũᵀ + (eᵀe)ũũᵀ
+    T = np.einsum("ia,ib->iab", Ku, KE)
+    M = (K @ K.T)[None] - T - np.transpose(T, (0, 2, 1)) + ee[:, None, None] * np.einsum(
+        "ia,ib->iab", Ku, Ku)
+    Ka = KX + ub[:, None] * KE                  # K a_i
+    ea = ex + ub * ee                           # e_iᵀa_i
+    v = Ka - Ku * ea[:, None]                   # K₍₋ᵢ₎ a_i
+    aa = xx + 2 * ub * ex + ub**2 * ee          # a_iᵀa_i
+    ok = ~alone
+    coef_i = np.full((n, k), np.nan)
+    diag = np.full((n, m), np.nan)
+    if ok.any():
+        M_inv = np.linalg.inv(M[ok])
+        coef_i[ok] = np.einsum("iab,ib->ia", M_inv, v[ok])
+        diag[ok] = np.diagonal(M_inv, axis1=1, axis2=2)[:, :m]
+    rss = np.maximum(aa - np.einsum("ij,ij->i", coef_i, v), 0.0)
+    dof = p - k
+    se = np.sqrt(rss[:, None] / dof * diag) if dof > 0 else np.full((n, m), np.nan)
+    conc = coef_i[:, :m]
+    ctil = np.column_stack([conc, np.ones(n)]) if intercept else conc
+    gz = ctil @ gram_inv
+    # (C₍₋ᵢ₎ᵀC₍₋ᵢ₎)⁻¹ = G + G c_i c_iᵀ G/(1 − h_ii)  (Sherman–Morrison)
+    lev = np.einsum("ij,ij->i", gz, ctil) + np.einsum("ij,ij->i", gz, design) ** 2 / np.where(
+        alone, 1.0, 1.0 - h)
+    rss[alone] = np.nan
+    lev[alone] = np.nan
+    return LeaveOneOut(conc, rss, lev, se)

@@ -1,0 +1,130 @@
+"""CLS statistics: closed-form leave-one-out, K̂'s error counted once, leverage inside ranges.
+
+Expected values come from refitting with numpy (leave-one-out by definition), from the theory
+in METHODS §1 (``E[rᵀr] = σ²(1 + h_c)(p − m)``; Haaland & Thomas 1988), and from scipy's F
+distribution.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from scipy import stats
+
+from bandsolve.calibration.build import build_cls, build_cls_from_absorptivities
+from bandsolve.cls import CLSRegressor
+from bandsolve.concentrations import ConcentrationTable
+from bandsolve.spectra import SpectralSet
+from tests.conftest import gaussian_bands
+
+AXIS = np.linspace(400.0, 700.0, 121)
+
+
+def _bands(m: int) -> np.ndarray:
+    return gaussian_bands(AXIS, np.linspace(440, 660, m), [35.0] * m)
+
+
+@settings(max_examples=25, deadline=None)
+@given(st.integers(1, 4), st.integers(0, 2**31 - 1), st.booleans(),
+       st.sampled_from(["none", "offset", "linear"]))
+def test_closed_form_leave_one_out_equals_refits(m, rs, intercept, baseline):
+    # Leave-one-out by definition (Cook & Weisberg 1982): refit K̂ without sample i with
+    # numpy.linalg.lstsq and predict sample i with its baseline rows.
+    rng = np.random.default_rng(rs)
+    n, p = 3 * m + 4, AXIS.size
+    C = rng.uniform(0.1, 1, (n, m))
+    A = C @ _bands(m) + 0.01 + rng.normal(0, 0.003, (n, p))
+    model = CLSRegressor(fit_intercept=intercept, baseline=baseline, wavelengths=AXIS).fit(A, C)
+    z = (AXIS - AXIS.mean()) / ((AXIS.max() - AXIS.min()) / 2)
+    rows = [z**k for k in range({"none": 0, "offset": 1, "linear": 2}[baseline])]
+    dof = p - m - len(rows)
+    loo = model.loo_predictions()
+    z = np.empty((n, m))
+    for i in range(n):
+        keep = np.arange(n) != i
+        D = np.column_stack([C, np.ones(n)]) if intercept else C
+        coef = np.linalg.lstsq(D[keep], A[keep], rcond=None)[0]
+        aug = np.vstack([coef[:m], *rows])
+        a = A[i] - (coef[m] if intercept else 0.0)
+        sol = np.linalg.lstsq(aug.T, a, rcond=None)[0]
+        np.testing.assert_allclose(loo[i], sol[:m], rtol=1e-7, atol=1e-9)
+        r = a - aug.T @ sol
+        se = np.sqrt(r @ r / dof * np.diag(np.linalg.inv(aug @ aug.T))[:m])
+        z[i] = (sol[:m] - C[i]) / se
+        ctil = np.r_[sol[:m], 1.0] if intercept else sol[:m]
+        h = ctil @ np.linalg.inv(D[keep].T @ D[keep]) @ ctil
+        expected = (r @ r / dof) / (model.s2_cal_ * (1 + h))  # METHODS §1 F ratio
+        assert model.cv_f_ratios_[i] == pytest.approx(expected, rel=1e-6)
+    # Error scale: RMS of the studentized leave-one-out errors, at least 1 (Birge 1932).
+    scale, dof_scale = model.error_scale()
+    np.testing.assert_allclose(scale, np.maximum(1, np.sqrt(np.mean(z**2, axis=0))), rtol=1e-6)
+    assert dof_scale == n
+
+
+def test_box_leverage_is_the_largest_inside_the_ranges():
+    # The largest c̃ᵀ(CᵀC)⁻¹c̃ over a dense grid of in-range compositions (numpy) must not
+    # exceed the stored value, and is reached at a corner (a convex quadratic; theory).
+    rng = np.random.default_rng(4)
+    C = rng.uniform(0.2, 1.0, (9, 3))
+    for intercept in (False, True):
+        model = CLSRegressor(fit_intercept=intercept).fit(C @ _bands(3) + rng.normal(
+            0, 1e-3, (9, AXIS.size)), C)
+        grid = np.stack(np.meshgrid(*[np.linspace(lo, hi, 11) for lo, hi in
+                                      zip(C.min(0), C.max(0), strict=True)]), -1).reshape(-1, 3)
+        D = np.column_stack([grid, np.ones(len(grid))]) if intercept else grid
+        Dc = np.column_stack([C, np.ones(9)]) if intercept else C
+        h = np.einsum("ij,jk,ik->i", D, np.linalg.inv(Dc.T @ Dc), D)
+        ranges = np.column_stack([C.min(0), C.max(0)])
+        assert model.leverage_limit(1.0, ranges) == pytest.approx(h.max(), rel=1e-9)
+        assert model.leverage_limit(2.0, ranges) == pytest.approx(2 * h.max(), rel=1e-9)
+
+
+def test_absorptivity_model_residual_limit_is_the_f_quantile():
+    # Residual variance over blank noise from r replicate blanks on p channels is referred to
+    # F(p − m, (r − 1)p) (ratio of independent variance estimates; METHODS §10).
+    K = _bands(3)
+    rng = np.random.default_rng(2)
+    r = 12
+    blanks = SpectralSet(AXIS, rng.normal(0, 0.002, (r, AXIS.size)),
+                         [f"b{i}" for i in range(r)])
+    eps = SpectralSet(AXIS, K, ["a [mg/L]", "b [mg/L]", "c [mg/L]"], quantity="absorptivity")
+    cal = build_cls_from_absorptivities(eps, 1.0, blanks=blanks)
+    p, m = AXIS.size, 3
+    assert cal.estimators[0].residual_limit == pytest.approx(
+        stats.f.ppf(0.99, p - m, (r - 1) * p), rel=1e-12)
+
+
+def _standards(m: int, levels=(0.2, 0.4, 0.6, 0.8, 1.0)):
+    C = np.vstack([np.eye(m)[k] * v for k in range(m) for v in levels])
+    return C, [f"s{i}" for i in range(len(C))]
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("m", [2, 6])
+def test_pure_standards_intervals_and_flags_on_in_range_mixtures(m):
+    # CLS from pure standards (5 levels each), white noise. Theory (METHODS §1): the sample's
+    # own residual variance estimates σ²(1 + h_c), so 95 % intervals cover 95 % and the
+    # α = 0.01 residual test fires on about 1 % of in-range mixtures; no in-range mixture is
+    # extrapolation under Beer's-law additivity, so leverage never fires.
+    rng = np.random.default_rng(100 + m)
+    K, sigma = _bands(m), 0.003
+    labels = [f"a{k}" for k in range(m)]
+    C, ids = _standards(m)
+    hits = total = resid = lev = 0
+    for _ in range(60):
+        cal = build_cls(SpectralSet(AXIS, C @ K + rng.normal(0, sigma, (len(C), AXIS.size)),
+                                    ids), ConcentrationTable(ids, labels, C))
+        Ct = rng.uniform(0.2, 1.0, (20, m))
+        res = cal.predict(SpectralSet(AXIS, Ct @ K + rng.normal(0, sigma, (20, AXIS.size)),
+                                      [f"t{i}" for i in range(20)]))
+        for k, lab in enumerate(labels):
+            hits += int(((res[f"{lab} low95"] <= Ct[:, k])
+                         & (Ct[:, k] <= res[f"{lab} high95"])).sum())
+            total += 20
+        resid += int(res["flag_codes"].str.contains("residual").sum())
+        lev += int(res["flag_codes"].str.contains("leverage").sum())
+    assert 0.93 <= hits / total <= 0.97
+    assert resid / (60 * 20) <= 0.03
+    assert lev == 0

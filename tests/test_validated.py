@@ -1,0 +1,121 @@
+"""Validated intervals: the additive model-error variance, coverage in ``assess``, --out-model.
+
+Expected values come from theory (the moment identity ``E[Σwe²] = n + τ²Σw``; DerSimonian &
+Laird 1986), scipy's beta quantiles (Clopper & Pearson 1934) and numpy.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from bandsolve.calibration.build import build_cls
+from bandsolve.calibration.modelfile import load_model, save_model
+from bandsolve.cli import main
+from bandsolve.concentrations import ConcentrationTable
+from bandsolve.errors import DataError
+from bandsolve.evaluate.assess import assess, validated_model
+from bandsolve.evaluate.validated import additive_model_error, coverage_interval
+from bandsolve.io import write_concentrations_csv, write_spectra_csv
+from bandsolve.spectra import SpectralSet
+from tests.conftest import gaussian_bands
+
+AXIS = np.linspace(400.0, 700.0, 121)
+K = gaussian_bands(AXIS, (480, 530, 590), (40, 45, 40))
+LABELS = ("A [mg/L]", "B [mg/L]", "C [mg/L]")
+
+
+def test_model_error_equal_weights_is_mean_square_minus_variance():
+    # With equal s the moment estimator is mean(e²) − s² (theory; DerSimonian & Laird 1986).
+    rng = np.random.default_rng(3)
+    e = rng.normal(0, 0.5, 40)
+    s = np.full(40, 0.2)
+    assert additive_model_error(e, s) == pytest.approx(max(np.mean(e**2) - 0.04, 0.0))
+    assert additive_model_error(np.zeros(5), np.ones(5)) == 0.0  # truncated at zero
+
+
+def test_model_error_is_unbiased_for_large_tau():
+    # E[τ̂²] = τ² when truncation never bites (theory): heterogeneous s, 4000 repetitions.
+    rng = np.random.default_rng(5)
+    s = rng.uniform(0.05, 0.2, 30)
+    tau = 0.3
+    est = [additive_model_error(rng.normal(0, np.sqrt(s**2 + tau**2)), s) for _ in range(4000)]
+    assert np.mean(est) == pytest.approx(tau**2, rel=0.03)
+
+
+def test_coverage_interval_is_clopper_pearson():
+    # Clopper & Pearson (1934): beta quantiles B(α/2; x, n−x+1) and B(1−α/2; x+1, n−x).
+    low, high = coverage_interval(27, 30)
+    assert low == pytest.approx(stats.beta.ppf(0.025, 27, 4), rel=1e-9)
+    assert high == pytest.approx(stats.beta.ppf(0.975, 28, 3), rel=1e-9)
+
+
+def _day(rng, conc, prefix, gain=0.0, offset=0.0):
+    ids = [f"{prefix}{i}" for i in range(len(conc))]
+    x = (1 + gain) * conc @ K + offset + rng.normal(0, 0.002, (len(conc), AXIS.size))
+    return SpectralSet(AXIS, x, ids), ConcentrationTable(ids, LABELS, conc)
+
+
+def test_assess_reports_coverage_and_writes_a_validated_model(tmp_path):
+    rng = np.random.default_rng(8)
+    cal = build_cls(*_day(rng, rng.uniform(0.1, 1, (20, 3)), "c"))
+    spectra, table = _day(rng, rng.uniform(0.1, 1, (30, 3)), "v", gain=0.04)
+    result = assess(cal, spectra, table)
+    frame = result.samples
+    ref = np.asarray(table.values)
+    for k, label in enumerate(LABELS):
+        inside = (frame[f"{label} low95"] <= ref[:, k]) & (ref[:, k] <= frame[f"{label} high95"])
+        assert result.analytes[k].covered == int(inside.sum())  # counted by numpy
+    # A 4 % gain change between calibration and validation day is invisible to calibration:
+    # the calibration-only intervals miss, and the model error is well above zero.
+    assert min(a.coverage for a in result.analytes) < 0.8
+    new = validated_model(cal, result, [])
+    assert new.interval.n_validation == 30 and cal.interval is None
+    tau = np.asarray(new.interval.model_error_sd)
+    assert np.all(tau > 0)
+    later, _ = _day(rng, rng.uniform(0.1, 1, (5, 3)), "u", gain=0.04)
+    base, val = cal.predict(later), new.predict(later)
+    for k, label in enumerate(LABELS):  # √(s² + τ²), numpy
+        np.testing.assert_allclose(val[f"{label} SE"],
+                                   np.hypot(base[f"{label} SE"], tau[k]), rtol=1e-12)
+        lim = cal.limits.models[0]  # calibration df: samples behind κ > 1, else p − m
+        cal_dof = lim.error_scale_dof if lim.error_scale[k] > 1 else AXIS.size - 3
+        t = stats.t.ppf(0.975, min(cal_dof, 29))  # and ν = n_validation − 1
+        np.testing.assert_allclose(val[f"{label} high95"] - val[label],
+                                   t * val[f"{label} SE"], rtol=1e-12)
+    assert set(val["interval_basis"]) == {new.interval_basis}
+    assert "validated on 30" in new.interval_basis and "calibration only" in set(
+        base["interval_basis"])
+    save_model(new, tmp_path / "v.bsm")
+    assert load_model(tmp_path / "v.bsm").interval == new.interval
+
+
+def test_validation_on_calibration_data_is_refused():
+    rng = np.random.default_rng(9)
+    spectra, table = _day(rng, rng.uniform(0.1, 1, (20, 3)), "c")
+    cal = build_cls(spectra, table)
+    result = assess(cal, spectra, table)
+    object.__setattr__(result, "calibration_files", ("cal.csv",))
+    with pytest.raises(DataError, match="not built from"):
+        validated_model(cal, result, [])
+
+
+def test_assess_out_model_from_the_command_line(tmp_path, capsys):
+    rng = np.random.default_rng(10)
+    cal = build_cls(*_day(rng, rng.uniform(0.1, 1, (20, 3)), "c"))
+    save_model(cal, tmp_path / "m.bsm")
+    spectra, table = _day(rng, rng.uniform(0.1, 1, (30, 3)), "v", gain=0.03)
+    write_spectra_csv(spectra, tmp_path / "v.csv")
+    write_concentrations_csv(table, tmp_path / "vc.csv")
+    args = ["assess", str(tmp_path / "m.bsm"), "--spectra", str(tmp_path / "v.csv"),
+            "--concentrations", str(tmp_path / "vc.csv")]
+    assert main([*args, "--out-model", str(tmp_path / "m.bsm")]) == 2  # never in place
+    assert "never changed in place" in capsys.readouterr().err
+    assert main([*args, "--out-model", str(tmp_path / "new.bsm"),
+                 "--samples", str(tmp_path / "s.csv")]) == 0
+    out = capsys.readouterr()
+    assert "intervals cover" in out.out and "validated model written" in out.err
+    new = load_model(tmp_path / "new.bsm")
+    assert [f["name"] for f in new.interval.validation_files] == ["v.csv", "vc.csv"]
+    assert "A [mg/L] low95" in open(tmp_path / "s.csv").read()
