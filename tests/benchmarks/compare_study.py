@@ -64,7 +64,7 @@ def main(argv: list[str] | None = None) -> int:
         for _ in range(args.sets):
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
-                result = compare_methods(*simulate(scenario, rng), cv="blinds:5",
+                result = compare_methods(*simulate(scenario, rng), cv="interleaved:5",
                                          n_permutations=499)
             pls += result.overall.method == "PLS"
             cls += result.overall.method != "PLS"
