@@ -9,7 +9,7 @@ Simulated mixtures of 3 absorbers (Gaussian bands on 151 points, white noise σ 
 the right count is 3. For 25 and 40 calibration mixtures and PLS1/PLS2 it prints, per rule
 (``randomization`` at α = 0.05, ``one-se``, ``min``), the share of sets where the rule chose
 fewer than 3, exactly 3 and more than 3 components, all rules on the same cross-validation
-curves (``blinds:5``).
+curves (``interleaved:5``).
 """
 
 from __future__ import annotations
@@ -39,7 +39,7 @@ def main(argv: list[str] | None = None) -> int:
                 X = C @ K + rng.normal(0, 0.003, (n, AXIS.size))
                 targets = [C] if mode == "pls2" else [C[:, [k]] for k in range(3)]
                 for Y in targets:
-                    cv = cross_validate_pls(X, Y, 8, cv="blinds:5")
+                    cv = cross_validate_pls(X, Y, 8, cv="interleaved:5")
                     for rule in RULES:
                         chosen[rule].append(select_components(cv, rule=rule).n_components)
             for rule in RULES:
