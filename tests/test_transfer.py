@@ -6,6 +6,7 @@ import json
 import zipfile
 
 import numpy as np
+import pandas as pd
 import pytest
 from scipy import stats
 from scipy.spatial.distance import pdist, squareform
@@ -230,3 +231,30 @@ def test_a_model_transfers_once(moved):
     _, moved_model, test = moved
     with pytest.raises(DataError, match="already transferred"):
         transfer_calibration(moved_model, test, test)
+
+
+def test_transfer_command_writes_a_new_model_with_its_record(tmp_path, capsys):
+    from bandsolve.cli import main
+
+    rng = np.random.default_rng(31)
+    C = design()
+    A1 = Instrument().measure(C, rng)
+    save_model(build_cls(spectra(A1, "c"), table(C, "c"), baseline="offset"),
+               tmp_path / "m.bsm")
+    idx = kennard_stone(A1, 10)
+    for name, A in (("t1.csv", Instrument().measure(C[idx], rng)),
+                    ("t2.csv", Instrument(shift=-0.8, gain=0.97).measure(C[idx], rng))):
+        frame = pd.DataFrame(A, columns=[f"{w:g}" for w in AXIS])
+        frame.insert(0, "sample", [f"T{i}" for i in idx])
+        frame.to_csv(tmp_path / name, index=False)
+    code = main(["transfer", str(tmp_path / "m.bsm"), "--original", str(tmp_path / "t1.csv"),
+                 "--new", str(tmp_path / "t2.csv"), "--out", str(tmp_path / "m2.bsm")])
+    assert code == 0
+    err = capsys.readouterr().err
+    assert "axis offset of the new instrument: -0." in err and "check the wavelength" in err
+    moved = load_model(tmp_path / "m2.bsm")
+    names = [f["name"] for f in moved.transfer.record["files"]]
+    assert names == [str(tmp_path / "t1.csv"), str(tmp_path / "t2.csv")]
+    assert main(["transfer", str(tmp_path / "m.bsm"), "--original", str(tmp_path / "t1.csv"),
+                 "--new", str(tmp_path / "t2.csv"), "--out", str(tmp_path / "x.bsm"),
+                 "--window", "4"]) == 2

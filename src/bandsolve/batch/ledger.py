@@ -41,7 +41,8 @@ from bandsolve.calibration.model import Calibration
 from bandsolve.errors import DataError
 from bandsolve.flags import FLAG_COLUMN
 
-__all__ = ["LedgerRecorder", "check_ledger", "list_runs", "list_inputs", "list_results"]
+__all__ = ["LedgerRecorder", "check_ledger", "list_runs", "list_inputs", "list_results",
+           "list_checks"]
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS runs (
@@ -57,14 +58,22 @@ CREATE TABLE IF NOT EXISTS results (
     input_position INTEGER NOT NULL, sample TEXT NOT NULL, source TEXT, flags TEXT NOT NULL,
     concentrations TEXT NOT NULL, record TEXT NOT NULL);
 CREATE INDEX IF NOT EXISTS results_run ON results(run_id);
-CREATE INDEX IF NOT EXISTS results_sample ON results(sample)
+CREATE INDEX IF NOT EXISTS results_sample ON results(sample);
+CREATE TABLE IF NOT EXISTS check_results (
+    run_id INTEGER NOT NULL REFERENCES runs(run_id), sample TEXT NOT NULL,
+    standard TEXT NOT NULL, analyte TEXT NOT NULL, expected REAL NOT NULL, found REAL,
+    se REAL, recovery_pct REAL, low REAL, high REAL, passed INTEGER NOT NULL, basis TEXT);
+CREATE INDEX IF NOT EXISTS check_results_run ON check_results(run_id)
 """
+#: Tables every ledger has; ``check_results`` (check standards, see
+#: :mod:`bandsolve.batch.checks`) is added to older ledgers by their next run.
 _TABLES = ("runs", "inputs", "results")
+_APPEND_ONLY = (*_TABLES, "check_results")
 # One statement each: executescript() would commit the open transaction first.
 _SETUP = [s.strip() for s in _SCHEMA.split(";")] + [
     f"CREATE TRIGGER IF NOT EXISTS {t}_no_{op} BEFORE {op.upper()} ON {t} BEGIN "
     f"SELECT RAISE(ABORT, 'the results ledger is append-only: recorded {t} cannot be "
-    f"changed or removed'); END" for t in _TABLES for op in ("update", "delete")]
+    f"changed or removed'); END" for t in _APPEND_ONLY for op in ("update", "delete")]
 _SPOOL = """
 CREATE TABLE results (row INTEGER PRIMARY KEY, input_position INTEGER, sample TEXT,
     source TEXT, flags TEXT, concentrations TEXT, record TEXT);
@@ -116,6 +125,7 @@ class LedgerRecorder:
         self._stdin_sha = (hashlib.sha256(stdin_text.encode()).hexdigest()
                            if stdin_text is not None else None)
         self._hashes: dict[int, str | None] = {}
+        self._checks: list[tuple] = []
         self._position = -1
         self._dir = tempfile.mkdtemp(prefix="bandsolve-ledger-")
         self._spool_path = Path(self._dir) / "run.sqlite"
@@ -145,6 +155,14 @@ class LedgerRecorder:
 
     def commit_input(self) -> None:
         self._spool.execute("RELEASE input")
+
+    def record_checks(self, table: pd.DataFrame) -> None:
+        """Keep check-standard results (columns :data:`bandsolve.batch.checks.CHECK_COLUMNS`)
+        to be written with the run by :meth:`finish`."""
+        from bandsolve.batch.checks import CHECK_COLUMNS
+
+        self._checks = [tuple(_json_value(v) for v in row)
+                        for row in table[list(CHECK_COLUMNS)].itertuples(index=False)]
 
     # -------------------------------------------------------------- the run
     def _sha(self, item: str) -> str | None:
@@ -201,6 +219,9 @@ class LedgerRecorder:
                     "INSERT INTO main.results SELECT ?, row, input_position, sample, source, "
                     "flags, concentrations, record FROM spool.results ORDER BY row",
                     (run_id,))
+                con.executemany("INSERT INTO check_results VALUES "
+                                "(?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                                [(run_id, *row) for row in self._checks])
                 con.execute("COMMIT")
             except BaseException:
                 con.execute("ROLLBACK")
@@ -352,3 +373,28 @@ def list_results(path: str | os.PathLike[str], *, run: int | None = None,
     head = ["run_id", "started", "batch", "operator", "model_checksum", "input", "input_sha256"]
     records = [dict(zip(head, r[:-1], strict=True)) | json.loads(r[-1]) for r in rows]
     return pd.DataFrame.from_records(records, columns=None if records else head)
+
+
+def list_checks(path: str | os.PathLike[str]) -> pd.DataFrame:
+    """Recorded check-standard results with their run's labels, oldest run first.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``run_id``, ``started``, ``batch``, ``operator``, ``model_checksum``, then the
+        columns of :data:`bandsolve.batch.checks.CHECK_COLUMNS` (``passed`` as bool). Empty
+        for a ledger without check standards.
+    """
+    from bandsolve.batch.checks import CHECK_COLUMNS
+
+    head = ["run_id", "started", "batch", "operator", "model_checksum"]
+    with _connect_ro(path) as con:
+        if "check_results" not in _tables(con, path, "give a ledger written by bandsolve"):
+            return pd.DataFrame(columns=[*head, *CHECK_COLUMNS])
+        frame = pd.read_sql_query(
+            "SELECT u.run_id, u.started, u.batch, u.operator, u.model_checksum, "
+            + ", ".join(f"c.{c}" for c in CHECK_COLUMNS)
+            + " FROM check_results c JOIN runs u USING (run_id) ORDER BY c.run_id, c.rowid",
+            con)
+    frame["passed"] = frame["passed"].astype(bool)
+    return frame

@@ -2,7 +2,8 @@
 
 Exit codes: 0 success; 1 internal error (a bug: please report it); 2 bad input or usage;
 3 some inputs of a batch could not be read (the others were predicted); 4 results were
-flagged and ``--fail-on-flags`` was given; 130 interrupted.
+flagged and ``--fail-on-flags`` was given; 5 ``drift``: a watched series is out of control;
+130 interrupted.
 """
 
 from __future__ import annotations
@@ -16,10 +17,18 @@ import warnings
 from collections.abc import Sequence
 
 from bandsolve import __version__
-from bandsolve.cli._codes import EXIT_FLAGGED, EXIT_INPUT, EXIT_INTERNAL, EXIT_OK, EXIT_PARTIAL
+from bandsolve.cli._codes import (
+    EXIT_DRIFT,
+    EXIT_FLAGGED,
+    EXIT_INPUT,
+    EXIT_INTERNAL,
+    EXIT_OK,
+    EXIT_PARTIAL,
+)
 from bandsolve.errors import BandsolveError, BandsolveWarning
 
-__all__ = ["main", "EXIT_OK", "EXIT_INTERNAL", "EXIT_INPUT", "EXIT_PARTIAL", "EXIT_FLAGGED"]
+__all__ = ["main", "EXIT_OK", "EXIT_INTERNAL", "EXIT_INPUT", "EXIT_PARTIAL", "EXIT_FLAGGED",
+           "EXIT_DRIFT"]
 
 
 #: Subcommand name → its module in :mod:`bandsolve.cli`, in the order ``--help`` lists them.
@@ -27,7 +36,8 @@ __all__ = ["main", "EXIT_OK", "EXIT_INTERNAL", "EXIT_INPUT", "EXIT_PARTIAL", "EX
 #: when the full help is asked for, so ``bandsolve --version`` and each command start quickly.
 COMMANDS = {"demo": "demo_cmd", "design": "design_cmd", "build": "build_cmd",
             "compare": "compare_cmd", "assess": "assess_cmd", "predict": "predict_cmd",
-            "inspect": "inspect_cmd", "report": "report_cmd", "ledger": "ledger_cmd"}
+            "inspect": "inspect_cmd", "report": "report_cmd", "ledger": "ledger_cmd",
+            "drift": "drift_cmd", "transfer": "transfer_cmd"}
 
 
 def _commands_needed(argv: Sequence[str]) -> list[str]:

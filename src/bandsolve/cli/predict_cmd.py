@@ -6,6 +6,7 @@ import argparse
 import contextlib
 import sys
 
+from bandsolve.batch.checks import CheckSink, CheckStandards
 from bandsolve.batch.ledger import LedgerRecorder, check_ledger
 from bandsolve.batch.predict import DEFAULT_CHUNK, result_table_columns, run_batch
 from bandsolve.batch.writers import FORMATS, format_for, open_writer
@@ -24,6 +25,8 @@ examples:
   bandsolve predict models/rinse-cls.bsm night/ --jobs 4 --out night.parquet \\
       --ledger results.sqlite --batch 2025-03-01 --operator am
   bandsolve predict models/rinse-cls.bsm image.npy --out maps/
+  bandsolve predict models/rinse-cls.bsm day-41.csv --out day-41.csv \
+      --ledger results.sqlite --checks check-standards.csv --check-limits 95-105
 
 Wide CSV files are read in blocks of a few MB (memory does not grow with the file) and
 parsed inside the parallel tasks of at most --chunk-size spectra; the numbers never depend
@@ -31,9 +34,13 @@ on --chunk-size, --jobs or --scheduler. An input that fails contributes no rows.
 A .npy input is a spectral image (rows x columns x wavelengths, absorbance): --out names a
 folder that receives one concentration map per analyte and a flag map (see bandsolve.batch.images).
 
+Check standards (--checks) are predicted like any sample; each one's recovery
+(found/expected) is judged against its acceptance limits and recorded with the run in the
+ledger, where bandsolve drift charts them.
+
 exit codes: 0 all inputs predicted; 2 bad model or options; 3 some inputs could not be read
 (the rest were predicted; when none was, no results file is written); 4 with
---fail-on-flags, some result carries a flag.
+--fail-on-flags, some result carries a flag or a check standard is out of its limits.
 """
 
 
@@ -42,6 +49,14 @@ def _positive(text: str) -> int:
     if value < 1:
         raise argparse.ArgumentTypeError(f"must be a positive whole number, not {text}")
     return value
+
+
+def _recovery_range(text: str) -> tuple[float, float]:
+    try:
+        low, high = (float(v) for v in text.replace("%", "").split("-"))
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not LOW-HIGH in %, e.g. 95-105") from None
+    return low, high
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -74,6 +89,16 @@ def register(sub: argparse._SubParsersAction) -> None:
                      help="append this run and every result to a ledger (SQLite)")
     led.add_argument("--batch", metavar="LABEL", help="batch label recorded in the ledger")
     led.add_argument("--operator", metavar="NAME", help="operator recorded in the ledger")
+    qc = p.add_argument_group("check standards")
+    qc.add_argument("--checks", metavar="FILE",
+                    help="known values of check standards: first column a sample id or glob "
+                         "pattern (QC-*), one column per analyte as in the model")
+    qc.add_argument("--check-column", metavar="NAME",
+                    help="text column of --checks marking check-standard rows (yes/1/x); "
+                         "default: every row is one")
+    qc.add_argument("--check-limits", metavar="LOW-HIGH", type=_recovery_range,
+                    help="accepted recovery in %%, e.g. 95-105 (default: expected +/- 3 SE "
+                         "of each result)")
     add_input_options(p)
     p.set_defaults(func=run_command)
 
@@ -117,25 +142,45 @@ def run_command(args: argparse.Namespace) -> int:
     to_stdout = args.out in (None, "-")
     if fmt == "parquet" and to_stdout:
         raise FormatError("Parquet results need a file: add --out FILE.parquet")
+    if (args.check_column or args.check_limits) and not args.checks:
+        raise FormatError("--check-column and --check-limits describe check standards; add "
+                          "--checks FILE with their known values")
+    checks = _check_sink(model, args) if args.checks else None
     if args.ledger:
         check_ledger(args.ledger, new_ok=True)  # before any work: a bad ledger loses nothing
     stdin_text = sys.stdin.read() if "-" in args.inputs else None
     try:
-        summary = _predict(model, args, fmt, stdin_text)
+        summary = _predict(model, args, fmt, stdin_text, checks)
     except _NothingPredicted as stop:
         summary = stop.args[0]
     for failure in summary.failures:
         eprint(f"bandsolve: skipped {failure.input}: {failure.reason}")
     eprint(_summary_line(summary, args.out))
+    failed_checks = False
+    if checks is not None:
+        report = checks.report()
+        for line in report.summary():
+            eprint(line)
+        failed_checks = not report.passed
     eprint(caution_text())
     if summary.failures or not summary.n_predicted:
         return EXIT_PARTIAL
-    if args.fail_on_flags and summary.n_flagged:
+    if args.fail_on_flags and (summary.n_flagged or failed_checks):
         return EXIT_FLAGGED
     return 0
 
 
-def _predict(model, args: argparse.Namespace, fmt: str, stdin_text: str | None):
+def _check_sink(model, args: argparse.Namespace) -> CheckSink:
+    from bandsolve.io import read_concentrations
+
+    labels = (args.check_column,) if args.check_column else ()
+    known = read_concentrations(args.checks, label_columns=labels)
+    return CheckSink(CheckStandards(known, args.check_column, args.check_limits),
+                     model.analytes)
+
+
+def _predict(model, args: argparse.Namespace, fmt: str, stdin_text: str | None,
+             checks: CheckSink | None):
     """Run the batch into the results file (or standard output) and the ledger."""
     to_stdout = args.out in (None, "-")
     with contextlib.ExitStack() as stack:
@@ -146,7 +191,7 @@ def _predict(model, args: argparse.Namespace, fmt: str, stdin_text: str | None):
         else:
             handle = stack.enter_context(atomic_write(args.out, "w", newline=""))
         writer = open_writer(handle, fmt, result_table_columns(model))
-        sinks = [writer]
+        sinks = [writer, *([checks] if checks is not None else [])]
         recorder = None
         if args.ledger:
             recorder = LedgerRecorder(args.ledger, model, model_path=args.model,
@@ -160,6 +205,8 @@ def _predict(model, args: argparse.Namespace, fmt: str, stdin_text: str | None):
                             scheduler=args.scheduler, progress=progress_bar(args.quiet))
         writer.close()
         if recorder is not None:
+            if checks is not None:
+                recorder.record_checks(checks.report().table)
             run_id = recorder.finish(summary.inputs, summary.failures)
             eprint(f"recorded as run {run_id} in {args.ledger}")
         if not summary.n_predicted and not to_stdout:

@@ -7,6 +7,7 @@ starts each section on a new page. The file is written atomically.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from datetime import datetime, timezone
 from html import escape
 from pathlib import Path
@@ -23,6 +24,7 @@ from bandsolve.progress import ProgressCallback, step
 from bandsolve.report import _sections as S
 from bandsolve.report import _views as V
 from bandsolve.report._batch import batch_section
+from bandsolve.report.extra import ReportSection, section_html
 from bandsolve.spectra import SpectralSet
 
 __all__ = ["SECTION_IDS", "render_report", "write_report"]
@@ -70,6 +72,7 @@ def render_report(cal: Calibration, *, calibration_spectra: SpectralSet | None =
                   validation_table: ConcentrationTable | None = None,
                   blanks: SpectralSet | None = None, assessment: Any = None,
                   comparison: Any = None, batch: Any = None, title: str | None = None,
+                  sections: Sequence[ReportSection] = (),
                   progress: ProgressCallback | None = None) -> str:
     """The report as an HTML string; see :func:`write_report` for the parameters."""
     cal_set = val_set = None
@@ -121,15 +124,18 @@ def render_report(cal: Calibration, *, calibration_spectra: SpectralSet | None =
     label = cal.provenance.get("data_label")
     banner = (f'<section id="data-label" class="banner-section"><p class="banner">'
               f"{escape(str(label))}</p></section>" if label else "")
-    sections = "".join(
-        f'<section id="{sid}"><h2>{escape(heading)}</h2>{bodies[sid]}'
-        f'{"".join(figures[sid])}</section>' for sid, heading in SECTION_IDS)
+    # Extra sections (drift watch, instrument transfer, ...) go before the flags legend.
+    html_parts = [f'<section id="{sid}"><h2>{escape(heading)}</h2>{bodies[sid]}'
+                  f'{"".join(figures[sid])}</section>' for sid, heading in SECTION_IDS]
+    at = [sid for sid, _ in SECTION_IDS].index("flags")
+    html_parts[at:at] = [section_html(extra) for extra in sections]
+    sections_html = "".join(html_parts)
     generated = datetime.now(timezone.utc).isoformat(timespec="seconds")
     title = title or f"Calibration report: {cal.method.upper()} model"
     footer = (f"<footer><p class=\"meta\">{escape(str(label))}</p></footer>" if label else "")
     return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
             f"<title>{escape(title)}</title><style>{S.STYLE}</style></head><body>"
-            f"{S.header_html(cal, title, generated, __version__)}{banner}{sections}{footer}"
+            f"{S.header_html(cal, title, generated, __version__)}{banner}{sections_html}{footer}"
             "</body></html>\n")
 
 
@@ -147,6 +153,7 @@ def write_report(cal: Calibration, path: str | Path, *,
                  validation_spectra: SpectralSet | None = None,
                  validation_table: ConcentrationTable | None = None,
                  blanks: SpectralSet | None = None, title: str | None = None,
+                 sections: Sequence[ReportSection] = (),
                  progress: ProgressCallback | None = None) -> Path:
     """Write the self-contained HTML report of a calibration.
 
@@ -174,6 +181,9 @@ def write_report(cal: Calibration, path: str | Path, *,
         (:func:`bandsolve.calibration.merit.calibration_merit`) when the model stores none and
         calibration data or blanks are given.
     title : str, optional
+    sections : sequence of ReportSection, optional
+        Further sections (:mod:`bandsolve.report.extra`: drift watch, instrument transfer),
+        placed before the flags legend.
     progress : callable, optional
         ``progress(done, total, label)`` after each figure (see :mod:`bandsolve.progress`).
 
@@ -192,7 +202,7 @@ def write_report(cal: Calibration, path: str | Path, *,
                          validation_spectra=validation_spectra,
                          validation_table=validation_table, blanks=blanks,
                          assessment=assessment, comparison=comparison, batch=batch,
-                         title=title, progress=progress)
+                         title=title, sections=sections, progress=progress)
     path = Path(path)
     with atomic_write(path, "w", encoding="utf-8") as handle:
         handle.write(text)
