@@ -17,7 +17,8 @@ import pandas as pd
 
 from bandsolve.io.atomic import atomic_write
 
-__all__ = ["DEMO_LABEL", "DemoFiles", "write_demo_data", "demo_pure_spectra"]
+__all__ = ["DEMO_LABEL", "DemoFiles", "write_demo_data", "demo_pure_spectra", "bands",
+           "measure", "write_spectra", "write_concentrations"]
 
 DEMO_LABEL = ("INVENTED demo data (bandsolve dye-house rinse-water scenario, generated with a "
               "fixed random state); not measurements of any real substance")
@@ -50,13 +51,20 @@ class DemoFiles:
     routine: list[Path] = field(default_factory=list)
 
 
-def _bands(spec: tuple[tuple[float, float, float], ...]) -> np.ndarray:
-    return sum(h * np.exp(-0.5 * ((WAVELENGTHS - c) / w) ** 2) for c, w, h in spec)
+def bands(spec: tuple[tuple[float, float, float], ...], *, extra_width: float = 0.0,
+          shift: float = 0.0) -> np.ndarray:
+    """Gaussian bands on the demo grid; an instrument with ``extra_width`` (σ, nm, added in
+    quadrature, band area kept) and its axis ``shift`` nm off sees them broader and moved."""
+    out = np.zeros_like(WAVELENGTHS)
+    for c, w, h in spec:
+        wide = np.hypot(w, extra_width)
+        out = out + h * w / wide * np.exp(-0.5 * ((WAVELENGTHS - shift - c) / wide) ** 2)
+    return out
 
 
 def demo_pure_spectra() -> np.ndarray:
     """The invented pure-component spectra, absorbance per mg/L in a 1 cm cell, (3, p)."""
-    return np.vstack([_bands(d[4]) for d in DYES])
+    return np.vstack([bands(d[4]) for d in DYES])
 
 
 def analyte_labels() -> list[str]:
@@ -64,18 +72,18 @@ def analyte_labels() -> list[str]:
     return [f"{name} [{unit}]" for name, unit, *_ in DYES]
 
 
-def _measure(conc: np.ndarray, rng: np.random.Generator, intruder: np.ndarray | None = None
+def measure(conc: np.ndarray, rng: np.random.Generator, intruder: np.ndarray | None = None
              ) -> np.ndarray:
     """Absorbance = Beer's law mixture + small cell offset + white noise (all invented)."""
     A = conc @ demo_pure_spectra()
     A += rng.normal(0.0, 0.001, (len(conc), 1))  # cell positioning offset
     A += rng.normal(0.0, NOISE_AU, A.shape)
     if intruder is not None:
-        A += intruder[:, None] * _bands(INTRUDER)[None, :]
+        A += intruder[:, None] * bands(INTRUDER)[None, :]
     return A
 
 
-def _write_spectra(path: Path, ids: list[str], A: np.ndarray, note: str) -> None:
+def write_spectra(path: Path, ids: list[str], A: np.ndarray, note: str) -> None:
     frame = pd.DataFrame(np.round(A, 5), columns=[f"{w:g}" for w in WAVELENGTHS])
     frame.insert(0, "sample", ids)
     with atomic_write(path, "w", newline="") as handle:
@@ -84,7 +92,7 @@ def _write_spectra(path: Path, ids: list[str], A: np.ndarray, note: str) -> None
         frame.to_csv(handle, index=False)
 
 
-def _write_conc(path: Path, frame: pd.DataFrame) -> None:
+def write_concentrations(path: Path, frame: pd.DataFrame) -> None:
     with atomic_write(path, "w", newline="") as handle:
         handle.write(f"# {DEMO_LABEL}\n")
         frame.round(4).to_csv(handle, index_label="sample")
@@ -110,14 +118,14 @@ def write_demo_data(folder: str | Path) -> DemoFiles:
         validation_concentrations=folder / "validation_concentrations.csv",
         blanks=folder / "blank_spectra.csv",
     )
-    _write_spectra(files.calibration_spectra, list(cal.index), _measure(cal.to_numpy(), rng),
+    write_spectra(files.calibration_spectra, list(cal.index), measure(cal.to_numpy(), rng),
                    "calibration mixtures of a 5-level cyclic design")
-    _write_conc(files.calibration_concentrations, cal)
-    _write_spectra(files.validation_spectra, list(val.index), _measure(val.to_numpy(), rng),
+    write_concentrations(files.calibration_concentrations, cal)
+    write_spectra(files.validation_spectra, list(val.index), measure(val.to_numpy(), rng),
                    "independent validation mixtures")
-    _write_conc(files.validation_concentrations, val)
-    _write_spectra(files.blanks, [f"blank-{i:02d}" for i in range(1, 11)],
-                   _measure(np.zeros((10, 3)), rng), "replicate blanks (rinse water, no dye)")
+    write_concentrations(files.validation_concentrations, val)
+    write_spectra(files.blanks, [f"blank-{i:02d}" for i in range(1, 11)],
+                   measure(np.zeros((10, 3)), rng), "replicate blanks (rinse water, no dye)")
     lows = np.array([d[2] for d in DYES])
     highs = np.array([d[3] for d in DYES])
     batch1 = lows + rng.uniform(0.1, 0.9, (6, 3)) * (highs - lows)
@@ -130,12 +138,12 @@ def write_demo_data(folder: str | Path) -> DemoFiles:
     ):
         path = folder / "routine" / f"{name}.csv"
         ids = [f"{name}-{i:02d}" for i in range(1, len(c) + 1)]
-        _write_spectra(path, ids, _measure(c, rng, extra), note)
+        write_spectra(path, ids, measure(c, rng, extra), note)
         files.routine.append(path)
     truth = pd.DataFrame(np.vstack([batch1, batch2]), columns=analyte_labels(),
                          index=[f"batch-1-{i:02d}" for i in range(1, 7)]
                          + [f"batch-2-{i:02d}" for i in range(1, 6)])
-    _write_conc(folder / "routine_true_concentrations.csv", truth)
+    write_concentrations(folder / "routine_true_concentrations.csv", truth)
     return files
 
 
@@ -148,13 +156,16 @@ class DemoRun:
     results_path: Path
     results: pd.DataFrame
     outputs: dict[str, Path] = field(default_factory=dict)
+    lifecycle: object = None  # demo_lifecycle.Lifecycle: transfer and drift watch
 
 
 def run_demo(folder: str | Path) -> DemoRun:
-    """Generate the invented data, build CLS and PLS models, predict both routine batches.
+    """Generate the invented data, build CLS and PLS models, predict both routine batches,
+    move the CLS model to a second instrument and watch a season of check standards.
 
     Files go under ``folder``: the data, ``models/rinse-cls.bsm``, ``models/rinse-pls.bsm``,
-    ``results.csv`` (CLS) and ``results-pls.csv``.
+    ``models/rinse-cls-instrument-2.bsm``, ``results.csv`` (CLS), ``results-pls.csv``,
+    ``results.sqlite`` (the season's ledger) and ``report.html``.
     """
     from bandsolve.batch.predict import predict_inputs
     from bandsolve.calibration.build import build_cls, file_fingerprints
@@ -187,11 +198,22 @@ def run_demo(folder: str | Path) -> DemoRun:
         with atomic_write(out, "w", newline="") as handle:
             tables[name].to_csv(handle, index=False)
         outputs[f"{name.upper()} results"] = out
-    outputs["report"] = _write_report(folder, models["cls"], spectra, table, files, tables["cls"])
-    return DemoRun(files, outputs["CLS model"], outputs["CLS results"], tables["cls"], outputs)
+    from bandsolve.cli.demo_lifecycle import run_lifecycle
+    from bandsolve.report.extra import drift_section, transfer_section
+
+    life = run_lifecycle(folder, models["cls"], files)
+    outputs["CLS model for instrument 2"] = life.moved_model
+    outputs["results ledger (40 runs)"] = life.ledger
+    sections = [transfer_section(life.moved, life.before, life.after,
+                                 "the validation mixtures"), drift_section(life.drift)]
+    outputs["report"] = _write_report(folder, models["cls"], spectra, table, files, tables["cls"],
+                                      sections)
+    return DemoRun(files, outputs["CLS model"], outputs["CLS results"], tables["cls"], outputs,
+                   life)
 
 
-def _write_report(folder: Path, model, spectra, table, files: DemoFiles, batch) -> Path:
+def _write_report(folder: Path, model, spectra, table, files: DemoFiles, batch,
+                  sections) -> Path:
     """The HTML report of the CLS model: validation, CLS-vs-PLS comparison, routine batch."""
     from bandsolve.evaluate.assess import assess
     from bandsolve.evaluate.compare import compare_methods
@@ -206,4 +228,4 @@ def _write_report(folder: Path, model, spectra, table, files: DemoFiles, batch) 
         blanks=read_spectra(files.blanks), batch=batch,
         assessment=assess(model, val_spectra, val_table),
         comparison=compare_methods(spectra, table, val_spectra, val_table, cv="interleaved:5",
-                                   max_components=8))
+                                   max_components=8), sections=sections)
