@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -91,6 +93,15 @@ def test_demo_runs_end_to_end_and_flags_the_intruder(tmp_path, capsys):
     for label in truth.columns:
         err = (clean[label] - truth.loc[clean.index, label]).abs()
         assert (err <= 4 * clean[label + " SE"] + 0.05).all()
+    # Second act (issue 12): the invented dye B drift from run 28 is found, the other series
+    # stay in control, and the report carries the transfer and the control charts.
+    capsys.readouterr()
+    assert main(["drift", str(tmp_path / "demo" / "results.sqlite"), "--json"]) == 5
+    states = [s["state"] for s in json.loads(capsys.readouterr().out)["series"]]
+    assert any(s.startswith("upward drift in dye B [mg/L] since run 2") for s in states)
+    assert "dye A [mg/L]: in control since run 1" in states
+    html = (tmp_path / "demo" / "report.html").read_text(encoding="utf-8")
+    assert '<section id="transfer">' in html and '<section id="drift">' in html
 
 
 def test_version_and_help(capsys):
