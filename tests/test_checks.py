@@ -10,12 +10,12 @@ import pytest
 
 from bandsolve.batch.checks import CheckSink, CheckStandards
 from bandsolve.batch.ledger import list_checks
+from bandsolve.batch.watch import watch_ledger
 from bandsolve.calibration.build import build_cls
 from bandsolve.calibration.modelfile import save_model
 from bandsolve.cli import EXIT_DRIFT, EXIT_FLAGGED, main
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.errors import DataError
-from bandsolve.monitor.watch import watch_ledger
 
 from .instruments import ANALYTES, Instrument, design, spectra, table
 

@@ -6,7 +6,8 @@ import argparse
 
 from bandsolve.cautions import SHORT_CAUTION
 from bandsolve.cli._common import eprint
-from bandsolve.cli.demo_data import DEMO_LABEL, run_demo
+from bandsolve.cli.demo_data import DEMO_LABEL
+from bandsolve.cli.demo_run import run_demo
 from bandsolve.flags import FLAG_COLUMN
 
 

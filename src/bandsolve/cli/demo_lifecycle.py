@@ -38,7 +38,7 @@ class Lifecycle:
 
     moved_model: Path
     ledger: Path
-    drift: object  # bandsolve.monitor.watch.DriftReport
+    drift: object  # bandsolve.batch.watch.DriftReport
     before: object  # Assessment of the original model on the new instrument
     after: object  # Assessment of the transferred model on the new instrument
     moved: object  # the transferred Calibration
@@ -87,11 +87,11 @@ def _season(folder: Path, model, rng: np.random.Generator) -> Path:
 
 def run_lifecycle(folder: Path, model, files: D.DemoFiles) -> Lifecycle:
     """Generate the second-instrument and season data, transfer the model, watch the drift."""
+    from bandsolve.batch.watch import watch_ledger
     from bandsolve.calibration.modelfile import save_model, sha256_file
     from bandsolve.calibration.transferred import transfer_calibration
     from bandsolve.evaluate.assess import assess
     from bandsolve.io import read_concentrations, read_spectra
-    from bandsolve.monitor.watch import watch_ledger
     from bandsolve.transfer import kennard_stone
 
     rng = np.random.default_rng(D.RANDOM_STATE + 2)

@@ -7,11 +7,11 @@ import json
 import sys
 from pathlib import Path
 
+from bandsolve.batch.watch import watch_ledger
 from bandsolve.cli._codes import EXIT_DRIFT
 from bandsolve.cli._common import eprint
 from bandsolve.io.atomic import atomic_write
 from bandsolve.monitor.charts import ChartDesign
-from bandsolve.monitor.watch import watch_ledger
 
 EXAMPLES = """\
 examples:

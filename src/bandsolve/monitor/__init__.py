@@ -1,4 +1,4 @@
-"""Watching a calibration in use: control charts over the recorded check-standard runs.
+"""Control charts for a calibration in use (the ledger's series: :mod:`bandsolve.batch.watch`).
 
 * :mod:`~bandsolve.monitor.charts` — Shewhart individuals chart, tabular CUSUM, EWMA and
   Western Electric run rules for one series, with its state in plain words.

@@ -69,7 +69,7 @@ def control_chart_figure(runs: Sequence[int], values: np.ndarray, centre: float,
 
 
 def series_figure(series) -> Figure | None:
-    """The chart of one :class:`bandsolve.monitor.watch.Series` (None when not charted)."""
+    """The chart of one :class:`bandsolve.batch.watch.Series` (None when not charted)."""
     chart = series.chart
     if chart is None:
         return None

@@ -3,7 +3,7 @@
 A :class:`ReportSection` is a heading, a few lines of text, figures and a table; any part of
 bandsolve that has something to show in the report builds one, and
 :func:`bandsolve.report.html.render_report` places them before the flags legend. Nothing is
-computed here: the drift state comes from :mod:`bandsolve.monitor.watch`, the accuracies from
+computed here: the drift state comes from :mod:`bandsolve.batch.watch`, the accuracies from
 :func:`bandsolve.evaluate.assess.assess`.
 """
 
@@ -56,7 +56,7 @@ def section_html(section: ReportSection) -> str:
 
 
 def drift_section(report) -> ReportSection:
-    """The drift watch of a :class:`bandsolve.monitor.watch.DriftReport`: states and charts."""
+    """The drift watch of a :class:`bandsolve.batch.watch.DriftReport`: states and charts."""
     figures = []
     for i, series in enumerate(report.series):
         fig = series_figure(series)
