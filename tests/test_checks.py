@@ -144,3 +144,13 @@ def test_predict_fails_a_batch_with_an_out_of_limit_check_standard(season, capsy
                  "--check-limits", "95-105", "--fail-on-flags", "--quiet"])
     assert code == EXIT_FLAGGED  # b reads ~113 % at the last run
     assert "out of limits: b [mg/L] recovery" in capsys.readouterr().err
+
+
+def test_report_shows_the_drift_watch_of_the_model(season):
+    folder, ledger = season
+    out = folder / "qc.html"
+    assert main(["report", str(folder / "m.bsm"), "--drift", str(ledger), "--out", str(out),
+                 "--quiet"]) == 0
+    html = out.read_text(encoding="utf-8")
+    assert '<section id="drift">' in html and "upward drift in b [mg/L] since run" in html
+    assert html.count('id="control-chart-') == 4  # three analytes and the routine residual

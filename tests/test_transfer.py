@@ -258,6 +258,18 @@ def test_transfer_command_writes_a_new_model_with_its_record(tmp_path, capsys):
     assert main(["transfer", str(tmp_path / "m.bsm"), "--original", str(tmp_path / "t1.csv"),
                  "--new", str(tmp_path / "t2.csv"), "--out", str(tmp_path / "x.bsm"),
                  "--window", "4"]) == 2
+    # The report of the moved model, given samples measured on the new instrument, shows the
+    # accuracy without and with the transfer.
+    C_val = rng.uniform(0.1, 0.9, (8, 3)) * HIGH
+    val = pd.DataFrame(Instrument(shift=-0.8, gain=0.97).measure(C_val, rng),
+                       columns=[f"{w:g}" for w in AXIS])
+    val.insert(0, "sample", [f"V{i}" for i in range(8)])
+    val.to_csv(tmp_path / "v.csv", index=False)
+    table(C_val, "V").to_frame().to_csv(tmp_path / "vc.csv")
+    assert main(["report", str(tmp_path / "m2.bsm"), "--assess", str(tmp_path / "v.csv"),
+                 str(tmp_path / "vc.csv"), "--out", str(tmp_path / "r.html"), "--quiet"]) == 0
+    html = (tmp_path / "r.html").read_text(encoding="utf-8")
+    assert '<section id="transfer">' in html and "RMSEP with transfer" in html
 
 
 @pytest.mark.parametrize("standard", ["std_anisaldehyde_400uM", "std_acetophenone_400uM"])

@@ -208,8 +208,16 @@ class Calibration:
         return self.preprocessor.used_axis
 
     # ------------------------------------------------------------------ input checks
-    def prepare(self, spectra: SpectralSet) -> tuple[np.ndarray, list[str]]:
+    def prepare(self, spectra: SpectralSet, *, whole_axis: bool = False
+                ) -> tuple[np.ndarray, list[str]]:
         """Check spectra against the model and return absorbance on the model grid.
+
+        Parameters
+        ----------
+        spectra : SpectralSet
+        whole_axis : bool
+            Resample every point of the grid, not only the used window (an instrument
+            transfer maps each point from its neighbours).
 
         Returns
         -------
@@ -239,7 +247,7 @@ class Calibration:
         notes.append("resampled onto the model grid by linear interpolation")
         mask = self.used_mask
         if (self.preprocessor.savgol_window is not None or mask.all()
-                or self.transfer is not None):
+                or self.transfer is not None or whole_axis):
             return np.asarray(spectra.resample(self.axis).values), notes
         # Only the window is used (no filter or transfer map needs the points around it): the
         # spectra must cover the window, not the whole grid. Points outside it are never read.

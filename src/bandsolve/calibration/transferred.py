@@ -26,7 +26,6 @@ from bandsolve.spectra import SpectralSet
 from bandsolve.transfer import (
     DEFAULT_HALF_WINDOW,
     DEFAULT_RCOND,
-    TRANSFER_METHODS,
     Transfer,
     axis_shift,
     direct_standardization,
@@ -34,7 +33,7 @@ from bandsolve.transfer import (
     slope_bias_correction,
 )
 
-__all__ = ["transfer_calibration", "SHIFT_WARNING_STEPS"]
+__all__ = ["transfer_calibration", "untransferred", "SHIFT_WARNING_STEPS"]
 
 #: An axis offset larger than this fraction of a grid step is reported as a warning.
 SHIFT_WARNING_STEPS = 0.1
@@ -53,13 +52,20 @@ def _paired(original: SpectralSet, new: SpectralSet) -> tuple[SpectralSet, list[
     return new, [pos[s] for s in original.sample_ids]
 
 
+#: How each method is fitted from (model, original spectra, new spectra, reference, half
+#: window, singular-value cut).
+_FITTERS = {
+    "pds": lambda model, X1, X2, Y, hw, rc: piecewise_direct_standardization(
+        X1, X2, half_window=hw, rcond=rc),
+    "ds": lambda model, X1, X2, Y, hw, rc: direct_standardization(X1, X2, rcond=rc),
+    "slope-bias": lambda model, X1, X2, Y, hw, rc: slope_bias_correction(
+        model.detail(X2).concentrations, Y),
+}
+
+
 def _fit(method: str, model: Calibration, X1: np.ndarray, X2: np.ndarray, Y: np.ndarray,
          half_window: int, rcond: float) -> Transfer:
-    if method == "pds":
-        return piecewise_direct_standardization(X1, X2, half_window=half_window, rcond=rcond)
-    if method == "ds":
-        return direct_standardization(X1, X2, rcond=rcond)
-    return slope_bias_correction(model.detail(X2).concentrations, Y)
+    return _FITTERS[method](model, X1, X2, Y, half_window, rcond)
 
 
 def _apply(model: Calibration, transfer: Transfer, X2: np.ndarray) -> tuple[np.ndarray,
@@ -109,14 +115,14 @@ def transfer_calibration(model: Calibration, original: SpectralSet, new: Spectra
     ----------
     Wang, Veltkamp & Kowalski (1991), *Anal. Chem.* 63, 2750–2756.
     """
-    if method not in TRANSFER_METHODS:
+    if method not in _FITTERS:
         raise DataError(f"unknown transfer method {method!r}; use one of "
-                        f"{', '.join(TRANSFER_METHODS)}")
+                        f"{', '.join(_FITTERS)}")
     if model.transfer is not None:
         raise DataError("this model was already transferred; transfer the original model")
     new, order = _paired(original, new)
-    X1, _ = model.prepare(original)
-    X2 = model.prepare(new)[0][order]
+    X1, _ = model.prepare(original, whole_axis=True)
+    X2 = model.prepare(new, whole_axis=True)[0][order]
     if reference is not None:
         Y = model.align(original, reference).reference
         basis = "reference values of the transfer samples"
@@ -154,3 +160,11 @@ def transfer_calibration(model: Calibration, original: SpectralSet, new: Spectra
     provenance["transferred_from"] = model.provenance.get("model_checksum")
     return dataclasses.replace(model, transfer=transfer.with_record(**record),
                                provenance=provenance)
+
+
+def untransferred(moved: Calibration) -> Calibration:
+    """The model as it was before the transfer (to show the accuracy without it)."""
+    if moved.transfer is None:
+        raise DataError("this model was not transferred to another instrument")
+    provenance = {k: v for k, v in moved.provenance.items() if k != "transferred_from"}
+    return dataclasses.replace(moved, transfer=None, provenance=provenance)

@@ -25,6 +25,12 @@ examples:
   bandsolve report models/rinse-cls.bsm --calibration cal_spectra.csv cal_conc.csv \\
       --assess val_spectra.csv val_conc.csv --blanks blanks.csv \\
       --batch routine/ --out rinse-report.html
+
+  # the drift watch of the model's check standards recorded in a ledger
+  bandsolve report models/rinse-cls.bsm --drift results.sqlite --out qc-report.html
+
+A model moved to another instrument (bandsolve transfer) given --assess with samples measured
+on the new instrument also shows their accuracy without and with the transfer.
 """
 
 
@@ -48,6 +54,9 @@ def register(sub: argparse._SubParsersAction) -> None:
                    help="replicate blank spectra: noise for the figures of merit")
     p.add_argument("--batch", nargs="+", metavar="SPECTRA",
                    help="routine spectra files or folders to predict and include")
+    p.add_argument("--drift", metavar="LEDGER",
+                   help="results ledger: add the control charts of this model's check "
+                        "standards (bandsolve drift)")
     p.add_argument("--title", help="report title (default: from the model)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     add_input_options(p)
@@ -67,20 +76,41 @@ def _pair(pair: list[str] | None, args: argparse.Namespace):
     return read_spectra(pair[0], **read_options(args)), read_concentrations(pair[1])
 
 
+def _sections(cal, args: argparse.Namespace, assessment, val_spectra, val_table) -> list:
+    """Drift watch (--drift) and, for a transferred model with --assess, the transfer."""
+    from bandsolve.report.extra import drift_section, transfer_section
+
+    sections = []
+    if cal.transfer is not None and assessment is not None:
+        from bandsolve.calibration.transferred import untransferred
+        from bandsolve.evaluate.assess import assess
+
+        before = assess(untransferred(cal), val_spectra, val_table)
+        sections.append(transfer_section(cal, before, assessment,
+                                         f"the {len(val_spectra.sample_ids)} samples of "
+                                         f"{args.assess[0]}"))
+    if args.drift:
+        from bandsolve.batch.watch import watch_ledger
+
+        checksum = cal.provenance.get("model_checksum")
+        sections.append(drift_section(watch_ledger(args.drift, model_checksum=checksum)))
+    return sections
+
+
 def run(args: argparse.Namespace) -> int:
     cal = load_model(args.model)
     cal_spectra, cal_table = _pair(args.calibration, args)
     val_spectra, val_table = _pair(args.assess, args)
     assessment = comparison = None
     if val_spectra is not None:
-        assess = optional_api("assess", "assess")
+        assess = optional_api("evaluate.assess", "assess")
         if assess is None:
             eprint("bandsolve: note: validation statistics are not available in this "
                    "installation; the report shows the validation figures only")
         else:
             assessment = assess(cal, val_spectra, val_table)
     if args.compare:
-        compare_methods = optional_api("compare", "compare_methods")
+        compare_methods = optional_api("evaluate.compare", "compare_methods")
         if compare_methods is None:
             eprint("bandsolve: note: method comparison is not available in this "
                    "installation; the report leaves it out")
@@ -97,6 +127,7 @@ def run(args: argparse.Namespace) -> int:
                         calibration_table=cal_table, assessment=assessment,
                         comparison=comparison, batch=batch, validation_spectra=val_spectra,
                         validation_table=val_table, blanks=blanks, title=args.title,
+                        sections=_sections(cal, args, assessment, val_spectra, val_table),
                         progress=bar)
     eprint(f"Report written to {path}")
     # As for predict: exit 3 when some batch inputs could not be read (listed in the report).
