@@ -95,10 +95,10 @@ def transfer_section(moved, before, after, label: str) -> ReportSection:
     lines = [f"Model moved to a second instrument by {rec['method'].upper()} with "
              f"{rec['transfer_samples']} transfer samples"
              + (f" (window {rec['window_channels']} channels)." if "window_channels" in rec
-                else "."),
-             f"Accuracy on {label}, measured on the new instrument:"]
+                else ".")]
     shift = rec.get("axis_shift")
     if shift:
         lines.append(f"Axis offset of the new instrument estimated from the transfer samples: "
                      f"{shift['value']:+.2f} {shift['unit']}.")
+    lines.append(f"Accuracy on {label}, measured on the new instrument:")
     return ReportSection("transfer", "Instrument transfer", lines, [], pd.DataFrame(rows))
