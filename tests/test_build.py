@@ -37,7 +37,8 @@ def test_absorptivity_model_flags_foreign_band_only_with_blanks():
     assert "--blanks" in blind.predict(foreign)["notes"][0]
     with warnings.catch_warnings():
         warnings.simplefilter("error", BandsolveWarning)
-        model = build_cls_from_absorptivities(eps, 1.0, blanks=blanks)
+        model = build_cls_from_absorptivities(
+            eps, 1.0, blanks=blanks, validated_range=dict.fromkeys(eps.sample_ids, (0.0, 1.0)))
     # White noise: rᵀr/σ² ~ χ²(p − m); the limit at α = 0.01 flags ~1 % of clean spectra.
     assert model.predict(clean)["flag_codes"].str.contains("residual").mean() <= 0.04
     assert model.predict(foreign)["flag_codes"].str.contains("residual").all()

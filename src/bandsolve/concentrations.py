@@ -13,9 +13,17 @@ from bandsolve.errors import DataError, where
 from bandsolve.spectra import SpectralSet
 
 __all__ = ["ConcentrationTable", "split_unit", "align", "group_labels", "groups_in_order",
-           "reference_matrix"]
+           "range_text", "reference_matrix"]
 
 _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*\[(?P<unit>[^\[\]]*)\]\s*$")
+
+
+def range_text(low: float, high: float) -> str:
+    """A concentration range as people write it: ``"0 to 12"``, or ``"0 and above (no
+    validated range stated)"`` when the top is infinite."""
+    if np.isinf(high):
+        return f"{low:g} and above (no validated range stated)"
+    return f"{low:g} to {high:g}"
 
 
 def split_unit(label: str) -> tuple[str, str | None]:

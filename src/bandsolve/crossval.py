@@ -351,7 +351,7 @@ def cross_validate_pls(X, Y, max_components: int, cv="interleaved:10", scale: bo
     n, p = X.shape
     tall = algorithm == "kernel" or (algorithm == "auto" and n >= p)
     settings = tuple(range(1, int(max_components) + 1))
-    # Folds make many small BLAS calls, which stall with several threads (METHODS §9); the
+    # Folds make many small BLAS calls, which stall with several threads (see _threads.py); the
     # one-off cross-products are small enough that a second thread gains little and risks the
     # same stalls on a busy machine.
     with single_blas_thread():

@@ -198,10 +198,30 @@ def with_merit(cal: Calibration, X: np.ndarray | None, C: np.ndarray | None,
     return dataclasses.replace(cal, merit=merit)
 
 
+def _validated_ranges(labels: tuple[str, ...],
+                      stated: Mapping[str, tuple[float, float]]) -> np.ndarray:
+    """(m, 2) ranges in label order; (0, ∞) where none is stated, with a warning."""
+    unknown = [k for k in stated if k not in labels]
+    if unknown:
+        raise DataError(f"validated range for {', '.join(unknown)}: no such component in the "
+                        f"absorptivity table; its labels are {', '.join(labels)}")
+    ranges = np.array([stated.get(a, (0.0, np.inf)) for a in labels], dtype=float)
+    bad = [a for a, (lo, hi) in zip(labels, ranges, strict=True) if not 0 <= lo < hi]
+    if bad:
+        raise DataError(f"validated range of {', '.join(bad)}: give 0 <= low < high")
+    open_ended = [a for a in labels if a not in stated]
+    if open_ended:
+        warnings.warn(f"no validated range stated for {', '.join(open_ended)}: only negative "
+                      "results are range-flagged; state the range shown to follow Beer's law "
+                      "(--validated-range \"name=low-high unit\")", BandsolveWarning, stacklevel=3)
+    return ranges
+
+
 def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: float, *,
                                   baseline: str = "none",
                                   window: list[tuple[float, float]] | None = None,
-                                  concentration_range: tuple[float, float] | None = None,
+                                  validated_range: Mapping[str, tuple[float, float]]
+                                  | None = None,
                                   blanks: SpectralSet | None = None,
                                   ceiling: float = DEFAULT_CEILING_AU,
                                   provenance: dict[str, Any] | None = None) -> Calibration:
@@ -214,9 +234,11 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
 
     Parameters
     ----------
-    concentration_range : (low, high), optional
-        Range over which Beer's law is known to hold, used for range flags; by default
-        every non-negative concentration is accepted.
+    validated_range : mapping of analyte label to (low, high), optional
+        The range over which each analyte has been shown to follow Beer's law (from your
+        validation), keyed by the table's labels (``"dye A [mg/L]"``); results outside it are
+        flagged ``above_range``/``below_range``. An analyte without a stated range is open
+        upwards (0 to ∞, only negative results are flagged) and a warning says so.
     blanks : SpectralSet, optional
         Replicate blank spectra; with them the figures of merit (σx, LOD, LOQ) are stored.
     """
@@ -239,12 +261,11 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
         K, baseline=baseline, wavelengths=pre.used_axis,
         noise_sd=None if noise is None else noise.sigma,
         noise_dof=None if noise is None else noise.dof)
-    m = K.shape[0]
-    low, high = concentration_range or (0.0, np.inf)
+    ranges = _validated_ranges(absorptivities.sample_ids, validated_range or {})
     cal = Calibration(
         method="cls", analytes=absorptivities.sample_ids, axis=absorptivities.axis,
         axis_unit=absorptivities.axis_unit, preprocessor=pre, estimators=[est],
-        calibrated_range=np.tile([low, high], (m, 1)),
+        calibrated_range=ranges,
         settings={"from_absorptivities": True, "baseline": baseline, "window": window,
                   "path_length_cm": path_length_cm},
         path_length_cm=path_length_cm, ceiling=ceiling,

@@ -73,7 +73,7 @@ def cls_detail(model: CLSRegressor, limits: EstimatorLimits, H: np.ndarray,
     if model.from_standards:
         lev_ratio = d.leverage / limits.leverage
     else:
-        lev_ratio = np.zeros(n)
+        lev_ratio = np.full(n, np.nan)  # no calibration set, so no leverage
         notes.append("model built from absorptivities: standard errors come from each "
                      "spectrum's own residual only")
     if np.isnan(model.residual_limit):

@@ -148,7 +148,8 @@ def calibration_merit(cal: Calibration, spectra: SpectralSet | None,
         uses the curve stored at build time.
     reference_variance : float or sequence of float, optional
         Variance of the reference concentrations σy² per analyte (concentration units²), used
-        in the PLS detection limit; the CLS limit has no σy term (METHODS §5).
+        in the PLS detection limit; the CLS limit has no σy term
+        (Olivieri et al. 2006, Pure Appl. Chem. 78, 633).
 
     Returns
     -------

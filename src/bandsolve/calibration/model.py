@@ -207,6 +207,34 @@ class Calibration:
         """Axis of the preprocessed spectra the estimators see, shape (p',)."""
         return self.preprocessor.used_axis
 
+    @property
+    def scales_with_path_length(self) -> bool:
+        """True for CLS models from an absorptivity table: predictions for spectra measured in
+        another cell use :meth:`at_path_length` (Beer's law, exact)."""
+        return bool(self.settings.get("from_absorptivities")) and self.transfer is None
+
+    def _other_cell(self, spectra: SpectralSet) -> bool:
+        return bool(self.path_length_cm and spectra.path_length_cm and not np.isclose(
+            self.path_length_cm, spectra.path_length_cm, rtol=1e-6))
+
+    def at_path_length(self, path_length_cm: float) -> Calibration:
+        """This absorptivity model for a cell of ``path_length_cm``: pure spectra scaled by
+        Beer's law ``A = εbc`` (exact), limits and noise unchanged.
+
+        Raises
+        ------
+        DataError
+            For models that cannot scale (built from standards, or transferred).
+        """
+        if not self.scales_with_path_length:
+            raise DataError(f"this model was built from standards in a {self.path_length_cm:g} "
+                            "cm cell and cannot be scaled to another path length")
+        factor = path_length_cm / self.path_length_cm
+        return dataclasses.replace(
+            self, estimators=tuple(e.for_path_factor(factor) for e in self.estimators),
+            path_length_cm=path_length_cm,
+            settings={**self.settings, "path_length_cm": path_length_cm})
+
     # ------------------------------------------------------------------ input checks
     def prepare(self, spectra: SpectralSet, *, whole_axis: bool = False
                 ) -> tuple[np.ndarray, list[str]]:
@@ -230,12 +258,18 @@ class Calibration:
         src = spectra.source
         if spectra.quantity == "absorptivity":
             raise DataError(f"{where(src)}these are absorptivities, not sample spectra")
-        if (self.path_length_cm and spectra.path_length_cm
-                and not np.isclose(self.path_length_cm, spectra.path_length_cm, rtol=1e-6)):
+        if self._other_cell(spectra):
+            how = ("predict scales this absorptivity model by Beer's law, but assessments and "
+                   "reports need spectra measured" if self.scales_with_path_length else
+                   "a model built from standards cannot be scaled to another cell exactly (the "
+                   "standards, the limits and any cell or solvent background belong to its "
+                   "cell); measure")
             raise DataError(
                 f"{where(src)}path length {spectra.path_length_cm:g} cm differs from the "
-                f"calibration's {self.path_length_cm:g} cm; measure in the calibrated cell"
-            )
+                f"calibration's {self.path_length_cm:g} cm; {how} in a "
+                f"{self.path_length_cm:g} cm cell"
+                + ("" if self.scales_with_path_length else
+                   ", or build the model from an absorptivity table, which scales by Beer's law"))
         if spectra.quantity != "absorbance":
             notes.append(f"converted from {spectra.quantity.replace('_', ' ')} to absorbance")
             spectra = spectra.to_absorbance()
@@ -292,10 +326,16 @@ class Calibration:
             ``flags`` (codes in :data:`bandsolve.flags.FLAG_CODES`), ``interval_basis``
             (:attr:`interval_basis`) and ``notes``.
         """
-        X, notes = self.prepare(spectra)
-        detail = self.detail(X)
-        return self._table(spectra, detail, detail.max_absorbance > self.ceiling,
-                           notes + detail.notes)
+        if self._other_cell(spectra) and self.scales_with_path_length:
+            model = self.at_path_length(spectra.path_length_cm)
+            scaled = (f"measured in a {spectra.path_length_cm:g} cm cell: pure spectra scaled "
+                      f"from {self.path_length_cm:g} cm by Beer's law (A = εbc)")
+        else:
+            model, scaled = self, None
+        X, notes = model.prepare(spectra)
+        detail = model.detail(X)
+        return model._table(spectra, detail, detail.max_absorbance > model.ceiling,
+                            notes + ([scaled] if scaled else []) + detail.notes)
 
     def detail(self, X: np.ndarray) -> Detail:
         """Per-sample estimates and diagnostics for absorbance on the model grid (n × p).

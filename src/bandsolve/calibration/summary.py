@@ -13,6 +13,7 @@ from typing import Any
 
 from bandsolve.calibration.records import Limits, Selection
 from bandsolve.cautions import SHORT_CAUTION
+from bandsolve.concentrations import range_text
 from bandsolve.merit import FiguresOfMerit
 
 __all__ = ["WIDTH", "format_summary"]
@@ -81,10 +82,9 @@ def format_summary(description: dict[str, Any], limits: Limits, selection: Selec
          ("Checksum", str(prov.get("model_checksum", "not saved yet"))[:16])])
     name_w = max(8, *(len(a["label"]) for a in d["analytes"]))
     lines = [rule, f"{title:^{WIDTH}}", rule, *head, rule,
-             f"{'analyte':<{name_w}}  {'lowest calibrated':>18}  {'highest calibrated':>18}",
-             "-" * WIDTH]
-    lines += [f"{a['label']:<{name_w}}  {a['calibrated_min']:>18.4g}  "
-              f"{a['calibrated_max']:>18.4g}" for a in d["analytes"]]
+             f"{'analyte':<{name_w}}  calibrated (or validated) range", "-" * WIDTH]
+    lines += [f"{a['label']:<{name_w}}  {range_text(a['calibrated_min'], a['calibrated_max'])}"
+              for a in d["analytes"]]
     if selection is not None:
         lines += [rule, *_selection(selection, tuple(a["label"] for a in d["analytes"]))]
     lines += [rule, *_limits(limits), rule]

@@ -20,6 +20,7 @@ from bandsolve.cli._common import (
     read_options,
     read_with_groups,
 )
+from bandsolve.design.amounts import parse_analyte_range
 from bandsolve.errors import BandsolveError
 from bandsolve.io import read_absorptivities, read_concentrations, read_spectra
 from bandsolve.preprocess import parse_window
@@ -51,6 +52,10 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--concentrations", metavar="FILE", help="known concentrations (CSV)")
     p.add_argument("--absorptivity", metavar="FILE",
                    help="CLS only: absorptivity table instead of standards (needs --path-length)")
+    p.add_argument("--validated-range", nargs="+", metavar="RANGE",
+                   help='with --absorptivity: the range each analyte was shown to follow '
+                        'Beer\'s law, e.g. "dye A=0-12 mg/L" (unit as in the table\'s label); '
+                        "results outside it are flagged")
     p.add_argument("--out", metavar="MODEL", required=True, help="model file to write")
     p.add_argument("--window", metavar="RANGES", help="axis ranges to use, e.g. 400-700")
     p.add_argument("--blank", metavar="FILE", help="blank spectra subtracted from calibration")
@@ -104,7 +109,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 #: Options that belong to one method only; giving them to another is a mistake to report.
 METHOD_OPTIONS = {
-    "cls": ("intercept", "baseline", "alpha", "absorptivity"),
+    "cls": ("intercept", "baseline", "alpha", "absorptivity", "validated_range"),
     "pls": ("components", "max_components", "cv", "select", "select_alpha", "mode", "scale",
             "savgol_window", "derivative", "offset", "q_limit"),
 }
@@ -152,13 +157,20 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
         {role: getattr(args, role) for role in
          ("spectra", "concentrations", "absorptivity", "blank", "blanks")})}
     blanks = read_spectra(args.blanks, **read_options(args)) if args.blanks else None
+    if args.validated_range and not args.absorptivity:
+        raise BandsolveError("--validated-range belongs to models from an absorptivity table "
+                             "(--absorptivity); with standards the calibrated range is that of "
+                             "their concentrations")
     if args.absorptivity:
         if args.path_length is None:
             raise BandsolveError("--absorptivity needs --path-length CM (the cell path length)")
         eps = read_absorptivities(args.absorptivity, axis_unit=args.axis_unit)
+        ranges = {r.column: (r.low, r.high)
+                  for r in map(parse_analyte_range, args.validated_range or ())}
         return build_cls_from_absorptivities(eps, args.path_length, baseline=args.baseline,
                                              window=window, blanks=blanks,
-                                             ceiling=args.ceiling, provenance=prov)
+                                             validated_range=ranges, ceiling=args.ceiling,
+                                             provenance=prov)
     if not (args.spectra and args.concentrations):
         raise BandsolveError("give --spectra and --concentrations (or --absorptivity for CLS)")
     spectra = read_spectra(args.spectra, **read_options(args))

@@ -268,7 +268,8 @@ def calibration_plan(
     path_length_cm : float, default 1.0
         Cell path length (cm).
     ceiling_au : float, default 2.0
-        Photometric ceiling (AU). Accuracy is best for A of about 0.3-1 (METHODS §7), so a
+        Photometric ceiling (AU). Accuracy is best for A of about 0.3-1 (Twyman & Lothian 1933,
+        Proc. Phys. Soc. 45, 643), so a
         plan whose mixtures stay below about 1 AU is preferable.
     validation_decimals : int or sequence of int, optional
         Round validation concentrations to this many decimals, or one count per analyte

@@ -14,6 +14,7 @@ from matplotlib.figure import Figure
 
 from bandsolve.calibration.model import Calibration
 from bandsolve.cautions import CAUTIONS
+from bandsolve.concentrations import range_text
 from bandsolve.flags import FLAG_CODES
 from bandsolve.merit import FiguresOfMerit
 from bandsolve.report._views import ReportFigure
@@ -165,12 +166,11 @@ def _component_rule(cal: Calibration) -> str:
 
 
 def model_section(cal: Calibration) -> str:
-    lo_hi = ", ".join(f"{a}: {lo:g} to {hi:g}"
-                      for a, (lo, hi) in zip(cal.analytes, cal.calibrated_range, strict=True))
     used = cal.used_axis
     rows = [
         ("method", cal.kind.title),
-        ("analytes (calibrated range)", lo_hi),
+        ("analytes", f"{cal.n_analytes}: {', '.join(cal.analytes)} (ranges in the data "
+                     "summary)"),
         ("input axis", f"{cal.axis[0]:g} to {cal.axis[-1]:g} {cal.axis_unit}, "
                        f"{cal.axis.size} points"),
         ("used range", f"{used[0]:g} to {used[-1]:g} {cal.axis_unit}, {used.size} points"),
@@ -196,8 +196,8 @@ def data_section(cal: Calibration, n_given: int | None) -> str:
     if n_given is not None:
         rows.append(("calibration spectra given for this report", n_given))
     ranges = pd.DataFrame({"analyte": cal.analytes,
-                           "lowest calibrated": cal.calibrated_range[:, 0],
-                           "highest calibrated": cal.calibrated_range[:, 1]})
+                           "calibrated (or validated) range": [
+                               range_text(lo, hi) for lo, hi in cal.calibrated_range]})
     files = prov.get("training_files") or []
     files_html = (frame_table(pd.DataFrame(files)) if files
                   else note("No training-file fingerprints are recorded in this model."))
