@@ -64,7 +64,7 @@ def test_model_from_standards_refuses_another_cell_and_says_why():
     standards = SpectralSet(AXIS, C @ EPS + rng.normal(0, 0.002, (15, AXIS.size)), ids,
                             path_length_cm=1.0)
     model = build_cls(standards, ConcentrationTable(ids, LABELS, C))
-    with pytest.raises(DataError, match="cannot be scaled to another cell exactly.*absorptivity"):
+    with pytest.raises(DataError, match=r"cannot be scaled to another cell exactly.*absorptivity"):
         model.predict(_samples(C[:2], 0.5, rng))
 
 
