@@ -94,8 +94,8 @@ def build(kind: str, rng, m: int, day: dict[str, float]):
         eps = SpectralSet(AXIS, (1 + day["gain"]) * pure(m, day["shift"]),
                           [f"a{k}" for k in range(m)], quantity="absorptivity")
         blanks = spectra(measure(rng, np.zeros((20, m)), day), "b")
-        return build_cls_from_absorptivities(eps, 1.0, blanks=blanks,
-                                             concentration_range=(0.1, 1.0))
+        return build_cls_from_absorptivities(
+            eps, 1.0, blanks=blanks, validated_range=dict.fromkeys(eps.sample_ids, (0.1, 1.0)))
     C = design(kind, rng, m)
     S, T = spectra(measure(rng, C, day), "c"), table(C, "c")
     if kind.startswith("cls"):
