@@ -8,6 +8,7 @@ is resolved by ``ĉ = (K̂K̂ᵀ)⁻¹K̂a`` (Haaland & Thomas 1988).
 
 from __future__ import annotations
 
+import copy
 from dataclasses import dataclass
 from typing import ClassVar
 
@@ -426,10 +427,9 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         if self.from_standards:
             raise ModelError("a CLS model fitted to standards cannot be rescaled to another "
                              "path length")
-        noise = float(np.sqrt(self.s2_cal_)) if np.isfinite(self.s2_cal_) else None
-        return CLSRegressor.from_pure_spectra(
-            self.pure_spectra_ * factor, baseline=self.baseline, wavelengths=self.wavelengths,
-            alpha=self.alpha, noise_sd=noise)
+        model = copy.deepcopy(self)  # noise, limits and settings stay as they are
+        model._set_spectra(self.pure_spectra_ * factor)
+        return model
 
     def model_spectra(self) -> np.ndarray:
         """``K_aug``, shape (m + q, p): the pure spectra followed by the q baseline rows."""
