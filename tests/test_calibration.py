@@ -77,7 +77,7 @@ def test_summary_shows_the_model_on_one_page(pls_model):
     assert max(len(line) for line in lines) <= 78
     for a, (lo, hi) in zip(pls_model.analytes, pls_model.calibrated_range, strict=True):
         row = next(line for line in lines if line.startswith(a))
-        assert row.split()[-2:] == [f"{lo:.4g}", f"{hi:.4g}"]
+        assert row.endswith(f"{lo:g} to {hi:g}")
     assert " ".join(SHORT_CAUTION.split()) in " ".join(text.split())
     lod = next(line for line in lines if line.startswith("LOD"))
     assert lod.split()[-3:] == [format(r.lod, ".4g") for r in pls_model.merit.analytes]
