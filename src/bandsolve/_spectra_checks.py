@@ -13,7 +13,7 @@ from bandsolve.errors import BandsolveWarning, DataError, where
 from bandsolve.units import guess_axis_unit
 
 __all__ = ["check_axis", "check_ids", "check_finite", "check_transmittance_scale",
-           "digits_to_tell_apart", "warn_if_ambiguous_unit"]
+           "digits_to_tell_apart", "first_nonfinite", "warn_if_ambiguous_unit"]
 
 
 def check_axis(axis: np.ndarray, src: str | None) -> None:
@@ -56,13 +56,22 @@ def check_ids(ids: tuple[str, ...], src: str | None) -> None:
 def check_finite(values: np.ndarray, axis: np.ndarray, ids: tuple[str, ...],
                  src: str | None) -> None:
     """Refuse NaN or infinite values, naming the sample and the axis point."""
-    bad = ~np.isfinite(values)
-    if bad.any():
-        i, j = np.argwhere(bad)[0]
+    first = first_nonfinite(values)
+    if first is not None:
+        i, j, count = first
         raise DataError(
             f"{where(src, sample=ids[i])}value {values[i, j]} at {axis[j]:g} is not a finite "
-            f"number ({int(bad.sum())} such values in all); fix or remove that spectrum"
+            f"number ({count} such values in all); fix or remove that spectrum"
         )
+
+
+def first_nonfinite(values: np.ndarray) -> tuple[int, int, int] | None:
+    """Row and column of the first NaN or infinity of a 2-D array, and how many there are."""
+    bad = ~np.isfinite(values)
+    if not bad.any():
+        return None
+    i, j = np.argwhere(bad)[0]
+    return int(i), int(j), int(bad.sum())
 
 
 class _Spectra(Protocol):

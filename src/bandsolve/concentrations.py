@@ -9,6 +9,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from bandsolve._spectra_checks import first_nonfinite
 from bandsolve.errors import DataError, where
 from bandsolve.spectra import SpectralSet
 
@@ -91,9 +92,9 @@ class ConcentrationTable:
                     f"{seen[s] + 2} and {i + 2}); each sample needs one row"
                 )
             seen[s] = i
-        bad = ~np.isfinite(values)
-        if bad.any():
-            i, j = np.argwhere(bad)[0]
+        first = first_nonfinite(values)
+        if first is not None:
+            i, j, _ = first
             raise DataError(
                 f"{where(self.source, row=i + 2, sample=ids[i])}concentration of "
                 f"{analytes[j]!r} is missing or not a number; fill it in (0 for absent)"
