@@ -239,3 +239,30 @@ def test_known_endings_choose_the_format():
         "csv", "json", "parquet", "csv", "csv"]
     with pytest.raises(FormatError, match=r"\.xlsx.*\.csv, \.json, \.parquet"):
         format_for("r.xlsx", None)
+
+
+def test_round_option_rounds_the_file_and_fail_on_flags_outranks_skipped_inputs(tmp_path):
+    import pandas as pd
+
+    from bandsolve.batch.overview import se_decimals
+    from bandsolve.cli import EXIT_FLAGGED, main
+    from bandsolve.cli.demo_data import write_demo_data
+
+    files = write_demo_data(tmp_path / "demo")
+    model = tmp_path / "m.bsm"
+    assert main(["build", "--method", "cls", "--spectra", str(files.calibration_spectra),
+                 "--concentrations", str(files.calibration_concentrations),
+                 "--out", str(model)]) == 0
+    bad = tmp_path / "bad.csv"
+    bad.write_text("not,a spectrum\nx\n", encoding="utf-8")
+    out = tmp_path / "r.csv"
+    # The last routine batch carries an unmodelled absorber, so some result is flagged.
+    code = main(["predict", str(model), *map(str, files.routine), str(bad), "--round",
+                 "--fail-on-flags", "--quiet", "--out", str(out)])
+    assert code == EXIT_FLAGGED  # documented: 4 outranks 3
+    table = pd.read_csv(out)
+    label = next(c for c in table.columns if c.endswith(" SE"))[:-3]
+    for value, se in zip(table[label], table[f"{label} SE"], strict=True):
+        d = int(se_decimals([se])[0])
+        # GUM 7.2.6: value rounded to the decimal place of the SE's second digit.
+        assert round(value, d) == value

@@ -106,3 +106,10 @@ def test_spectra_on_another_grid_are_resampled_once(cls_model):
     spectra = SpectralSet(fine, np.array([[1.0, 2.0, 3.0]]) @ K, ["s"])
     aligned = cls_model.align(spectra)
     assert aligned.X.shape == (1, axis.size) and any("resampled" in n for n in aligned.notes)
+
+
+def test_repr_is_one_short_line(cls_model):
+    text = repr(cls_model)
+    # A repr for the interactive prompt (common practice): one line, no array dump.
+    assert "\n" not in text and len(text) < 300 and "array" not in text
+    assert text.startswith("Calibration(method='cls'") and cls_model.analytes[0] in text

@@ -22,7 +22,7 @@ import pandas as pd
 from bandsolve.calibration.model import result_columns
 from bandsolve.flags import FLAG_COLUMN, SEPARATOR
 
-__all__ = ["BatchOverview", "batch_overview", "round_to_se", "se_decimals"]
+__all__ = ["BatchOverview", "RoundingSink", "batch_overview", "round_to_se", "se_decimals"]
 
 #: Significant digits kept in a standard error when rounding (GUM 7.2.6).
 SE_DIGITS = 2
@@ -97,6 +97,27 @@ def round_to_se(table: pd.DataFrame, analytes: Sequence[str],
             decimals = 2 - np.floor(np.log10(mag)).astype(int)
             out[column] = _round(values, decimals, np.isfinite(values))
     return out
+
+
+class RoundingSink:
+    """A batch sink (:class:`bandsolve.batch.predict.Sink`) that rounds each results frame
+    with :func:`round_to_se` before passing it on; other sinks (the ledger) keep every digit."""
+
+    def __init__(self, inner, analytes: Sequence[str]) -> None:
+        self.inner = inner
+        self.analytes = tuple(analytes)
+
+    def begin_input(self, position: int, item: str) -> None:
+        self.inner.begin_input(position, item)
+
+    def write(self, frame: pd.DataFrame) -> None:
+        self.inner.write(round_to_se(frame, self.analytes))
+
+    def discard_input(self) -> None:
+        self.inner.discard_input()
+
+    def commit_input(self) -> None:
+        self.inner.commit_input()
 
 
 @dataclass(frozen=True)

@@ -107,7 +107,7 @@ class Aligned:
     notes: tuple[str, ...] = ()
 
 
-@dataclass(frozen=True, eq=False)
+@dataclass(frozen=True, eq=False, repr=False)
 class Calibration:
     """A frozen calibration model.
 
@@ -186,6 +186,14 @@ class Calibration:
                             f"{len(freeze['estimators'])} estimators")
         for name, value in freeze.items():
             object.__setattr__(self, name, value)
+
+    def __repr__(self) -> str:
+        """One line: method, analytes, axis, path length and checksum (no arrays)."""
+        checksum = str(self.provenance.get("model_checksum", "not saved"))[:12]
+        path = f"{self.path_length_cm:g} cm" if self.path_length_cm else "not recorded"
+        return (f"Calibration(method={self.method!r}, analytes={list(self.analytes)!r}, "
+                f"axis={self.axis[0]:g}-{self.axis[-1]:g} {self.axis_unit} "
+                f"({self.axis.size} points), path_length={path}, checksum={checksum})")
 
     @property
     def kind(self) -> CalibrationMethod:

@@ -2,8 +2,8 @@
 
 Exit codes: 0 success; 1 internal error (a bug: please report it); 2 bad input or usage;
 3 some inputs of a batch could not be read (the others were predicted); 4 results were
-flagged and ``--fail-on-flags`` was given; 5 ``drift``: a watched series is out of control;
-130 interrupted.
+flagged and ``--fail-on-flags`` was given (4 outranks 3 when both apply); 5 ``drift``: a
+watched series is out of control; 130 interrupted.
 """
 
 from __future__ import annotations

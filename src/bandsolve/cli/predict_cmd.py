@@ -8,6 +8,7 @@ import sys
 
 from bandsolve.batch.checks import CheckSink, CheckStandards
 from bandsolve.batch.ledger import LedgerRecorder, check_ledger
+from bandsolve.batch.overview import RoundingSink
 from bandsolve.batch.predict import DEFAULT_CHUNK, result_table_columns, run_batch
 from bandsolve.batch.writers import FORMATS, format_for, open_writer
 from bandsolve.calibration.modelfile import load_model
@@ -40,7 +41,9 @@ ledger, where bandsolve drift charts them.
 
 exit codes: 0 all inputs predicted; 2 bad model or options; 3 some inputs could not be read
 (the rest were predicted; when none was, no results file is written); 4 with
---fail-on-flags, some result carries a flag or a check standard is out of its limits.
+--fail-on-flags, some result carries a flag or a check standard is out of its limits. When
+both 3 and 4 apply, 4 is returned (the skipped inputs are still listed on standard error):
+a flagged result must not be reported, which is the more urgent news.
 """
 
 
@@ -75,7 +78,12 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--quiet", action="store_true",
                    help="no progress bar (it is shown only on a terminal anyway)")
     p.add_argument("--fail-on-flags", action="store_true",
-                   help="exit with code 4 when any result is flagged")
+                   help="exit with code 4 when any result is flagged (4 wins over 3: flagged "
+                        "results are reported even when some inputs could not be read)")
+    p.add_argument("--round", action="store_true",
+                   help="round each estimate, SE and interval to two significant digits of "
+                        "its SE (for people; the default keeps full precision for pipelines, "
+                        "and the ledger always does)")
     run = p.add_argument_group("running")
     run.add_argument("--jobs", type=int, default=1, metavar="N",
                      help="parallel workers (-1: all cores; default 1)")
@@ -163,10 +171,10 @@ def run_command(args: argparse.Namespace) -> int:
             eprint(line)
         failed_checks = not report.passed
     eprint(caution_text())
+    if args.fail_on_flags and (summary.n_flagged or failed_checks):
+        return EXIT_FLAGGED  # documented precedence: a flagged result outranks a skipped input
     if summary.failures or not summary.n_predicted:
         return EXIT_PARTIAL
-    if args.fail_on_flags and (summary.n_flagged or failed_checks):
-        return EXIT_FLAGGED
     return 0
 
 
@@ -191,7 +199,8 @@ def _predict(model, args: argparse.Namespace, fmt: str, stdin_text: str | None,
         else:
             handle = stack.enter_context(atomic_write(args.out, "w", newline=""))
         writer = open_writer(handle, fmt, result_table_columns(model))
-        sinks = [writer, *([checks] if checks is not None else [])]
+        shown = RoundingSink(writer, model.analytes) if args.round else writer
+        sinks = [shown, *([checks] if checks is not None else [])]
         recorder = None
         if args.ledger:
             recorder = LedgerRecorder(args.ledger, model, model_path=args.model,
