@@ -83,7 +83,9 @@ def test_missing_model_file_is_a_clean_error(tmp_path, capsys):
 @pytest.mark.slow
 def test_demo_runs_end_to_end_and_flags_the_intruder(tmp_path, capsys):
     assert main(["demo", "--out", str(tmp_path / "demo")]) == 0
-    res = pd.read_csv(tmp_path / "demo" / "results.csv", keep_default_na=False)
+    results = tmp_path / "demo" / "results.csv"
+    assert results.read_text(encoding="utf-8").startswith("# INVENTED")  # marked as invented
+    res = pd.read_csv(results, keep_default_na=False, comment="#")
     truth = pd.read_csv(tmp_path / "demo" / "routine_true_concentrations.csv", comment="#",
                         index_col="sample")
     clean = res[res["flag_codes"] == ""].set_index("sample")

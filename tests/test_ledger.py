@@ -88,8 +88,17 @@ def test_run_records_model_inputs_and_every_row_and_second_run_appends(setup, tm
     assert list(list_runs(ledger)["run_id"]) == [1, 2]
     assert len(list_results(ledger)) == 14
     assert len(list_results(ledger, sample="a*")) == 8
-    assert len(list_runs(ledger, since="2999-01-01")) == 0
+    with pytest.raises(DataError, match="in the future"):
+        list_runs(ledger, since="2999-01-01")
+    past = list_runs(ledger, since="2000-01-01")
+    # Flagged counts match the recorded result rows that carry a code (counted with pandas).
+    rows = list_results(ledger)
+    expected = rows.assign(f=rows["flag_codes"] != "").groupby("run_id")["f"].sum()
+    assert list(past["n_flagged"]) == list(expected.loc[past["run_id"]])
     capsys.readouterr()
+    assert main(["ledger", str(ledger)]) == 0
+    listing = capsys.readouterr().out
+    assert "model_path" in listing and "n_flagged" in listing
 
 
 def _sha_of_checksum(model_path) -> str:

@@ -322,15 +322,22 @@ def _since(value: str | None) -> str | None:
                         "such as 2025-03-01T08:00") from None
     if when.tzinfo is None:
         when = when.replace(tzinfo=timezone.utc)
+    now = datetime.now(timezone.utc)
+    if when > now:
+        raise DataError(f"--since {value} is in the future (it is now "
+                        f"{now.isoformat(timespec='minutes')} UTC), so no run can have started "
+                        "then; check the date")
     return when.astimezone(timezone.utc).isoformat(timespec="seconds")
 
 
 def list_runs(path: str | os.PathLike[str], *, since: str | None = None) -> pd.DataFrame:
-    """Every run (one row each), oldest first; ``since`` keeps runs started at/after a date."""
+    """Every run (one row each), oldest first, with ``n_flagged`` (result rows carrying a
+    flag); ``since`` keeps runs started at/after a date (a future date is an error)."""
     with _connect_ro(path) as con:
         return pd.read_sql_query(
-            "SELECT * FROM runs WHERE started >= COALESCE(?, '') ORDER BY run_id", con,
-            params=(_since(since),))
+            "SELECT runs.*, (SELECT COUNT(*) FROM results r WHERE r.run_id = runs.run_id "
+            "AND r.flags != '') AS n_flagged FROM runs WHERE started >= COALESCE(?, '') "
+            "ORDER BY run_id", con, params=(_since(since),))
 
 
 def list_inputs(path: str | os.PathLike[str], run: int) -> pd.DataFrame:

@@ -67,6 +67,7 @@ def run_demo(folder: str | Path) -> DemoRun:
         tables[name] = predict_inputs(model, [str(p) for p in files.routine]).table
         out = folder / RESULT_FILES[name]
         with atomic_write(out, "w", newline="") as handle:
+            handle.write(f"# {DEMO_LABEL}\n")  # the results of invented data say so too
             tables[name].to_csv(handle, index=False)
         outputs[f"{name.upper()} results"] = out
     from bandsolve.report.extra import drift_section, transfer_section

@@ -66,7 +66,7 @@ def _run(args: argparse.Namespace) -> int:
         print("no runs recorded")
         return 0
     runs = runs.assign(model_checksum=runs["model_checksum"].str[:12])
-    cols = ["run_id", "started", "batch", "operator", "model_checksum", "n_inputs",
-            "n_failed", "n_results"]
+    cols = ["run_id", "started", "batch", "operator", "model_path", "model_checksum",
+            "n_inputs", "n_failed", "n_results", "n_flagged"]
     print(runs[cols].fillna("-").to_string(index=False))
     return 0
