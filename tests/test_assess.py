@@ -208,3 +208,11 @@ def test_assessing_the_calibration_files_is_marked_not_independent(tmp_path, cap
     assert printed["independent"] is False
     assert sorted(printed["calibration_files"]) == sorted(
         str(tmp_path / n) for n in ("cal.csv", "cal_conc.csv"))
+
+
+def test_r_squared_shows_its_distance_from_one():
+    from bandsolve.evaluate.assess import _r2
+
+    # R² = 1 − Σe²/Σ(y − ȳ)² (definition): 0.999953 must not print as 1.0000.
+    assert _r2(0.999953) == "0.999953"
+    assert _r2(0.95) == "0.9500" and _r2(0.5) == "0.5000"

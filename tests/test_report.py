@@ -302,6 +302,9 @@ def test_comparison_table_without_index_or_none(printed_report):
     assert heads[:2] == ["analyte", "method"] and "RMSEP" in heads
     cells = re.findall(r"<td>(.*?)</td>", part)
     assert "None" not in cells and "–" in cells  # no test set: RMSEP is missing
+    assert len(re.findall(r"<th>RMSECV</th>", part)) == 1  # the comparison table once
+    assert "% smaller" in part or "% larger" in part or "no significant difference" in part
+    assert "largest common shape in the CLS residuals" in part
     assert ">None<" not in text
 
 

@@ -35,6 +35,13 @@ __all__ = ["AnalyteAssessment", "Assessment", "SpectraFiles", "assess", "calibra
 NOT_INDEPENDENT = "RMSEP on them is not an independent validation"
 
 
+def _r2(value: float) -> str:
+    """R² with enough decimals to show how far it is from 1 (0.999953, not 1.0000)."""
+    if not np.isfinite(value) or value >= 1 or value <= 0.9:
+        return f"{value:.4f}"
+    return f"{value:.{max(4, int(np.floor(-np.log10(1 - value))) + 2)}f}"
+
+
 @dataclass(frozen=True)
 class SpectraFiles:
     """Spectra read from several files, and the files they came from (in order)."""
@@ -208,7 +215,7 @@ class Assessment:
             lines += [
                 f"{a.analyte} [{u}]",
                 f"  RMSEP {s.rmse:.4g}   bias {s.bias:+.4g} (t = {s.bias_t:.3g}, p = "
-                f"{s.bias_p:.3g})   SEP {s.sep:.4g}   R² {s.r2:.4f}   RPD {s.rpd:.3g}",
+                f"{s.bias_p:.3g})   SEP {s.sep:.4g}   R² {_r2(s.r2)}   RPD {s.rpd:.3g}",
                 f"  predicted = {s.intercept:+.4g} + {s.slope:.4f} × reference;  slope "
                 f"{pct} % CI {s.slope_ci[0]:.4f}..{s.slope_ci[1]:.4f}, intercept {pct} % CI "
                 f"{s.intercept_ci[0]:+.4g}..{s.intercept_ci[1]:+.4g};  slope 1 and intercept 0 "

@@ -135,7 +135,7 @@ class Comparison:
                     "analyte": label, "method": meth.name, "RMSECV": meth.rmsecv[k],
                     "bias CV": meth.bias_cv[k],
                     "RMSEP": None if meth.rmsep is None else meth.rmsep[k],
-                    "bias test": None if meth.bias_test is None else meth.bias_test[k],
+                    "bias (test set)": None if meth.bias_test is None else meth.bias_test[k],
                     "p vs PLS": None if t is None else t.pvalue,
                     "p Holm": None if t is None else t.pvalue_holm,
                 })
@@ -147,26 +147,30 @@ class Comparison:
         has_test = self.n_test > 0
         name_w = max(8, *(len(a) for a in self.analytes))
         meth_w = max(6, *(len(m.name) for m in self.methods))
-        cols = ["RMSECV", "bias CV"] + (["RMSEP", "bias test"] if has_test else []) + [
+        cols = ["RMSECV", "bias CV"] + (["RMSEP", "bias (test set)"] if has_test else []) + [
             "p vs PLS", "p Holm"]
         lines = [f"Method comparison on identical folds ({self.cv}; {self.n_calibration} "
                  f"calibration samples" + (f", {self.n_test} test samples" if has_test else "")
                  + ")",
-                 f"{'analyte':<{name_w}}  {'method':<{meth_w}}" + "".join(f"  {c:>10}"
+                 f"{'analyte':<{name_w}}  {'method':<{meth_w}}" + "".join(f"  {c:>15}"
                                                                           for c in cols)]
         for row in frame.to_dict("records"):
-            cells = ["-" if row[c] is None or pd.isna(row[c]) else f"{row[c]:.4g}" for c in cols]
+            cells = ["-" if row[c] is None or pd.isna(row[c])
+                     else "< 0.001" if c.startswith("p") and row[c] < 0.001
+                     else f"{row[c]:.4g}" for c in cols]
             lines.append(f"{row['analyte']:<{name_w}}  {row['method']:<{meth_w}}"
-                         + "".join(f"  {c:>10}" for c in cells))
+                         + "".join(f"  {c:>15}" for c in cells))
         data = "test set" if has_test else "cross-validated"
         lines.append(f"p: two-sided paired randomization test on {data} squared errors "
-                     "(van der Voet 1994), Holm-corrected across analytes")
+                     "(van der Voet 1994), Holm-corrected across analytes; - : not "
+                     "applicable (PLS is the reference every method is tested against)")
         ev = self.evidence
         lines.append(f"absorber check: {100 * ev.share_above_limit:.0f} % of CLS residuals above "
-                     f"the PLS noise level; first residual component "
-                     f"{100 * ev.structure.share:.0f} % (reference "
-                     f"{100 * ev.structure.reference:.0f} %, p = {ev.structure.pvalue:.3g}); "
-                     f"PLS components {ev.pls_components} for {ev.n_analytes} analytes")
+                     f"the PLS noise level; the largest common shape in the CLS residuals "
+                     f"carries {100 * ev.structure.share:.0f} % of their variance, where noise "
+                     f"alone gives about {100 * ev.structure.reference:.0f} % (p = "
+                     f"{ev.structure.pvalue:.2g}; a small p means a shared unmodelled band); "
+                     f"PLS needs {ev.pls_components} components for {ev.n_analytes} analytes")
         lines.append("recommendation:")
         lines += [f"  {r.analyte}: {r.text}" for r in self.recommendations]
         lines.append(f"  overall: {self.overall.text}")
@@ -215,16 +219,18 @@ def _recommend(label: str, names: list[str], sq: dict[str, np.ndarray],
     pls = names[-1]
     test = next(t for t in tests if t.method == best)
     ratio = float(np.sqrt(sq[best].mean() / sq[pls].mean()))
-    p = f"p = {test.pvalue_holm:.2g}"
+    p = "p < 0.001" if test.pvalue_holm < 0.001 else f"p = {test.pvalue_holm:.2g}"
     if test.pvalue_holm < alpha and ratio > 1:
-        text = f"PLS: {best} errors are {ratio:.2g}× larger ({p})"
+        text = (f"PLS: {best} errors are {100 * (ratio - 1):.0f} % larger (RMSE ratio "
+                f"{ratio:.3f}, {p})")
         if evidence.found:
             text += "; " + "; ".join(evidence.findings) + " — an absorber is missing from the "\
                     "CLS model"
         return Recommendation(label, PLS, text)
     if test.pvalue_holm < alpha:
-        return Recommendation(label, best, f"{best}: errors {1 / ratio:.2g}× smaller than PLS "
-                                           f"({p}) and it needs only pure standards")
+        return Recommendation(label, best, f"{best}: errors {100 * (1 - ratio):.0f} % smaller "
+                                           f"than PLS (RMSE ratio {ratio:.3f}, {p}) and it "
+                                           "needs only pure standards")
     text = f"{best}: no significant difference from PLS ({p}) and it needs only pure standards"
     if evidence.found:
         text += "; but " + "; ".join(evidence.findings) + " — check for an unmodelled absorber"

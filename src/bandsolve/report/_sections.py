@@ -120,11 +120,13 @@ def frame_table(frame: pd.DataFrame) -> str:
 _GAP = re.compile(r" {2,}")
 
 
-def summary_html(text: str) -> str:
+def summary_html(text: str, tables: bool = True) -> str:
     """A fixed-width summary for print: aligned column blocks become tables, the rest wraps.
 
     A block is a run of at least two unindented lines splitting into the same number (three
-    or more) of cells at gaps of two or more spaces; its first line is the header.
+    or more) of cells at gaps of two or more spaces; its first line is the header. With
+    ``tables=False`` such blocks are left out (the caller shows the same numbers as a table
+    of its own).
     """
     lines = text.splitlines()
     cells = [_GAP.split(line.strip()) for line in lines]
@@ -141,6 +143,9 @@ def summary_html(text: str) -> str:
         if prose:
             parts.append(pre("\n".join(prose), "summary"))
             prose = []
+        if not tables:
+            i = j
+            continue
         head = "".join(f"<th>{escape(c)}</th>" for c in cells[i])
         body = "".join("<tr>" + "".join(f"<td>{escape(c)}</td>" for c in row) + "</tr>"
                        for row in cells[i + 1:j])
@@ -227,7 +232,7 @@ def result_section(result: Any, what: str, how: str) -> str:
     if len(frame.columns) > WIDE_COLUMNS >= len(frame):
         # one row per statistic, one column per analyte
         frame = frame.T.rename_axis(index="statistic", columns=None)
-    return summary_html(result.summary()) + frame_table(frame)
+    return summary_html(result.summary(), tables=False) + frame_table(frame)
 
 
 def flags_section() -> str:
