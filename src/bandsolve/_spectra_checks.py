@@ -56,6 +56,7 @@ def check_ids(ids: tuple[str, ...], src: str | None) -> None:
 def check_finite(values: np.ndarray, axis: np.ndarray, ids: tuple[str, ...],
                  src: str | None) -> None:
     """Refuse NaN or infinite values, naming the sample and the axis point."""
+    # concentrations.py raises the same way with its own message (row, analyte, "fill it in").
     first = first_nonfinite(values)
     if first is not None:
         i, j, count = first

@@ -85,6 +85,11 @@ class CalibrationMethod:
         """Pure spectra of the analytes when the model holds them (CLS), else None."""
         return None
 
+    def selectivity(self, estimators: Sequence[Any], m: int) -> np.ndarray:
+        """SEL per analyte from the model alone (needs no noise); NaN where it needs the
+        figures of merit (PLS: the pure spectra are unknown)."""
+        return np.full(m, np.nan)
+
 
 # The two subclasses below set the same class attributes in the same order on purpose: they
 # are the table of what differs between the methods, read side by side.
@@ -136,6 +141,10 @@ class _CLS(CalibrationMethod):
 
     def pure_spectra(self, estimators):
         return estimators[0].component_spectra()
+
+    def selectivity(self, estimators, m):
+        # SEL = ‖NAS‖/‖s_k‖ (Lorber 1986); the noise level does not enter it.
+        return cls_figures(estimators[0].model_spectra(), m, 1.0).selectivity
 
 
 class _PLS(CalibrationMethod):

@@ -112,15 +112,11 @@ def overlay_figure(cal: Calibration, cal_set: SampleSet) -> ReportFigure:
 
 def net_signal(cal: Calibration, merit: FiguresOfMerit | None) -> tuple[np.ndarray, np.ndarray]:
     """NAS vectors at unit concentration (m, p') and selectivities (m,; NaN when unknown)."""
-    sel = np.full(cal.n_analytes, np.nan)
-    if merit is not None:
-        sel = np.array([np.nan if r.selectivity is None else r.selectivity
-                        for r in merit.analytes])
     nas = np.vstack([est.net_analyte_signal() for est in cal.estimators])
-    pure = cal.kind.pure_spectra(cal.estimators)
-    if merit is None and pure is not None:  # SEL = ‖NAS‖/‖pure spectrum‖ needs no noise
-        sel = np.linalg.norm(nas, axis=1) / np.linalg.norm(pure, axis=1)
-    return nas, sel
+    if merit is not None:
+        return nas, np.array([np.nan if r.selectivity is None else r.selectivity
+                              for r in merit.analytes])
+    return nas, cal.kind.selectivity(cal.estimators, cal.n_analytes)
 
 
 def nas_figure(cal: Calibration, merit: FiguresOfMerit | None) -> ReportFigure:
