@@ -10,7 +10,8 @@ error type and the numbers must be identical. The expected values are those type
 generated file (common practice: a reader returns what the file says), checked against
 Python's own ``float`` (correctly rounded, IEEE 754-2008) for accepted files.
 
-Run the long version with ``--hypothesis-profile=readers-long`` (5,000 cases per test).
+The tests marked slow run 5,000 cases each; ``BANDSOLVE_STREAM_CASES`` sets the count of the
+quick ones. ``--hypothesis-show-statistics`` shows how many files were accepted or refused.
 """
 
 from __future__ import annotations
@@ -22,14 +23,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
 from bandsolve.errors import BandsolveError, BandsolveWarning
 from bandsolve.io.csv_spectra import iter_spectra_chunks, read_spectra_file
 
-settings.register_profile("readers-long", max_examples=5000, deadline=None,
-                          suppress_health_check=list(HealthCheck))
 _CASES = settings(max_examples=int(os.environ.get("BANDSOLVE_STREAM_CASES", "150")),
                   deadline=None, suppress_health_check=list(HealthCheck))
 
@@ -117,6 +116,7 @@ def test_streamed_and_whole_reads_agree(data, budget, chunk_size):
         path = Path(folder) / "spectra.csv"
         path.write_bytes(data)
         whole = _outcome(lambda: _whole(path))
+        event(f"whole file: {whole[0] if isinstance(whole, tuple) else 'accepted'}")
         for size in (1, budget, 1 << 20):  # a block boundary after every row; random; none
             streamed = _outcome(lambda size=size: _streamed(path, size, chunk_size))
             if isinstance(whole, tuple) or isinstance(streamed, tuple):
@@ -133,10 +133,13 @@ def test_streamed_and_whole_reads_agree(data, budget, chunk_size):
                 np.testing.assert_array_equal(c.axis, whole.axis)
 
 
+_LONG = settings(max_examples=5000, deadline=None, suppress_health_check=list(HealthCheck))
+
+
 @pytest.mark.slow
-@settings(max_examples=5000, deadline=None, suppress_health_check=list(HealthCheck))
+@_LONG
 @given(wide_files(), st.integers(1, 200), st.integers(1, 7))
-def test_streamed_and_whole_reads_agree_long(data, budget, chunk_size):
+def test_streamed_and_whole_reads_agree_5000_cases(data, budget, chunk_size):
     test_streamed_and_whole_reads_agree.hypothesis.inner_test(data, budget, chunk_size)
 
 
@@ -169,3 +172,12 @@ def test_compiled_engine_never_accepts_what_the_careful_parser_refuses(delimiter
         pytest.fail(f"compiled engine accepted {line!r}, careful parser refused: {exc}")
     np.testing.assert_array_equal(fast[0], slow[0])
     assert [s.strip() for s in fast[1]] == [s.strip() for s in slow[1]]
+
+
+@pytest.mark.slow
+@_LONG
+@given(st.sampled_from([",", ";", "\t", None]), st.booleans(),
+       st.lists(st.lists(_CELL_CHARS, max_size=6).map("".join), min_size=1, max_size=4))
+def test_compiled_engine_agrees_5000_cases(delimiter, comma, cells):
+    inner = test_compiled_engine_never_accepts_what_the_careful_parser_refuses.hypothesis
+    inner.inner_test(delimiter, comma, cells)

@@ -154,3 +154,15 @@ def test_comments_after_the_table_start_do_not_set_options(tmp_path):
         warnings.simplefilter("ignore", BandsolveWarning)
         whole, chunks = _both(path)
     assert whole.quantity == "absorbance" and chunks[0].quantity == "absorbance"
+
+
+def test_standard_input_is_decoded_like_a_file(monkeypatch):
+    # Latin-1 on standard input used to end in an internal error (UnicodeDecodeError)
+    import io
+    import sys
+
+    from bandsolve.cli.predict_cmd import _read_stdin
+
+    data = "sample,400\nµ1,0.5\n".encode("latin-1")
+    monkeypatch.setattr(sys, "stdin", io.TextIOWrapper(io.BytesIO(data), encoding="utf-8"))
+    assert _read_stdin() == "sample,400\nµ1,0.5\n"

@@ -140,6 +140,16 @@ def _run_cubes(model, args: argparse.Namespace) -> int:
     return 0
 
 
+def _read_stdin() -> str:
+    """Standard input decoded by the rules every file is read with (UTF-8, Latin-1, UTF-16)."""
+    raw = getattr(sys.stdin, "buffer", None)
+    if raw is None:  # already text (for example when replaced in tests)
+        return sys.stdin.read()
+    from bandsolve.io._source import read_text
+
+    return read_text(raw, "<stdin>")
+
+
 def run_command(args: argparse.Namespace) -> int:
     model = load_model(args.model)
     if (args.batch or args.operator) and not args.ledger:
@@ -156,7 +166,7 @@ def run_command(args: argparse.Namespace) -> int:
     checks = _check_sink(model, args) if args.checks else None
     if args.ledger:
         check_ledger(args.ledger, new_ok=True)  # before any work: a bad ledger loses nothing
-    stdin_text = sys.stdin.read() if "-" in args.inputs else None
+    stdin_text = _read_stdin() if "-" in args.inputs else None
     try:
         summary = _predict(model, args, fmt, stdin_text, checks)
     except _NothingPredicted as stop:
