@@ -134,21 +134,25 @@ class TextSource:
         A block ends at the last line end within ``budget`` bytes, or after its first line
         when that line alone is longer.
         """
-        data, line = b"", 1
+        data, line, newline = bytearray(), 1, False
         while True:
-            while not self._eof and (len(data) < self.budget or b"\n" not in data):
-                if len(data) > MAX_LINE_BYTES and b"\n" not in data:
+            while not self._eof and (len(data) < self.budget or not newline):
+                chunk = self._read(max(self.budget - len(data), _READ))
+                data += chunk
+                newline = newline or b"\n" in chunk
+                if not newline and len(data) > MAX_LINE_BYTES:
                     raise FormatError(
                         f"{where(self.source, row=line)}the line is longer than "
                         f"{MAX_LINE_BYTES >> 20} MB without a line end; this is not a table "
                         "of spectra (check the file, or its line ends)"
                     )
-                data += self._read(max(self.budget - len(data), _READ))
             if not data:
                 return
             cut = (data.rfind(b"\n", 0, self.budget) + 1 or data.find(b"\n") + 1
                    or len(data))
-            block, data = data[:cut], data[cut:]
+            block = bytes(data[:cut])
+            del data[:cut]
+            newline = b"\n" in data
             self._check(block, line)
             yield Block(block, line, unterminated=not data and not block.endswith(b"\n"))
             line += block.count(b"\n")
