@@ -80,9 +80,10 @@ def read_spectra(path: str | Path, *, layout: str = "auto", axis_unit: str | Non
 def iter_spectra_chunks(path: str | Path, chunk_size: int, **options) -> Iterator[SpectralSet]:
     """Yield the spectra of ``path`` in sets of at most ``chunk_size``.
 
-    Wide text files are streamed line by line (memory bounded whatever the file length; the
-    options are ``axis_unit``, ``quantity``, ``path_length_cm``); other inputs (JCAMP-DX files,
-    folders) are read whole with :func:`read_spectra` and yielded as one set.
+    Text files are read in blocks of whole lines and, for a wide table, yielded block by block
+    (memory bounded by bytes whatever the file length), exactly as :func:`read_spectra` reads
+    them (options ``layout``, ``axis_unit``, ``quantity``, ``path_length_cm``, ``budget``);
+    other inputs (JCAMP-DX files, folders) are read whole and yielded as one set.
     """
     if Path(path).is_dir() or Path(path).suffix.lower() in JCAMP_SUFFIXES:
         yield read_spectra(path, **options)
