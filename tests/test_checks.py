@@ -105,6 +105,7 @@ def season(tmp_path_factory):
     return folder, ledger
 
 
+@pytest.mark.slow
 def test_ledger_recoveries_match_numpy_from_the_results_files(season):
     folder, ledger = season
     recorded = list_checks(ledger)
@@ -146,6 +147,7 @@ def test_predict_fails_a_batch_with_an_out_of_limit_check_standard(season, capsy
     assert "out of limits: b [mg/L] recovery" in capsys.readouterr().err
 
 
+@pytest.mark.slow
 def test_report_shows_the_drift_watch_of_the_model(season):
     folder, ledger = season
     out = folder / "qc.html"

@@ -109,6 +109,7 @@ def _streamed(path, budget, chunk_size):
     return chunks
 
 
+@pytest.mark.slow
 @_CASES
 @given(wide_files(), st.integers(1, 200), st.integers(1, 7))
 def test_streamed_and_whole_reads_agree(data, budget, chunk_size):

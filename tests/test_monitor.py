@@ -37,6 +37,7 @@ EWMA_TABLE = {(0.1, 2.814): (500, 106, 31.3, 15.9, 10.3, 6.1, 4.4),
 
 
 # ---------------------------------------------------------------------- ARL computations
+@pytest.mark.slow
 @pytest.mark.parametrize("h", [4.0, 5.0])
 def test_cusum_markov_chain_arl_matches_the_published_table(h):
     for shift, table in zip(SHIFTS, CUSUM_TABLE[h], strict=True):
@@ -61,6 +62,7 @@ def test_cusum_one_sided_arl_agrees_with_siegmund_approximation(shift):
             _siegmund(0.5, h, shift), rel=0.05)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("design", list(EWMA_TABLE))
 def test_ewma_markov_chain_arl_matches_lucas_saccucci(design):
     lam, width = design
@@ -146,6 +148,7 @@ def _trend_arl(k: float, h: float, slope: float, states: int = 201, horizon: int
     return 1.0 + float(np.sum(survive))
 
 
+@pytest.mark.slow
 def test_a_trend_of_half_a_se_per_run_is_detected_when_the_markov_chain_says():
     # Drift read as a ramp of 0.5 SE per run: expected detection run from an independent
     # time-varying Markov chain (Brook & Evans 1972), compared with the chart's run lengths.

@@ -23,6 +23,7 @@ def test_unknown_names_raise_attribute_error():
         bandsolve.nothing_here  # noqa: B018
 
 
+@pytest.mark.slow
 def test_importing_the_package_loads_no_numerical_library():
     code = ("import sys, json, bandsolve\n"
             "print(json.dumps([m for m in ('numpy', 'pandas', 'scipy', 'sklearn') "

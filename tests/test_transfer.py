@@ -233,6 +233,7 @@ def test_a_model_transfers_once(moved):
         transfer_calibration(moved_model, test, test)
 
 
+@pytest.mark.slow
 def test_transfer_command_writes_a_new_model_with_its_record(tmp_path, capsys):
     from bandsolve.cli import main
 
