@@ -153,3 +153,10 @@ def test_a_batch_of_100000_is_summarised_in_a_page_sized_report():
     part = _batch_part(html)
     assert "100000 spectra predicted" in part and "Results by flag code" in part
     assert len(re.findall(r"<tr>", part)) < 200
+
+
+def test_flagged_samples_are_listed_worst_first():
+    s = scenario(2, 400)
+    view = batch_overview(s.batch, s.cal.analytes)
+    worst = view.flagged[["residual_ratio", "leverage_ratio"]].max(axis=1).to_numpy()
+    assert np.all(np.diff(worst) <= 0)  # non-increasing: farthest beyond a limit first

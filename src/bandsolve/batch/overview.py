@@ -135,7 +135,8 @@ class BatchOverview:
         One row per analyte: ``analyte``, ``n``, ``min``, ``5 %``, ``median``, ``95 %``,
         ``max`` of the estimates, and ``median SE``.
     flagged : DataFrame
-        The flagged rows: ``sample``, ``source``, the flag codes and the diagnostic ratios.
+        The flagged rows: ``sample``, ``source``, the flag codes and the diagnostic ratios,
+        farthest beyond a limit first (largest of the three ratios).
     """
 
     n_samples: int
@@ -188,7 +189,12 @@ def batch_overview(table: pd.DataFrame, analytes: Sequence[str]) -> BatchOvervie
                      "median SE": float(np.median(sds)) if sds.size else np.nan})
     keep = [c for c in ("sample", "source", FLAG_COLUMN, "residual_ratio", "t2_ratio",
                         "leverage_ratio") if c in table.columns]
+    flagged = table.loc[flagged_mask, keep]
+    ratios = [c for c in ("residual_ratio", "t2_ratio", "leverage_ratio") if c in keep]
+    if ratios:
+        worst = flagged[ratios].astype(float).max(axis=1, skipna=True).fillna(-np.inf)
+        flagged = flagged.iloc[np.argsort(-worst.to_numpy(), kind="stable")]
     return BatchOverview(n_samples=n, n_flagged=int(flagged_mask.sum()),
                          flag_counts=_flag_counts(codes, max(n, 1)),
                          distribution=pd.DataFrame(rows),
-                         flagged=table.loc[flagged_mask, keep].reset_index(drop=True))
+                         flagged=flagged.reset_index(drop=True))

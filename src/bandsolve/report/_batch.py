@@ -83,7 +83,8 @@ def _overview(table: pd.DataFrame, analytes: tuple[str, ...]) -> str:
     more = len(view.flagged) - len(shown)
     flagged = ""
     if len(shown):
-        flagged = ("<h3>Flagged samples</h3>" + frame_table(round_to_se(shown, analytes))
+        flagged = ("<h3>Flagged samples</h3>" + note("Farthest beyond a limit first.")
+                   + frame_table(round_to_se(shown, analytes))
                    + (note(f"… and {more} more flagged samples: every row is in the results "
                            "file.") if more > 0 else ""))
     return (f"<p class=\"meta\">A batch of more than {LIST_ROWS} spectra is summarised here; "

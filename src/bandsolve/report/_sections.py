@@ -43,6 +43,7 @@ pre { background:#f6f6f6; border:1px solid var(--rule); padding:.6rem; font-size
 pre.summary { margin-bottom:0; } table.summary { margin-top:0; }
 td code, li code { overflow-wrap:anywhere; } ul.skipped { font-weight:400; }
 table.batch { width:100%; table-layout:fixed; } table.batch th:first-child { width:7em; }
+table.batch th:last-child { width:24%; }
 td.codes { overflow-wrap:anywhere; font-size:.9em; }
 .interval { color:var(--muted); font-size:.9em; }
 figure { margin:1rem 0; } figure img { max-width:100%; height:auto; border:1px solid #eee; }
