@@ -29,7 +29,7 @@ from hypothesis import strategies as st
 from bandsolve.errors import BandsolveError, BandsolveWarning
 from bandsolve.io.csv_spectra import iter_spectra_chunks, read_spectra_file
 
-_CASES = settings(max_examples=int(os.environ.get("BANDSOLVE_STREAM_CASES", "150")),
+_CASES = settings(max_examples=int(os.environ.get("BANDSOLVE_STREAM_CASES", "40")),
                   deadline=None, suppress_health_check=list(HealthCheck))
 
 _IDS = st.sampled_from(["s1", "s2", "A", "mix 3", "µg-1", "é", "a,b", 'he "x"', "x;y",
