@@ -194,3 +194,21 @@ def test_real_three_aromatics_with_54_blank_replicates():
     assert np.all(frame["lod"] < lowest) and np.all(frame["lod"] < frame["loq"])
     assert set(frame["unit"]) == {"mol/L"} and "LOD [mol/L]" in fom.summary()
     assert set(frame["sigma_x_origin"]) == {"blank replicates"}
+
+
+def test_pls_selectivity_estimate_follows_the_iupac_definition_on_correlated_designs():
+    # IUPAC SEL of an inverse model = SEN/‖s_k‖ with SEN = 1/‖b‖ and s_k the true pure spectrum
+    # (Olivieri et al. 2006; Faber 1998), computed here with numpy from the true K. Analytes 1
+    # and 2 are strongly correlated in the design; the stored estimate must stay within 5 %.
+    rng = np.random.default_rng(30)
+    base = rng.uniform(0.1, 1.0, 40)
+    conc = np.column_stack([base, 0.8 * base + 0.2 * rng.uniform(0.1, 1.0, 40),
+                            rng.uniform(0.1, 1.0, 40)])
+    ids = [f"s{i}" for i in range(40)]
+    spectra = SpectralSet(AXIS, conc @ K + 1e-4 * rng.standard_normal((40, AXIS.size)), ids)
+    cal = build_pls(spectra, ConcentrationTable(ids, LABELS, conc), components=3)
+    b = cal.estimators[0].regression_vectors()
+    iupac = (1 / np.linalg.norm(b, axis=1)) / np.linalg.norm(K, axis=1)
+    stored = cal.merit.to_frame()["selectivity"].to_numpy(float)
+    np.testing.assert_allclose(stored, iupac, rtol=0.05)
+    assert "estimate" in cal.merit.summary()

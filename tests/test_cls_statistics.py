@@ -40,7 +40,7 @@ def test_closed_form_leave_one_out_equals_refits(m, rs, intercept, baseline):
     z = (AXIS - AXIS.mean()) / ((AXIS.max() - AXIS.min()) / 2)
     rows = [z**k for k in range({"none": 0, "offset": 1, "linear": 2}[baseline])]
     dof = p - m - len(rows)
-    loo = model.loo_predictions()
+    loo = model.leave_one_out().concentrations
     z = np.empty((n, m))
     for i in range(n):
         keep = np.arange(n) != i
@@ -128,3 +128,16 @@ def test_pure_standards_intervals_and_flags_on_in_range_mixtures(m):
     assert 0.93 <= hits / total <= 0.97
     assert resid / (60 * 20) <= 0.03
     assert lev == 0
+
+
+def test_model_with_nothing_to_check_against_flags_every_result():
+    # An absorptivity model without replicate blanks has no residual limit: every result
+    # says so with its own code (README flag table), and a batch counts them as flagged.
+    eps = SpectralSet(AXIS, _bands(3), ["a [mg/L]", "b [mg/L]", "c [mg/L]"],
+                      quantity="absorptivity")
+    with pytest.warns(UserWarning, match="no residual limit"):
+        cal = build_cls_from_absorptivities(eps, 1.0)
+    strong = np.exp(-0.5 * ((AXIS - 600) / 20) ** 2)  # an interferent it cannot see
+    res = cal.predict(SpectralSet(AXIS, np.array([[0.2, 0.3, 0.4]]) @ _bands(3) + strong,
+                                  ["x"]))
+    assert res["flag_codes"][0].split(";") == ["unchecked"]

@@ -158,3 +158,51 @@ def test_command_line(tmp_path, capsys):
     expected = compare_methods(spectra, table, cv="interleaved:8").to_dict()
     assert printed["overall"] == expected["overall"]
     assert printed["methods"][0]["rmsecv"] == pytest.approx(expected["methods"][0]["rmsecv"])
+
+
+def test_curvature_test_equals_the_extra_sum_of_squares_f_test():
+    # Draper & Smith (1998), extra sum of squares: F = (RSS_linear − RSS_quadratic) /
+    # (RSS_quadratic/(n − 3)) on (1, n − 3) df equals the squared t of the quadratic term;
+    # both fits here by numpy.polyfit, the tail by scipy.
+    from scipy import stats as st
+
+    from bandsolve.evaluate.evidence import curvature_evidence
+
+    rng = np.random.default_rng(12)
+    c = rng.uniform(0.1, 1.0, (30, 2))
+    e = np.column_stack([0.02 * rng.standard_normal(30),
+                         -0.5 * c[:, 1] ** 2 + 0.01 * rng.standard_normal(30)])
+    result = curvature_evidence(e, c, ("a", "b"))
+    for k in range(2):
+        rss = [np.sum((e[:, k] - np.polyval(np.polyfit(c[:, k], e[:, k], d), c[:, k])) ** 2)
+               for d in (1, 2)]
+        f = (rss[0] - rss[1]) / (rss[1] / 27)
+        assert result.pvalues[k] == pytest.approx(st.f.sf(f, 1, 27), rel=1e-8)
+    assert result.findings and "b" in result.findings[0] and result.pvalues_holm[0] > 0.01
+
+
+def test_overall_verdict_never_names_a_variant_a_test_found_worse():
+    # A CLS variant with the smaller pooled error but significantly worse than PLS for one
+    # analyte must not be recommended (the verdict follows its tests).
+    from bandsolve.evaluate.compare import PairedComparison, _overall
+
+    names = ["CLS", "CLS+linear", "PLS (3 comp.)"]
+    sq = {"CLS": np.array([[1.0, 1.0], [1.0, 1.0]]),
+          "CLS+linear": np.array([[2.0, 2.0], [2.0, 2.0]]),
+          "PLS (3 comp.)": np.array([[1.5, 1.5], [1.5, 1.5]])}
+
+    def test(method, analyte, stat, p):
+        return PairedComparison(analyte, method, "cross-validation", stat, p, p)
+
+    tests = [test("CLS", "a", 0.4, 0.001), test("CLS", "b", -0.5, 0.5),
+             test("CLS+linear", "a", 0.5, 0.2), test("CLS+linear", "b", 0.5, 0.3)]
+    assert _overall(names, sq, tests, (), 0.05).method == "CLS+linear"
+    tests[2] = test("CLS+linear", "a", 0.5, 0.01)
+    verdict = _overall(names, sq, tests, (), 0.05)
+    assert verdict.method == "PLS" and "every CLS variant" in verdict.text
+    # Evidence of a missing absorber with no CLS variant significantly better: PLS, and the
+    # evidence is in the overall line and its record (the JSON).
+    tests = [test("CLS", "a", 0.1, 0.5), test("CLS+linear", "a", 0.1, 0.5)]
+    verdict = _overall(names, sq, tests, ("PLS needs 5 components for 3 analytes",), 0.05)
+    assert verdict.method == "PLS" and "5 components" in verdict.text
+    assert verdict.evidence == ("PLS needs 5 components for 3 analytes",)

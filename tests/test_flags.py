@@ -63,7 +63,8 @@ def test_flag_bits_follow_the_flag_codes():
     assert list(FLAG_BITS) == list(FLAG_CODES)
     assert sorted(FLAG_BITS.values()) == [2**i for i in range(len(FLAG_CODES))]
     assert FLAG_BITS == {"residual": 1, "t2": 2, "leverage": 4, "ceiling": 8,
-                         "above_range": 16, "below_range": 32, "negative": 64, "no_se": 128}
+                         "above_range": 16, "below_range": 32, "negative": 64, "no_se": 128,
+                         "unchecked": 256}  # added after 0.1.0, so it comes last
     got = flag_bits(["", "residual", "t2;above_range:dye A;negative:dye B", "no_se"])
     np.testing.assert_array_equal(got, [0, 1, 2 + 16 + 64, 128])
     assert got.dtype == np.uint16 and max(FLAG_BITS.values()) < 2**16

@@ -119,3 +119,10 @@ def test_assess_out_model_from_the_command_line(tmp_path, capsys):
     new = load_model(tmp_path / "new.bsm")
     assert [f["name"] for f in new.interval.validation_files] == ["v.csv", "vc.csv"]
     assert "A [mg/L] low95" in open(tmp_path / "s.csv").read()
+    assert main(["inspect", str(tmp_path / "new.bsm")]) == 0
+    shown = capsys.readouterr().out
+    assert "validated on 30 independent samples" in shown and "model error SD" in shown
+    from bandsolve.report._sections import model_section
+
+    assert "validated on 30" in model_section(new) and "calibration only" in model_section(
+        load_model(tmp_path / "m.bsm"))

@@ -298,12 +298,11 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
             return np.array([])
         return loo.residual_ss / dof / (self.s2_cal_ * (1.0 + loo.leverage))
 
-    def loo_predictions(self) -> np.ndarray | None:
-        """Leave-one-out predictions of the calibration samples from :meth:`fit`, shape
-        (n, m), NaN rows for samples that cannot be left out (closed form, no refits); None
-        for a model loaded from a file or built from absorptivities (not kept)."""
-        loo = getattr(self, "_loo", None)
-        return None if loo is None else loo.concentrations.copy()
+    def leave_one_out(self) -> LeaveOneOut | None:
+        """Leave-one-out predictions and their SEs for the calibration samples from
+        :meth:`fit` (closed form, no refits; NaN rows for samples that cannot be left out);
+        None for a model loaded from a file or built from absorptivities (not kept)."""
+        return getattr(self, "_loo", None)
 
     def error_scale(self) -> tuple[np.ndarray, int]:
         """Ratio of leave-one-out errors to their reported SEs, per analyte, and its df.

@@ -57,6 +57,12 @@ FLAG_CODES: dict[str, str] = {
         "No standard error could be estimated (no residual degrees of freedom); the "
         "notes column says why."
     ),
+    "unchecked": (
+        "Nothing to check the spectrum against: the model has no residual limit (built from "
+        "absorptivities without replicate blanks, or from too few standards), so an "
+        "unmodelled absorber would go unnoticed. Rebuild with replicate blanks (--blanks) or "
+        "more standards than analytes."
+    ),
 }
 
 

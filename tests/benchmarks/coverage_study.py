@@ -13,8 +13,9 @@ mixtures per calibration:
 * pooled coverage of the 95 % intervals, and the share of calibrations in which some analyte
   covers less than 0.90;
 * the share of clean in-range samples carrying any flag;
-* the share of samples carrying an unmodelled absorber (a band whose RMS over the axis equals
-  the noise RMS) that get any flag.
+* the share of samples carrying an unmodelled absorber that get any flag; the absorber is a
+  band at 630 nm scaled so that its part outside the span of the pure spectra (the only part
+  any residual test can see) has an RMS over the axis equal to the noise RMS.
 
 Then the same under day-to-day effects calibration cannot see — each day has its own gain
 (SD 2 %), wavelength shift (SD 0.2 nm), baseline offset (SD 0.002 AU) and slope; calibration is
@@ -48,8 +49,7 @@ SIGMA = 0.003
 N_NEW = 200
 FINE = np.linspace(380.0, 720.0, 3401)
 Z = (AXIS - AXIS.mean()) / ((AXIS.max() - AXIS.min()) / 2)
-INTERFERENT = np.exp(-0.5 * ((AXIS - 630.0) / 18.0) ** 2)
-INTERFERENT *= SIGMA / np.sqrt(np.mean(INTERFERENT**2))  # RMS over the axis = noise RMS
+BAND = np.exp(-0.5 * ((AXIS - 630.0) / 18.0) ** 2)
 
 
 def pure(m: int, shift: float = 0.0) -> np.ndarray:
@@ -65,12 +65,20 @@ def new_day(rng, effects: bool) -> dict[str, float]:
             "offset": rng.normal(0, 0.002), "slope": rng.normal(0, 0.002)}
 
 
+def interferent(m: int) -> np.ndarray:
+    """An unmodelled band scaled so that the part no combination of the m pure spectra can
+    absorb has an RMS over the axis equal to the noise RMS (the part a residual test sees)."""
+    K = pure(m)
+    unexplained = BAND - K.T @ np.linalg.lstsq(K.T, BAND, rcond=None)[0]
+    return BAND * SIGMA / np.sqrt(np.mean(unexplained**2))
+
+
 def measure(rng, C: np.ndarray, day: dict[str, float], extra: bool = False) -> np.ndarray:
     """Spectra of compositions C measured on ``day`` (white noise σ, optional absorber)."""
     n, m = C.shape
     A = (1 + day["gain"]) * C @ pure(m, day["shift"]) + day["offset"] + day["slope"] * Z
     A = A + rng.normal(0, SIGMA, (n, AXIS.size))
-    return A + INTERFERENT if extra else A
+    return A + interferent(m) if extra else A
 
 
 def spectra(A: np.ndarray, prefix: str) -> SpectralSet:
@@ -122,7 +130,8 @@ def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng) -> dict[str, flo
     for _ in range(n_cal):
         cal = build(kind, rng, m, new_day(rng, effects))
         days = [new_day(rng, effects) for _ in range(10)]
-        Ct = rng.uniform(0.1, 1.0, (N_NEW, m))
+        low, high = np.asarray(cal.calibrated_range).T  # in-range: inside every analyte's range
+        Ct = rng.uniform(low, np.minimum(high, 1.0), (N_NEW, m))
         At = np.vstack([measure(rng, Ct[i::10], days[i]) for i in range(10)])
         Ct = np.vstack([Ct[i::10] for i in range(10)])
         res = cal.predict(spectra(At, "t"))
@@ -134,7 +143,7 @@ def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng) -> dict[str, flo
             Ab = measure(rng, Ct, days[0], extra=True)
             detect.append((cal.predict(spectra(Ab, "x"))["flag_codes"] != "").mean())
             continue
-        Cv = rng.uniform(0.1, 1.0, (30, m))
+        Cv = rng.uniform(low, np.minimum(high, 1.0), (30, m))
         vdays = [new_day(rng, effects) for _ in range(5)]
         Av = np.vstack([measure(rng, Cv[i::5], vdays[i]) for i in range(5)])
         Cv = np.vstack([Cv[i::5] for i in range(5)])
@@ -188,8 +197,9 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     if not args.real:
         simulated(args.calibrations, args.only)
-    folder = Path(__file__).resolve().parents[3] / "shared" / "datasets"
-    if folder.is_dir():
+    folder = next((p / "shared" / "datasets" for p in Path(__file__).resolve().parents
+                   if (p / "shared" / "datasets").is_dir()), None)
+    if folder is not None:
         sys.path.insert(0, str(Path(__file__).resolve().parent))
         from coverage_real import real_study
 

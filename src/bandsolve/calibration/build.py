@@ -27,8 +27,8 @@ from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
 
 __all__ = ["build_cls", "build_cls_from_absorptivities", "check_ceiling", "file_fingerprints",
-           "library_versions",
-           "provenance_record", "training_arrays", "with_merit"]
+           "library_versions", "outlier_record", "provenance_record", "training_arrays",
+           "with_merit"]
 
 
 def library_versions() -> dict[str, str]:
@@ -55,6 +55,16 @@ def file_fingerprints(files: Mapping[str, str | os.PathLike[str] | None]) -> lis
     """
     return [{"role": role, "name": Path(path).name, "sha256": sha256_file(path)}
             for role, path in files.items() if path and Path(path).is_file()]
+
+
+def outlier_record(errors: np.ndarray, standard_errors: np.ndarray, sample_ids, analytes
+                   ) -> dict[str, Any]:
+    """``{"reference_outliers": [...]}`` for the provenance: calibration samples whose stated
+    concentration disagrees with their spectrum (:mod:`bandsolve.reference_outliers`)."""
+    from bandsolve.reference_outliers import reference_outliers
+
+    found = reference_outliers(errors, standard_errors, sample_ids, analytes)
+    return {"reference_outliers": [o.to_dict() for o in found]}
 
 
 def provenance_record(extra: dict[str, Any] | None, n_samples: int) -> dict[str, Any]:
@@ -170,13 +180,22 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
         method="cls", analytes=table.analytes, axis=spectra.axis, axis_unit=spectra.axis_unit,
         preprocessor=pre, estimators=[est], calibrated_range=calibrated_range,
         settings=settings, path_length_cm=spectra.path_length_cm, ceiling=ceiling,
-        limits=limits, provenance=provenance_record(provenance, len(C)),
+        limits=limits, provenance=provenance_record(provenance, len(C)) | _cls_outliers(
+            est, C, spectra.sample_ids, table.analytes),
     )
     blank_x = blank_arrays(cal, blanks)
     if blank_x is not None:
         _check_residual_noise(est, float(noise_from_blanks(pre.transform(blank_x))),
                               spectra.source)
     return with_merit(cal, spectra.values, C, blank_x, Z)
+
+
+def _cls_outliers(est: CLSRegressor, C: np.ndarray, sample_ids, analytes) -> dict[str, Any]:
+    """Reference-value outliers from the closed-form leave-one-out errors of a CLS fit."""
+    loo = est.leave_one_out()
+    if loo is None:
+        return {"reference_outliers": []}
+    return outlier_record(loo.concentrations - C, loo.standard_errors, sample_ids, analytes)
 
 
 def with_merit(cal: Calibration, X: np.ndarray | None, C: np.ndarray | None,

@@ -8,6 +8,7 @@ import numpy as np
 
 from bandsolve.calibration.build import (
     check_ceiling,
+    outlier_record,
     provenance_record,
     training_arrays,
     with_merit,
@@ -41,7 +42,7 @@ def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str =
                         scale: bool = False, limit_alpha: float = 0.01,
                         q_limit: str = "box", leverage_factor: float = LEVERAGE_FACTOR,
                         random_state: int = 0
-                        ) -> tuple[PLSRegressor, EstimatorLimits, ComponentChoice]:
+                        ) -> tuple[PLSRegressor, EstimatorLimits, ComponentChoice, np.ndarray]:
     """Cross-validate, choose the component count, fit, and set the diagnostic limits.
 
     Limits (all at ``limit_alpha``):
@@ -66,6 +67,11 @@ def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str =
     limits : EstimatorLimits
     selection : ComponentChoice
         Rule, chosen count and the CV evidence (RMSECV curve, p-values).
+    studentized : ndarray, shape (n, m)
+        Cross-validated errors at the chosen count times ``√(1 − h_i)`` (the leverage of each
+        calibration sample), which have a common variance (Cook & Weisberg 1982), over the
+        error SD ``RMSECV/√(1 + (A + 1)/n)``: the input of
+        :func:`bandsolve.reference_outliers.reference_outliers`.
     """
     n = Z.shape[0]
     a_max = int(min(max_components, n - 2, Z.shape[1]))
@@ -94,7 +100,10 @@ def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str =
     evidence = dict(chosen.evidence)
     evidence.update(rule=select if components == "auto" else f"fixed ({select} suggests "
                     f"{chosen.n_components})", alpha=alpha, n_components=a, cv=str(cv))
-    return model, limits, ComponentChoice.from_dict(evidence)
+    sigma = cv_result.rmsecv[a - 1] / np.sqrt(1.0 + (a + 1) / n)  # as in pls_detail
+    studentized = (cv_result.errors[a - 1] * np.sqrt(1.0 - model.leverage(Z))[:, None]
+                   / np.where(sigma > 0, sigma, 1.0))
+    return model, limits, ComponentChoice.from_dict(evidence), studentized
 
 
 def _q_limit(model: PLSRegressor, Z: np.ndarray, q_cv: np.ndarray, alpha: float,
@@ -170,15 +179,16 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
     check_ceiling(spectra, pre.used_mask, ceiling)
     Z = pre.transform(spectra.values)
     targets = [C] if mode == "pls2" else [C[:, [k]] for k in range(C.shape[1])]
-    models, limits, evidence = [], [], []
+    models, limits, evidence, studentized = [], [], [], []
     for i, Y in enumerate(targets):
-        model, lim, ev = fit_pls_with_limits(
+        model, lim, ev, z = fit_pls_with_limits(
             Z, Y, components=components, max_components=max_components, cv=cv, groups=groups,
             select=select, alpha=alpha, scale=scale, limit_alpha=limit_alpha, q_limit=q_limit,
             leverage_factor=leverage_factor)
         models.append(model)
         limits.append(lim)
         evidence.append(ev)
+        studentized.append(z)
         step(progress, i + 1, len(targets), "cross-validating PLS")
     settings = {"mode": mode, "components": components, "max_components": max_components,
                 "cv": str(cv), "select": select, "alpha": alpha, "scale": scale,
@@ -193,6 +203,7 @@ def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
         settings=settings, path_length_cm=spectra.path_length_cm, ceiling=ceiling,
         limits=Limits(float(leverage_factor), tuple(limits)),
         selection=Selection(mode, tuple(evidence)),
-        provenance=provenance_record(provenance, len(C)),
+        provenance=provenance_record(provenance, len(C)) | outlier_record(
+            np.hstack(studentized), np.ones(C.shape[1]), spectra.sample_ids, table.analytes),
     )
     return with_merit(cal, spectra.values, C, blank_arrays(cal, blanks), Z)

@@ -96,10 +96,11 @@ def _signal(cal: Calibration, Z: np.ndarray | None, C: np.ndarray | None,
 def _rmsecv(cal: Calibration, Z: np.ndarray, C: np.ndarray, cv: Any) -> np.ndarray | None:
     if cal.selection is not None:  # recorded at build time with the component choice
         return cal.kind.stored_rmsecv(cal.selection, C.shape[1])
-    loo = cal.estimators[0].loo_predictions() if cv is None else None
-    if loo is not None and loo.shape == C.shape:
+    fit_loo = cal.estimators[0].leave_one_out() if cv is None else None
+    if fit_loo is not None and fit_loo.concentrations.shape == C.shape:
         # Leave-one-out in closed form, computed once at fit (bandsolve.cls_loo): no refits.
         # A sample that alone carries an analyte cannot be left out: no RMSECV then.
+        loo = fit_loo.concentrations
         return np.sqrt(np.mean((loo - C) ** 2, axis=0)) if np.isfinite(loo).all() else None
     try:
         res = cross_validate_estimator(clone(cal.estimators[0]), Z, C,

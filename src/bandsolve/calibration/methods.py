@@ -185,6 +185,10 @@ class _PLS(CalibrationMethod):
             raise DataError("give the calibration spectra and concentrations the model was "
                             "built from")
         blank = np.zeros(Z.shape[1]) if blank is None else blank
+        # Pure spectra for SEL, estimated from all analytes at once by least squares on the
+        # centred mixtures (K̂ = (C_cᵀC_c)⁻¹C_cᵀZ_c): one analyte's XᵀY/YᵀY alone carries the
+        # spectra of analytes correlated with it in the design (a median −43 % SEL error).
+        pure = np.linalg.lstsq(C - C.mean(axis=0), Z - Z.mean(axis=0), rcond=None)[0]
         coef, h0 = [], []
         for est in estimators:
             b = est.regression_vectors()
@@ -193,7 +197,7 @@ class _PLS(CalibrationMethod):
         b_all = np.hstack(coef)
         parts = [inverse_figures(b_all[:, k], noise, h0=h0[k],
                                  sigma_y=float(np.sqrt(reference_variance[k])),
-                                 X_calibration=Z, y_calibration=C[:, k])
+                                 pure_spectra=pure[k])
                  for k in range(C.shape[1])]
         return dataclasses.replace(parts[0], **{
             f: np.concatenate([getattr(s, f) for s in parts])

@@ -435,7 +435,8 @@ class Calibration:
         t = np.where(d.dof > 0, t, np.nan)
         cols: dict[str, Any] = {"sample": list(spectra.sample_ids),
                                 "source": [spectra.source or ""] * n}
-        checks = [(d.residual_ratio > 1, "residual"), (d.t2_ratio > 1, "t2"),
+        checks = [(d.residual_ratio > 1, "residual"),
+                  (d.t2_ratio > 1, "t2"),
                   (d.leverage_ratio > 1, "leverage"), (over_ceiling, "ceiling")]
         missing_se = np.zeros(n, dtype=bool)
         for k, label in enumerate(self.analytes):
@@ -451,6 +452,7 @@ class Calibration:
                        (c < -margin, f"negative:{label}")]
             missing_se |= ~finite
         checks.append((missing_se, "no_se"))
+        checks.append((~np.isfinite(d.residual_ratio), "unchecked"))
         cols["residual_ratio"] = d.residual_ratio
         cols["t2_ratio"] = d.t2_ratio
         cols["leverage_ratio"] = d.leverage_ratio

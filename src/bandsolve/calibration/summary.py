@@ -97,6 +97,17 @@ def format_summary(description: dict[str, Any], limits: Limits, selection: Selec
         notes.append(f"Data: {prov['data_label']}")
     notes += [f"Trained on {f['role']} {f['name']} (SHA-256 {f['sha256']})"
               for f in prov.get("training_files") or []]
+    interval = d.get("interval") or {}
+    if interval.get("basis") == "validated":
+        notes.append(f"Intervals validated on {interval['n_validation']} independent samples: "
+                     "model error SD added to every SE: " + ", ".join(
+                         f"{a['label']} {t:.4g}" for a, t in zip(
+                             d["analytes"], interval["model_error_sd"], strict=True)))
+    else:
+        notes.append("Intervals: calibration only (no independent validation carried into "
+                     "the model; see bandsolve assess --out-model)")
+    notes += [f"Reference value disagrees with the spectrum at build: {o['sample']} "
+              f"({o['analyte']}, t = {o['t']:+.1f})" for o in prov.get("reference_outliers") or ()]
     if d.get("transfer"):
         notes.append(f"Transferred to another instrument by {d['transfer'].get('method')}")
     lines.append("Notes:")

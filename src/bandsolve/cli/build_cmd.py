@@ -25,6 +25,7 @@ from bandsolve.errors import BandsolveError
 from bandsolve.io import read_absorptivities, read_concentrations, read_spectra
 from bandsolve.preprocess import parse_window
 from bandsolve.progress import progress_bar
+from bandsolve.reference_outliers import ReferenceOutlier
 from bandsolve.spectra import SpectralSet
 
 EXAMPLES = """\
@@ -185,6 +186,8 @@ def run(args: argparse.Namespace) -> int:
     checksum = save_model(cal, args.out)
     if cal.selection is not None:
         eprint(cal.selection.curves(cal.analytes))
+    for found in cal.provenance.get("reference_outliers") or ():
+        eprint(f"bandsolve: warning: {ReferenceOutlier(**found).text()}")
     if cal.provenance.get("merit_note"):
         eprint(f"bandsolve: warning: {cal.provenance['merit_note']}")
     eprint(f"{cal.method.upper()} model for {len(cal.analytes)} analytes "

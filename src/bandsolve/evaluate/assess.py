@@ -26,6 +26,7 @@ from bandsolve.concentrations import ConcentrationTable, split_unit
 from bandsolve.errors import BandsolveWarning, DataError
 from bandsolve.flags import FLAG_COLUMN, split_flags
 from bandsolve.merit import RegressionStatistics, regression_statistics
+from bandsolve.reference_outliers import ReferenceOutlier, reference_outliers
 from bandsolve.spectra import SpectralSet
 
 __all__ = ["AnalyteAssessment", "Assessment", "SpectraFiles", "assess", "calibration_files",
@@ -151,6 +152,9 @@ class Assessment:
         ``<label> SE (calibration)``; then ``flags``.
     alpha : float
         Level of the confidence intervals and tests.
+    outliers : tuple of ReferenceOutlier
+        Test samples whose reference value disagrees with their spectrum (studentized error,
+        :mod:`bandsolve.reference_outliers`).
     calibration_files : tuple of str
         Given test files whose SHA-256 equals that of a file the model was built from (its
         ``provenance["training_files"]``); empty for an independent test set.
@@ -165,6 +169,7 @@ class Assessment:
     alpha: float
     calibration_files: tuple[str, ...] = ()
     interval_basis: str = "calibration only"
+    outliers: tuple[ReferenceOutlier, ...] = ()
 
     @property
     def independent(self) -> bool:
@@ -233,6 +238,7 @@ class Assessment:
         flagged = ", ".join(f"{k} {v}" for k, v in sorted(self.flag_counts.items()))
         lines.append(f"flagged results: {self.n_flagged} of {self.n_samples} "
                      f"({100 * self.fraction_flagged:.0f} %)" + (f": {flagged}" if flagged else ""))
+        lines += [f"reference outlier: {o.text()}" for o in self.outliers]
         lines.append(f"intervals: {self.interval_basis}")
         lines.append("conventions: RMSEP √(Σe²/n); bias test t = |bias|√n/SEP on n−1 df; SEP "
                      "bias-corrected (n−1); RPD = SD(reference)/SEP; line by OLS, joint F-test "
@@ -259,6 +265,7 @@ class Assessment:
                           "model_error_sd": a.model_error_sd}
                          for a in self.analytes],
             "interval_basis": self.interval_basis,
+            "reference_outliers": [o.to_dict() for o in self.outliers],
             "samples": self.samples.to_dict(orient="records"),
         }
 
@@ -340,9 +347,13 @@ def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
         for code in split_flags(text):
             counts[code] = counts.get(code, 0) + 1
     n_flagged = sum(1 for text in samples[FLAG_COLUMN] if split_flags(text))
-    result = Assessment(cal.method, tuple(results), n, n_flagged, counts,
-                        pd.DataFrame(samples), float(alpha), calibration_files(cal, files),
-                        cal.interval_basis)
+    frame = pd.DataFrame(samples)
+    outliers = reference_outliers(
+        np.column_stack([frame[f"{a} error"] for a in cal.analytes]),
+        np.column_stack([frame[f"{a} SE"] for a in cal.analytes]), frame["sample"].tolist(),
+        [split_unit(a)[0] for a in cal.analytes])
+    result = Assessment(cal.method, tuple(results), n, n_flagged, counts, frame, float(alpha),
+                        calibration_files(cal, files), cal.interval_basis, tuple(outliers))
     if not result.independent:
         warnings.warn(result.note, BandsolveWarning, stacklevel=2)
     return result

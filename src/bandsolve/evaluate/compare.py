@@ -40,8 +40,10 @@ from bandsolve.crossval import (
 from bandsolve.errors import DataError, ModelError
 from bandsolve.evaluate.evidence import (
     AbsorberEvidence,
+    Curvature,
     ResidualStructure,
     absorber_evidence,
+    curvature_evidence,
     holm,
     paired_pvalues,
     residual_structure,
@@ -51,7 +53,7 @@ from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.progress import ProgressCallback, step
 from bandsolve.spectra import SpectralSet
 
-__all__ = ["AbsorberEvidence", "Comparison", "MethodResult", "PairedComparison",
+__all__ = ["AbsorberEvidence", "Comparison", "Curvature", "MethodResult", "PairedComparison",
            "Recommendation", "ResidualStructure", "compare_methods", "holm", "paired_pvalues",
            "residual_structure"]
 
@@ -84,11 +86,15 @@ class PairedComparison:
 
 @dataclass(frozen=True)
 class Recommendation:
-    """The method to use for one analyte (or ``"all"``) and why, in plain words."""
+    """The method to use for one analyte (or ``"all"``) and why, in plain words.
+
+    ``evidence`` lists the absorber and curvature findings behind it (overall only).
+    """
 
     analyte: str
     method: str
     text: str
+    evidence: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -103,6 +109,8 @@ class Comparison:
         CLS, CLS with baseline terms (when asked for), PLS.
     tests : tuple of PairedComparison
     evidence : AbsorberEvidence
+    curvature : Curvature
+        Curvature test of the plain CLS cross-validated errors.
     recommendations : tuple of Recommendation
         One per analyte.
     overall : Recommendation
@@ -117,6 +125,7 @@ class Comparison:
     methods: tuple[MethodResult, ...]
     tests: tuple[PairedComparison, ...]
     evidence: AbsorberEvidence
+    curvature: Curvature
     recommendations: tuple[Recommendation, ...]
     overall: Recommendation
     cv: str
@@ -171,6 +180,8 @@ class Comparison:
                      f"alone gives about {100 * ev.structure.reference:.0f} % (p = "
                      f"{ev.structure.pvalue:.2g}; a small p means a shared unmodelled band); "
                      f"PLS needs {ev.pls_components} components for {ev.n_analytes} analytes")
+        lines.append("curvature check (CLS errors against concentration, quadratic term, "
+                     "Holm): p = " + ", ".join(f"{p:.2g}" for p in self.curvature.pvalues_holm))
         lines.append("recommendation:")
         lines += [f"  {r.analyte}: {r.text}" for r in self.recommendations]
         lines.append(f"  overall: {self.overall.text}")
@@ -189,8 +200,10 @@ class Comparison:
                         for m in self.methods],
             "tests": [asdict(t) for t in self.tests],
             "evidence": self.evidence.to_dict(),
-            "recommendations": [asdict(r) for r in self.recommendations],
-            "overall": asdict(self.overall),
+            "curvature": self.curvature.to_dict(),
+            "recommendations": [asdict(r) | {"evidence": list(r.evidence)}
+                                for r in self.recommendations],
+            "overall": asdict(self.overall) | {"evidence": list(self.overall.evidence)},
         }
 
 
@@ -237,18 +250,35 @@ def _recommend(label: str, names: list[str], sq: dict[str, np.ndarray],
     return Recommendation(label, best, text)
 
 
-def _overall(recs: list[Recommendation], names: list[str], sq: dict[str, np.ndarray],
-             evidence: AbsorberEvidence) -> Recommendation:
-    pls_for = [r.analyte for r in recs if r.method == PLS]
-    if pls_for:
-        text = (f"PLS: it is significantly better for {', '.join(pls_for)}"
-                + ("; " + "; ".join(evidence.findings) if evidence.found else ""))
-        return Recommendation("all", PLS, text)
-    # Pooled over analytes on each analyte's own scale (MSE relative to PLS).
-    best = min(names[:-1], key=lambda n: float(np.mean(sq[n].mean(axis=0)
-                                                       / sq[names[-1]].mean(axis=0))))
-    return Recommendation("all", best, f"{best}: PLS is not significantly better for any "
-                                       "analyte, and CLS needs only pure standards")
+def _overall(names: list[str], sq: dict[str, np.ndarray], tests: list[PairedComparison],
+             findings: tuple[str, ...], alpha: float) -> Recommendation:
+    """The overall verdict; it never names a CLS variant that a significant test found worse.
+
+    A CLS variant is admissible when no Holm-corrected test finds it worse than PLS for any
+    analyte. None admissible: PLS. When the absorber or curvature checks found something and
+    no admissible variant is significantly better than PLS for any analyte: PLS, since CLS
+    misses part of the signal. Otherwise the admissible variant with the smallest error pooled
+    over analytes (each relative to PLS), with the findings as a caution.
+    """
+    significant = [t for t in tests if t.pvalue_holm < alpha]
+    worse = {t.method for t in significant if t.statistic > 0}
+    better = {t.method for t in significant if t.statistic < 0}
+    admissible = [n for n in names[:-1] if n not in worse]
+    note = ("; " + "; ".join(findings)) if findings else ""
+    if not admissible:
+        lost = sorted({t.analyte for t in significant if t.statistic > 0})
+        return Recommendation("all", PLS, "PLS: every CLS variant is significantly worse for "
+                              f"at least one analyte ({', '.join(lost)}){note}", findings)
+    if findings and not better.intersection(admissible):
+        return Recommendation("all", PLS, "PLS: no CLS variant is significantly better, and "
+                              f"the CLS model misses part of the signal{note}", findings)
+    best = min(admissible, key=lambda n: float(np.mean(sq[n].mean(axis=0)
+                                                        / sq[names[-1]].mean(axis=0))))
+    text = (f"{best}: not significantly worse than PLS for any analyte, and CLS needs only "
+            "pure standards")
+    if findings:
+        text += f"; but{note[1:]} — check before relying on CLS"
+    return Recommendation("all", best, text, findings)
 
 
 def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
@@ -366,6 +396,7 @@ def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
         plain.calibration_residuals(Z, C), design,
         pls_cv.q_residuals[a - 1], a, C.shape[1], random_state)
     step(progress, total, total, "absorber evidence")
+    curvature = curvature_evidence(errors["CLS"], C + errors["CLS"], tuple(table.analytes))
     sq = {name: decide[name] ** 2 for name in names}
     recs = [_recommend(label, names, {nm: sq[nm][:, k] for nm in names},
                        [t for t in tests if t.analyte == label], evidence, alpha)
@@ -376,6 +407,7 @@ def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
         test_errors[name].mean(axis=0) if test_errors else None) for name in names)
     return Comparison(
         analytes=tuple(table.analytes), methods=methods, tests=tuple(tests), evidence=evidence,
-        recommendations=tuple(recs), overall=_overall(recs, names, sq, evidence),
+        curvature=curvature, recommendations=tuple(recs),
+        overall=_overall(names, sq, tests, evidence.findings + curvature.findings, alpha),
         cv=str(cv), n_calibration=n, n_test=len(next(iter(test_errors.values())))
         if test_errors else 0, alpha=float(alpha))

@@ -15,8 +15,8 @@ from bandsolve.crossval import randomization_test
 from bandsolve.diagnostics import q_limit_from_values
 from bandsolve.errors import DataError
 
-__all__ = ["AbsorberEvidence", "ResidualStructure", "absorber_evidence", "holm",
-           "paired_pvalues", "residual_structure"]
+__all__ = ["AbsorberEvidence", "Curvature", "ResidualStructure", "absorber_evidence",
+           "curvature_evidence", "holm", "paired_pvalues", "residual_structure"]
 
 #: Significance level of every absorber-evidence check.
 EVIDENCE_ALPHA = 0.01
@@ -255,3 +255,75 @@ def absorber_evidence(cls_residual_ss: np.ndarray, cls_terms: int, cls_residuals
         findings.append(f"PLS needs {pls_components} components for {n_analytes} analytes")
     return AbsorberEvidence(above / n, share_p, structure, int(pls_components), int(n_analytes),
                             tuple(findings))
+
+
+@dataclass(frozen=True)
+class Curvature:
+    """Test of a curved CLS response: cross-validated errors against predicted concentration.
+
+    Attributes
+    ----------
+    analytes : tuple of str
+    coefficient : ndarray, shape (m,)
+        Quadratic coefficient b₂ of ``e = b₀ + b₁ĉ + b₂ĉ²`` (1 / concentration unit).
+    pvalues, pvalues_holm : ndarray, shape (m,)
+        Two-sided t-test of ``b₂ = 0`` on ``n − 3`` df, and Holm-adjusted across analytes.
+    findings : tuple of str
+        Plain-language statements for the analytes with ``p_Holm < EVIDENCE_ALPHA``.
+    """
+
+    analytes: tuple[str, ...]
+    coefficient: np.ndarray
+    pvalues: np.ndarray
+    pvalues_holm: np.ndarray
+    findings: tuple[str, ...]
+
+    def to_dict(self) -> dict[str, object]:
+        """JSON-serialisable dictionary."""
+        return {"analytes": list(self.analytes),
+                "quadratic_coefficient": [float(v) for v in self.coefficient],
+                "pvalues": [float(v) for v in self.pvalues],
+                "pvalues_holm": [float(v) for v in self.pvalues_holm],
+                "alpha": EVIDENCE_ALPHA, "findings": list(self.findings)}
+
+
+def curvature_evidence(errors: np.ndarray, predicted: np.ndarray,
+                       analytes: tuple[str, ...]) -> Curvature:
+    """Lack-of-fit test for a non-linear response in the CLS cross-validated errors.
+
+    Under Beer's law CLS errors do not depend on the concentration; a response that bends
+    (``A = εc − βc²``: saturation, stray light, association) makes them a curved function of
+    it. Per analyte, ordinary least squares of the errors on ``[1, ĉ, ĉ²]`` and the t-test of
+    the quadratic coefficient (equivalently the extra-sum-of-squares F test of the added
+    term), Holm-corrected across analytes.
+
+    Parameters
+    ----------
+    errors, predicted : ndarray, shape (n, m)
+        Cross-validated errors ``ĉ − c`` and predictions ĉ (concentration units).
+    analytes : tuple of str
+
+    References
+    ----------
+    Draper, N. R. & Smith, H. (1998). Applied Regression Analysis, 3rd ed., Wiley (extra sum
+    of squares and lack of fit).
+    Holm, S. (1979). Scand. J. Stat. 6, 65-70.
+    """
+    e, c = np.asarray(errors, dtype=float), np.asarray(predicted, dtype=float)
+    n, m = e.shape
+    coef, pvals = np.full(m, np.nan), np.ones(m)
+    for k in range(m):
+        X = np.column_stack([np.ones(n), c[:, k], c[:, k] ** 2])
+        if n <= 3 or np.linalg.matrix_rank(X) < 3:
+            continue  # too few samples or levels to see a curve
+        beta, rss, *_ = np.linalg.lstsq(X, e[:, k], rcond=None)
+        s2 = float(rss[0]) / (n - 3) if rss.size else 0.0
+        se = np.sqrt(s2 * np.linalg.inv(X.T @ X)[2, 2])
+        coef[k] = beta[2]
+        if se > 0:
+            pvals[k] = float(2 * stats.t.sf(abs(beta[2]) / se, n - 3))
+    adjusted = holm(pvals)
+    findings = tuple(f"the CLS errors of {a} curve with its concentration (p = {p:.2g}): the "
+                     "response is not linear over the calibrated range"
+                     for a, p in zip(analytes, adjusted, strict=True) if p < EVIDENCE_ALPHA)
+    return Curvature(tuple(analytes), coef, pvals, adjusted, findings)

@@ -73,6 +73,12 @@ ABBREVIATIONS = (
 )
 
 
+#: How SEL of an inverse (PLS) model is obtained: an estimate, since the model holds no pure
+#: spectra (IUPAC SEL = SEN/‖s_k‖ needs them; Olivieri et al. 2006).
+SEL_ESTIMATE_NOTE = ("SEL (PLS): estimate, SEN/‖s_k‖ with the pure spectra s_k estimated by "
+                     "least squares from the calibration mixtures (all analytes at once)")
+
+
 @dataclass(frozen=True)
 class FiguresOfMerit:
     """Figures of merit of one calibration model, one row per analyte.
@@ -128,6 +134,8 @@ class FiguresOfMerit:
         origins = sorted({row.sigma_x_origin for row in self.analytes})
         lines.append(f"σx from: {', '.join(origins)}")
         lines += textwrap.wrap(ABBREVIATIONS, width)
+        if self.method == "inverse":
+            lines.append(SEL_ESTIMATE_NOTE)
         return "\n".join(lines)
 
     def to_dict(self) -> dict[str, object]:

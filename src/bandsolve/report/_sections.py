@@ -184,7 +184,12 @@ def model_section(cal: Calibration) -> str:
         ("components and rule", _component_rule(cal)),
         ("path length", f"{cal.path_length_cm:g} cm" if cal.path_length_cm else "not recorded"),
         ("photometric ceiling", f"{cal.ceiling:g} AU"),
+        ("prediction intervals rest on", cal.interval_basis),
     ]
+    if cal.interval is not None:
+        rows.append(("model error SD added (validation)", ", ".join(
+            f"{a}: {t:.3g}" for a, t in zip(cal.analytes, cal.interval.model_error_sd,
+                                              strict=True))))
     rows += [(f"setting: {k}", v) for k, v in cal.settings.items()]
     return f"<h3>Definition</h3>{kv_table(rows)}" + _limits_html(cal)
 
