@@ -135,7 +135,7 @@ class FiguresOfMerit:
         lines.append(f"σx from: {', '.join(origins)}")
         lines += textwrap.wrap(ABBREVIATIONS, width)
         if self.method == "inverse":
-            lines.append(SEL_ESTIMATE_NOTE)
+            lines += textwrap.wrap(SEL_ESTIMATE_NOTE, width)
         return "\n".join(lines)
 
     def to_dict(self) -> dict[str, object]:
