@@ -122,7 +122,7 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
     twice (1/0.7 too wide with pure standards). The residual test compares ``s²`` with what
     calibration predicts for this sample, ``s²_cal(1 + h_c)``: without that divisor, mixtures
     far from the standards' centre would be flagged for K̂'s error rather than for an
-    absorber (Haaland & Thomas 1988; METHODS §1). The leave-one-out ratios that set the
+    absorber (Haaland & Thomas 1988, Anal. Chem. 60, 1193). The leave-one-out ratios that set the
     limit use the same form, each with the leverage it has as a new sample.
 
     **Errors the white-noise SE cannot see.** Real spectra also carry errors that are
@@ -217,7 +217,8 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         noise_dof : int, optional
             Degrees of freedom behind ``noise_sd`` (``(r − 1)p`` for r replicate blanks). The
             ratio of two independent variance estimates is referred to
-            ``F_{1−α}(p − m − q, noise_dof)`` (white noise; METHODS §10); without it the noise
+            ``F_{1−α}(p − m − q, noise_dof)`` (white noise: the ratio of two
+            independent χ² variance estimates, common practice); without it the noise
             is taken as known and the reference is ``χ²_{p−m−q}/(p − m − q)``, the F limit as
             ``noise_dof → ∞``.
 
@@ -442,8 +443,8 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
 
         Under Beer's-law additivity every composition inside the calibrated ranges is
         interpolation, so the limit starts there rather than at ``3m′/n`` of the standards'
-        own design, which flags ordinary mixtures of pure standards (METHODS §1,
-        extrapolation for CLS from pure standards). The leverage is a convex quadratic, so
+        own design, which flags ordinary mixtures of pure standards (Hoaglin & Welsch 1978,
+        Am. Stat. 32, 17, for the 3m′/n rule). The leverage is a convex quadratic, so
         its maximum over the box lies at a corner; with more than
         :data:`_BOX_CORNERS_MAX` analytes the bound ``λ_max·max‖c̃‖²`` is used instead.
         """

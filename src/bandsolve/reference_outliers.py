@@ -15,7 +15,6 @@ Cook, R. D. & Weisberg, S. (1982). Residuals and Influence in Regression. Chapma
 (studentized cross-validated residuals).
 Rousseeuw, P. J. & Croux, C. (1993). Alternatives to the median absolute deviation. J. Am.
 Stat. Assoc. 88, 1273-1283 (1.4826 consistency factor).
-METHODS §10 (reference-value outliers).
 """
 
 from __future__ import annotations

@@ -102,8 +102,9 @@ def pls_detail(models: Sequence[PLSRegressor], limits: Sequence[EstimatorLimits]
     cross-validated residuals instead of MSEC: ``σ²_e = RMSECV²/(1 + (A + 1)/n)``, since
     RMSECV² estimates the prediction error of samples like the calibration ones, whose mean
     leverage is ``(A + 1)/n``. MSEC on ``n − A − 1`` pseudo-degrees of freedom shrinks as
-    components are added while the true error grows (METHODS §10: 45 % coverage for PLS1 with
-    one component too many); RMSECV rises with over-fitting, so the interval follows the
+    components are added while the true error grows (measured for this package: 45 % coverage
+    for PLS1 with one component too many; Faber & Bro 2002, Chemom. Intell. Lab. Syst. 61,
+    133, on the MSEC form); RMSECV rises with over-fitting, so the interval follows the
     real error on either side of the right count. Ratios of T², Q and leverage to their
     limits are the largest over the per-analyte models for PLS1. ``scans`` holds each
     model's scan products ``(H, ss)`` (:meth:`PLSRegressor.scan_parts`).
