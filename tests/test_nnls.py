@@ -1,0 +1,99 @@
+"""Batched non-negative least squares against scipy's per-sample solvers."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from scipy.optimize import lsq_linear, nnls
+
+from bandsolve.nnls import nnls_gram
+
+
+def _bands(p: int, k: int) -> np.ndarray:
+    axis = np.linspace(0.0, 1.0, p)
+    centres = np.linspace(0.2, 0.8, k)
+    return np.vstack([np.exp(-0.5 * ((axis - c) / 0.12) ** 2) for c in centres])
+
+
+def test_equals_scipy_nnls_on_ten_thousand_spectra():
+    rng = np.random.default_rng(20)
+    K = _bands(120, 4)
+    # Concentrations down to −0.3 put about a quarter of the coefficients at the bound.
+    X = rng.uniform(-0.3, 1.0, (10_000, 4)) @ K + 0.01 * rng.standard_normal((10_000, 120))
+    res = nnls_gram(K @ K.T, X @ K.T)
+    # Reference library: scipy.optimize.nnls (Lawson & Hanson 1974) on each spectrum.
+    ref = np.array([nnls(K.T, x)[0] for x in X])
+    np.testing.assert_allclose(res.coef, ref, rtol=0, atol=1e-10)
+    assert 0.1 < res.at_bound.mean() < 0.5  # the bound is really exercised
+    np.testing.assert_array_equal(res.at_bound, ref == 0.0)
+    # Theory: objective + ‖x‖² is the residual sum of squares ‖x − Kᵀc‖².
+    rss = ((X - res.coef @ K) ** 2).sum(axis=1)
+    np.testing.assert_allclose(res.objective + (X**2).sum(axis=1), rss, rtol=1e-9, atol=1e-12)
+
+
+@settings(max_examples=60, deadline=None)
+@given(k=st.integers(1, 6), p=st.integers(6, 40), n=st.integers(1, 30),
+       random_state=st.integers(0, 2**32 - 1))
+def test_identity_with_scipy_nnls_for_random_problems(k, p, n, random_state):
+    rng = np.random.default_rng(random_state)
+    K = rng.standard_normal((k, p)) + 2.0 * np.eye(k, p)  # full row rank
+    X = rng.standard_normal((n, p)) * rng.uniform(0.01, 100.0)
+    res = nnls_gram(K @ K.T, X @ K.T)
+    ref = np.array([nnls(K.T, x)[0] for x in X])
+    # Reference library: scipy.optimize.nnls; the minimizer is unique (G positive definite).
+    scale = max(1.0, np.abs(ref).max())
+    np.testing.assert_allclose(res.coef, ref, rtol=0, atol=1e-9 * scale * np.linalg.cond(K))
+    assert (res.coef >= 0).all()
+
+
+def test_free_coefficients_equal_scipy_bounded_least_squares():
+    rng = np.random.default_rng(21)
+    K = np.vstack([_bands(80, 3), np.ones(80), np.linspace(-1, 1, 80)])  # 3 analytes + baseline
+    C = np.column_stack([rng.uniform(-0.5, 1.0, (200, 3)), rng.normal(0, 0.2, (200, 2))])
+    X = C @ K + 0.01 * rng.standard_normal((200, 80))
+    constrained = np.array([True, True, True, False, False])
+    res = nnls_gram(K @ K.T, X @ K.T, constrained)
+    # Reference library: scipy.optimize.lsq_linear with bounds 0 ≤ c (analytes), free baseline.
+    lower = np.where(constrained, 0.0, -np.inf)
+    ref = np.array([lsq_linear(K.T, x, bounds=(lower, np.inf), tol=1e-14,
+                               method="bvls").x for x in X])
+    np.testing.assert_allclose(res.coef, ref, rtol=0, atol=1e-9)
+    assert (res.coef[:, 3:] < 0).any()  # baseline terms do go negative
+    assert not res.at_bound[:, 3:].any()
+
+
+def test_karush_kuhn_tucker_conditions():
+    rng = np.random.default_rng(22)
+    K = _bands(60, 5)
+    X = rng.uniform(-0.5, 1.0, (500, 5)) @ K + 0.02 * rng.standard_normal((500, 60))
+    G, H = K @ K.T, X @ K.T
+    res = nnls_gram(G, H)
+    grad = H - res.coef @ G
+    # Theory (Lawson & Hanson 1974, ch. 23): at the optimum the gradient vanishes on free
+    # coefficients and points into the bound (≤ 0) on coefficients held at zero.
+    tol = 1e-9 * np.abs(H).max()
+    assert np.abs(grad[~res.at_bound]).max() < tol
+    assert grad[res.at_bound].max(initial=-1.0) < tol
+    assert (res.coef[res.at_bound] == 0.0).all()
+
+
+def test_no_constraint_is_ordinary_least_squares():
+    rng = np.random.default_rng(23)
+    K = _bands(50, 3)
+    X = rng.normal(size=(40, 50))
+    res = nnls_gram(K @ K.T, X @ K.T, constrained=np.zeros(3, bool))
+    # Reference library: numpy.linalg.lstsq.
+    ref = np.linalg.lstsq(K.T, X.T, rcond=None)[0].T
+    np.testing.assert_allclose(res.coef, ref, rtol=0, atol=1e-10)
+    assert not res.at_bound.any()
+
+
+@pytest.mark.parametrize("n", [1, 3])
+def test_all_zero_when_every_band_points_away(n):
+    K = np.eye(3, 8)
+    X = -np.ones((n, 8))
+    res = nnls_gram(K @ K.T, X @ K.T)
+    # Theory: every gradient component is negative at c = 0, so 0 is optimal.
+    assert (res.coef == 0.0).all() and res.at_bound.all()
