@@ -154,3 +154,26 @@ def test_q_limit_false_alarm_rate(n, p, method, low, high):
         res = cal.predict(SpectralSet(axis, At, [f"u{i}" for i in range(1500)]))
         rates.append((res["residual_ratio"] > 1).mean())
     assert low <= np.mean(rates) <= high, rates
+
+
+@pytest.mark.parametrize("scale", [False, True])
+def test_pls1_models_share_one_pass_over_the_spectra(calibration, scale):
+    from bandsolve._scan import scan
+
+    axis, K, rng, _ = calibration
+    C, A = _simulate(rng, K, 40)
+    ids = [f"cal{i}" for i in range(40)]
+    cal = build_pls(SpectralSet(axis, A, ids), ConcentrationTable(ids, LABELS, C),
+                    cv="blinds:8", mode="pls1", scale=scale, components=3)
+    _, X = _simulate(rng, K, 50)
+    detail = cal.detail(X)
+    # Theory: each PLS1 model's prediction is its own regression on the same spectra
+    # (reference: the estimators' own predict, which reads the spectra model by model).
+    expected = np.column_stack([est.predict(X) for est in cal.estimators])
+    np.testing.assert_allclose(detail.concentrations, expected, rtol=0, atol=1e-10)
+    # Identity: the products and weighted sums of squares are the same computed in one pass
+    # (one weight column per column scale) or model by model.
+    scans = [scan(X, est.scan_parts())[:2] for est in cal.estimators]
+    apart = cal.kind.detail(cal.estimators, cal.limits.models, scans)
+    np.testing.assert_allclose(detail.residual_ratio, apart.residual_ratio, rtol=1e-9)
+    np.testing.assert_allclose(detail.t2_ratio, apart.t2_ratio, rtol=1e-9)

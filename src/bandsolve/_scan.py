@@ -29,8 +29,9 @@ class ScanParts:
     ----------
     matrix : ndarray, shape (p, c)
         Columns whose products with each spectrum the estimator needs.
-    weights : ndarray, shape (p,)
-        Weights of the sum of squares ``Σ w_j x_j²``.
+    weights : ndarray, shape (p,) or (p, w)
+        Weights of the sum of squares ``Σ w_j x_j²``; one column per set of weights when
+        several models with different column scales share the scan.
     """
 
     matrix: np.ndarray
@@ -41,14 +42,14 @@ def embed(parts: ScanParts, mask: np.ndarray) -> ScanParts:
     """The same parts on the full input grid: zero rows and weights outside ``mask``."""
     matrix = np.zeros((mask.size, parts.matrix.shape[1]))
     matrix[mask] = parts.matrix
-    weights = np.zeros(mask.size)
+    weights = np.zeros((mask.size, *parts.weights.shape[1:]))
     weights[mask] = parts.weights
     return ScanParts(matrix, weights)
 
 
 def scan(X: np.ndarray, parts: ScanParts, mask: np.ndarray | None = None
          ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Products ``X @ matrix`` (n, c), weighted sums of squares (n,) and maxima (n,).
+    """Products ``X @ matrix`` (n, c), weighted sums of squares (n,) or (n, w), maxima (n,).
 
     Parameters
     ----------
@@ -60,14 +61,17 @@ def scan(X: np.ndarray, parts: ScanParts, mask: np.ndarray | None = None
     """
     n = X.shape[0]
     H = np.empty((n, parts.matrix.shape[1]))
-    ss = np.empty(n)
+    ss = np.empty((n, *parts.weights.shape[1:]))
     top = np.empty(n)
-    unit = bool(np.all(parts.weights == 1.0))
+    several = parts.weights.ndim == 2
+    unit = not several and bool(np.all(parts.weights == 1.0))
     where = None if mask is None or mask.all() else mask
     for i in range(0, n, SLICE_ROWS):
         block = X[i:i + SLICE_ROWS]
         np.matmul(block, parts.matrix, out=H[i:i + SLICE_ROWS])
-        if unit:
+        if several:
+            np.matmul(np.square(block), parts.weights, out=ss[i:i + SLICE_ROWS])
+        elif unit:
             ss[i:i + SLICE_ROWS] = np.einsum("ij,ij->i", block, block)
         else:
             ss[i:i + SLICE_ROWS] = np.einsum("ij,ij,j->i", block, block, parts.weights)

@@ -18,7 +18,6 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 from bandsolve._pls_kernels import gram_pls, kernel_pls
 from bandsolve._scan import ScanParts
 from bandsolve._state import RecordedState
-from bandsolve.diagnostics import hotelling_t2
 from bandsolve.diagnostics import leverage as score_leverage
 from bandsolve.errors import ModelError
 
@@ -333,9 +332,22 @@ class PLSRegressor(RecordedState, TransformerMixin, RegressorMixin, BaseEstimato
             "ij,ij->i", scores @ (P.T @ P), scores)
         pred = self.y_mean_ + scores @ self.y_loadings_[:, :a].T
         n_cal = self.x_scores_.shape[0]
-        t2 = hotelling_t2(scores, self.x_scores_)
+        t2 = np.einsum("ij,ij->i", scores @ self._t2_metric(), scores)
         lev = 1.0 / n_cal + t2 / (n_cal - 1)
         return PLSPrediction(pred, scores, np.maximum(q, 0.0), t2, lev, n_cal - a - 1)
+
+    def _t2_metric(self) -> np.ndarray:
+        """``S_T⁻¹`` of the calibration scores (``S_T = TᵀT/(n − 1)``), computed once per fit.
+
+        Prediction evaluates spectra in blocks; the inverse is the same for every block.  It is
+        kept with the scores it belongs to, so a refit (new scores) recomputes it.
+        """
+        cached = self.__dict__.get("_t2_cache")
+        if cached is None or cached[0] is not self.x_scores_:
+            t_cal = self.x_scores_
+            cached = (t_cal, np.linalg.inv(t_cal.T @ t_cal / (t_cal.shape[0] - 1)))
+            self._t2_cache = cached
+        return cached[1]
 
     # ------------------------------------------------------------------ what the model holds
     @property

@@ -85,10 +85,11 @@ class SpectralSet:
 
     def __post_init__(self) -> None:
         src = self.source
-        # Copies: freezing below must never make the caller's own arrays read-only.
+        # Freezing below must never make the caller's own arrays read-only: the axis is copied,
+        # the values (up to gigabytes) become a read-only view of a float64 array, not a copy.
         try:
             axis = np.array(self.axis, dtype=float)
-            values = np.array(self.values, dtype=float)
+            values = np.asarray(self.values, dtype=float).view()
         except (TypeError, ValueError) as exc:
             raise DataError(f"{where(src)}axis and values must be numbers ({exc})") from None
         ids = tuple(str(s) for s in self.sample_ids)

@@ -55,14 +55,24 @@ EVAL_ROWS = 8192
 
 def _scan_all(data: np.ndarray, parts: list[ScanParts], mask: np.ndarray | None
               ) -> tuple[list[tuple[np.ndarray, np.ndarray]], np.ndarray]:
-    """Scan products per estimator, in one pass when their weights agree (PLS1 unscaled)."""
-    if all(np.array_equal(p.weights, parts[0].weights) for p in parts):
-        H, ss, top = scan(data, ScanParts(np.hstack([p.matrix for p in parts]),
-                                          parts[0].weights), mask)
-        bounds = np.cumsum([0] + [p.matrix.shape[1] for p in parts])
-        return [(H[:, a:b], ss) for a, b in itertools.pairwise(bounds)], top
-    results = [scan(data, p, mask) for p in parts]
-    return [(H, ss) for H, ss, _ in results], results[0][2]
+    """Scan products of every estimator in one pass over the spectra (PLS1: one per analyte).
+
+    Estimators with different column scales need different weighted sums of squares: each
+    distinct set of weights becomes one column of the scan's weight matrix.
+    """
+    weights: list[np.ndarray] = []
+    which = []
+    for p in parts:
+        found = next((k for k, w in enumerate(weights) if np.array_equal(w, p.weights)), None)
+        if found is None:
+            weights.append(p.weights)
+            found = len(weights) - 1
+        which.append(found)
+    shared = weights[0] if len(weights) == 1 else np.column_stack(weights)
+    H, ss, top = scan(data, ScanParts(np.hstack([p.matrix for p in parts]), shared), mask)
+    bounds = np.cumsum([0] + [p.matrix.shape[1] for p in parts])
+    return [(H[:, a:b], ss if ss.ndim == 1 else ss[:, k])
+            for (a, b), k in zip(itertools.pairwise(bounds), which, strict=True)], top
 
 
 def _flag_column(n: int, checks: list[tuple[np.ndarray, str]]) -> np.ndarray:
