@@ -2,18 +2,20 @@
 
 Run on demand (not collected by pytest)::
 
-    /work/venv/bin/python tests/benchmarks/bench_predict.py [--n 1000000] [--p 300]
+    /work/main/.venv/bin/python tests/benchmarks/bench_predict.py [--n 1000000] [--p 300]
 
-Simulates n spectra × p wavelengths (float64) of 4 overlapping bands, builds a CLS and a PLS2
-model on 60 mixtures, then times on the same array
+Simulates n spectra × p wavelengths (float64) of 4 overlapping bands, builds CLS, PLS2 and PLS1
+models on 60 mixtures, then times on the same array
 
 * floor: one pass over X (``X @ ones``), the memory-read floor;
 * detail: ``Calibration.detail`` on all n spectra — concentrations, standard errors, the
   residual/Q, T² and leverage ratios and the ceiling check: the full numerical prediction;
 * table: ``Calibration.predict``, the same plus the results table (intervals, flag texts,
   sample ids) as a pandas DataFrame;
+* building the ``SpectralSet`` from the array (checks; no copy of the values);
 
-and reports each as a multiple of the floor (target ≤ 6×). Then it streams wide CSV files of
+for CLS, PLS2 and PLS1 with four models (unscaled and autoscaled: one pass for all models),
+reporting each as a multiple of the floor (target ≤ 6×). Then it streams wide CSV files of
 20 000 and 80 000 spectra through ``predict_inputs`` and reports the tracemalloc peak of each:
 the peak must not grow with the number of spectra.
 """
@@ -48,8 +50,11 @@ def models(axis, pure, rng):
     ids = [f"cal{i}" for i in range(60)]
     spectra = SpectralSet(axis=axis, values=X, sample_ids=ids)
     table = ConcentrationTable(ids, ("a", "b", "c", "d"), C)
+    pls = {"components": 4, "cv": "contiguous:5", "max_components": 6}
     return {"CLS": build_cls(spectra, table),
-            "PLS2": build_pls(spectra, table, components=4, cv="contiguous:5", max_components=6)}
+            "PLS2": build_pls(spectra, table, **pls),
+            "PLS1 x4": build_pls(spectra, table, mode="pls1", **pls),
+            "PLS1 x4 scaled": build_pls(spectra, table, mode="pls1", scale=True, **pls)}
 
 
 def best_of(func, repeats: int = 3) -> float:
@@ -97,7 +102,10 @@ def main() -> None:
     print(f"{args.n} spectra x {args.p} points, float64 ({X.nbytes / 2**30:.2f} GiB); "
           f"EVAL_ROWS = {EVAL_ROWS}")
     print(f"floor (X @ ones): {floor * 1e3:.0f} ms")
-    spectra = SpectralSet(axis=axis, values=X, sample_ids=[f"s{i}" for i in range(args.n)])
+    ids = [f"s{i}" for i in range(args.n)]
+    t_set = best_of(lambda: SpectralSet(axis=axis, values=X, sample_ids=ids))
+    spectra = SpectralSet(axis=axis, values=X, sample_ids=ids)
+    print(f"SpectralSet from the array: {t_set:.2f} s = {t_set / floor:.1f}x floor")
     for name, model in fitted.items():
         t_detail = best_of(lambda model=model: model.detail(X), repeats=3)
         t_table = best_of(lambda model=model: model.predict(spectra), repeats=2)
