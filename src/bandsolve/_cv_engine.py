@@ -190,6 +190,18 @@ class TallEngine:
                             f.x_loadings, f.y_loadings, f.tau, n_train)
 
 
+def _without(gram: np.ndarray, rows: slice | np.ndarray, train: np.ndarray) -> np.ndarray:
+    """The training block ``gram[train][:, train]``: four block copies when the held-out
+    rows are consecutive, else two row/column gathers (both far cheaper than ``np.ix_``)."""
+    if not isinstance(rows, slice):
+        return gram.take(train, axis=0).take(train, axis=1)
+    a, b = rows.start, rows.stop
+    out = np.empty((train.size, train.size))
+    out[:a, :a], out[:a, a:] = gram[:a, :a], gram[:a, b:]
+    out[a:, :a], out[a:, a:] = gram[b:, :a], gram[b:, b:]
+    return out
+
+
 class WideEngine:
     """Gram-matrix PLS per fold (for p > n).
 
@@ -225,10 +237,11 @@ class WideEngine:
         else:
             x_val = xv - x_mean
             # Double-centre the stored Gram blocks with the training mean only.
-            k_rows = self.gram[train]
-            gram_tt = k_rows[:, train]
+            held = rows_of(test)
+            gram_tt = _without(self.gram, held, train)
             k_mean = gram_tt.mean(axis=0)
-            gram_vt = k_rows[:, test].T - k_mean
+            gram_vt = self.gram[held].take(train, axis=1)
+            gram_vt -= k_mean
             gram_vt -= gram_vt.mean(axis=1, keepdims=True)
             gram_tt -= k_mean[:, None]
             gram_tt -= k_mean - k_mean.mean()

@@ -16,8 +16,10 @@ blocks, the same partition for every library) of 1..20 components with
   predictions of every component count;
 
 both with one BLAS thread, run alternately, best of ``--repeat`` runs each.  It prints the
-times, the ratio peer/bandsolve (> 1: bandsolve is faster), the tracemalloc peak of each call
-(memory allocated beyond the input data, measured in separate untimed runs) and the largest
+CPU times (process time: the steady measure on a shared machine, as both run on one thread)
+and wall times, the ratios peer/bandsolve (> 1: bandsolve is faster), the tracemalloc peak
+of each call (memory allocated beyond the input data, measured in separate untimed runs) and
+the largest
 prediction difference of each against scikit-learn ``PLSRegression`` (fitted once per fold
 with 20 components and NIPALS run to convergence, ``tol=0``, 500 iterations; smaller counts by
 truncation).  scikit-learn is skipped above ``--sklearn-max`` samples for PLS1 and above
@@ -100,19 +102,20 @@ def run_sklearn(X, Y):
 
 
 def timed(func):
-    start = time.perf_counter()
+    """Result, wall time and CPU time of one call."""
+    wall, cpu = time.perf_counter(), time.process_time()
     out = func()
-    return out, time.perf_counter() - start
+    return out, np.array([time.perf_counter() - wall, time.process_time() - cpu])
 
 
 def alternate(funcs, repeat: int):
-    """First result and best wall time of each function, run alternately ``repeat`` times."""
-    outs, best = [None] * len(funcs), [np.inf] * len(funcs)
+    """First result and best (wall, CPU) times of each function, run alternately."""
+    outs, best = [None] * len(funcs), [np.full(2, np.inf) for _ in funcs]
     for _ in range(repeat):
         for i, func in enumerate(funcs):
             out, t = timed(func)
             outs[i] = out if outs[i] is None else outs[i]
-            best[i] = min(best[i], t)
+            best[i] = np.minimum(best[i], t)
             del out
     return outs, best
 
@@ -143,8 +146,10 @@ def compare(X: np.ndarray, Y: np.ndarray, args: argparse.Namespace) -> str:
             warnings.simplefilter("ignore")  # "did not converge" at tol=0
             ref = run_sklearn(X, Y)
         d_ours, d_peer = np.abs(ours - ref).max(), np.abs(peer - ref).max()
-    return (f"{n:>8} {p:>5} {m:>2} {t_ours:>11.4f} {t_peer:>8.4f} {t_peer / t_ours:>7.2f} "
-            f"{mem_ours:>7.0f} {mem_peer:>8.0f} {d_ours:>8.1e} {d_peer:>8.1e}")
+    return (f"{n:>8} {p:>5} {m:>2} {t_ours[1]:>8.4f} {t_peer[1]:>8.4f} "
+            f"{t_peer[1] / t_ours[1]:>7.2f} {t_ours[0]:>8.4f} {t_peer[0]:>8.4f} "
+            f"{t_peer[0] / t_ours[0]:>7.2f} {mem_ours:>7.0f} {mem_peer:>8.0f} "
+            f"{d_ours:>8.1e} {d_peer:>8.1e}")
 
 
 def main() -> None:
@@ -160,8 +165,11 @@ def main() -> None:
     rng = np.random.default_rng(12345)
     print(f"{N_FOLDS}-fold CV (blocks), components 1..{A_MAX}, one BLAS thread, "
           f"best of {args.repeat} alternating runs")
-    print(f"{'n':>8} {'p':>5} {'m':>2} {'bandsolve s':>11} {'peer s':>8} {'peer/bs':>7} "
-          f"{'bs MB':>7} {'peer MB':>8} {'bs-skl':>8} {'peer-skl':>8}")
+    print("times in s: CPU (process time; steady on a shared machine) and wall; ratio "
+          "peer/bandsolve > 1 means bandsolve is faster")
+    print(f"{'n':>8} {'p':>5} {'m':>2} {'bs cpu':>8} {'peer cpu':>8} {'ratio':>7} "
+          f"{'bs wall':>8} {'peer wall':>8} {'ratio':>7} {'bs MB':>7} {'peer MB':>8} "
+          f"{'bs-skl':>8} {'peer-skl':>8}")
     with threadpool_limits(limits=1):
         for n, p in SHAPES:
             if args.max_n is None or n <= args.max_n:
