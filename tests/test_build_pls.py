@@ -164,7 +164,7 @@ def test_pls1_models_share_one_pass_over_the_spectra(calibration, scale):
     C, A = _simulate(rng, K, 40)
     ids = [f"cal{i}" for i in range(40)]
     cal = build_pls(SpectralSet(axis, A, ids), ConcentrationTable(ids, LABELS, C),
-                    cv="blinds:8", mode="pls1", scale=scale, components=3)
+                    cv="interleaved:8", mode="pls1", scale=scale, components=3)
     _, X = _simulate(rng, K, 50)
     detail = cal.detail(X)
     # Theory: each PLS1 model's prediction is its own regression on the same spectra
