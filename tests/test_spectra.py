@@ -274,3 +274,32 @@ def test_percent_transmittance_above_105_is_refused():
         s.to_absorbance()
     ok = _set(np.full((2, AXIS.size), 104.0), quantity="percent_transmittance").to_absorbance()
     np.testing.assert_allclose(ok.values, -np.log10(1.04))  # A = -log10(T) (IUPAC Gold Book)
+
+
+def test_huge_finite_values_are_not_refused():
+    # Row sums overflow to infinity, but every value is finite (IEEE 754): no error.
+    s = SpectralSet(AXIS, np.full((2, AXIS.size), 1e308), ["a", "b"])
+    assert np.isfinite(s.values).all()
+
+
+@settings(max_examples=50, deadline=None)
+@given(st.integers(1, 6), st.integers(0, AXIS.size - 1), st.sampled_from([np.nan, np.inf, -np.inf]),
+       st.booleans())
+def test_non_finite_found_wherever_it_is(n, column, bad, plant):
+    values = np.ones((n, AXIS.size))
+    if plant:
+        values[n - 1, column] = bad
+    ids = [f"s{i}" for i in range(n)]
+    # Theory (IEEE 754): NaN and ±inf are the non-finite values; each one must be refused.
+    if plant:
+        with pytest.raises(DataError, match=f"value {bad} at "):
+            SpectralSet(AXIS, values, ids)
+    else:
+        SpectralSet(AXIS, values, ids)
+
+
+def test_repeated_and_empty_ids_still_named():
+    with pytest.raises(DataError, match=r"sample id 'b' appears twice \(spectra 2 and 3\)"):
+        SpectralSet(AXIS, np.ones((3, AXIS.size)), ["a", "b", "b"])
+    with pytest.raises(DataError, match="spectrum 2 has an empty sample id"):
+        SpectralSet(AXIS, np.ones((2, AXIS.size)), ["a", "  "])
