@@ -23,6 +23,7 @@ from bandsolve.cls_loo import LeaveOneOut, cls_leave_one_out
 from bandsolve.diagnostics import cls_calibration_variance, f_limit_from_values
 from bandsolve.errors import ModelError
 from bandsolve.merit.signal import cls_net_analyte_signal
+from bandsolve.nnls import nnls_gram
 
 __all__ = ["BASELINE_TERMS", "CLSRegressor", "CLSPrediction"]
 
@@ -89,6 +90,16 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         Axis of the columns of X, for the baseline polynomial.
     alpha : float, default 0.01
         Significance level of the spectral-residual limit.
+    non_negative : bool, default False
+        Constrain predicted concentrations to be ≥ 0 (for analytes that can only be present
+        or absent), solved by the batched active-set method of :mod:`bandsolve.nnls`; baseline
+        terms stay free.  A concentration held at the bound is reported as exactly 0 with no
+        standard error (NaN, so no interval and the ``no_se`` flag): a bound estimate has no
+        symmetric interval.  Concentrations above 0 keep the standard error of the
+        unconstrained model, which is conservative when another analyte is at the bound
+        (leaving a column out of K only narrows the others' variances).  K itself and the
+        residual limit come from the unconstrained calibration; a constrained fit leaves a
+        residual at least as large, so the residual flag can only fire more often.
 
     Attributes
     ----------
@@ -160,11 +171,12 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
     }
 
     def __init__(self, fit_intercept: bool = False, baseline: str = "none",
-                 wavelengths=None, alpha: float = 0.01):
+                 wavelengths=None, alpha: float = 0.01, non_negative: bool = False):
         self.fit_intercept = fit_intercept
         self.baseline = baseline
         self.wavelengths = wavelengths
         self.alpha = alpha
+        self.non_negative = non_negative
 
     # ------------------------------------------------------------------ fitting
     def fit(self, X, y):
@@ -203,7 +215,8 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
     @classmethod
     def from_pure_spectra(cls, pure_spectra, *, baseline: str = "none", wavelengths=None,
                           alpha: float = 0.01, noise_sd: float | None = None,
-                          noise_dof: int | None = None) -> CLSRegressor:
+                          noise_dof: int | None = None,
+                          non_negative: bool = False) -> CLSRegressor:
         """A fitted model from known pure spectra (absorptivity × path length), no standards.
 
         Parameters
@@ -226,7 +239,8 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         ----------
         Olivieri, A. C. et al. Pure Appl. Chem. 2006, 78, 633–661 (σx from replicate blanks).
         """
-        model = cls(fit_intercept=False, baseline=baseline, wavelengths=wavelengths, alpha=alpha)
+        model = cls(fit_intercept=False, baseline=baseline, wavelengths=wavelengths, alpha=alpha,
+                    non_negative=non_negative)
         K = np.asarray(pure_spectra, dtype=float)
         if K.ndim != 2 or not np.all(np.isfinite(K)):
             raise ModelError("pure spectra must be a finite 2-D array (components × points)")
@@ -361,9 +375,9 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         m, q = self.pure_spectra_.shape[0], self.n_baseline_terms_
         K, bg = self.augmented_spectra_, self.background_
         h = H[:, :-1] - bg @ K.T
-        coef = h @ self.aug_gram_inv_
+        coef, fit_ss, at_bound = self._solve(h)
         total = ss - 2.0 * H[:, -1] + bg @ bg
-        rss = np.maximum(total - np.einsum("ij,ij->i", coef, h), 0.0)
+        rss = np.maximum(total + fit_ss, 0.0)
         n = len(H)
         dof = K.shape[1] - m - q
         conc = coef[:, :m]
@@ -382,7 +396,23 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
             ratio = np.full(n, np.nan)
             note = (f"no standard error: {K.shape[1]} wavelengths for {m + q} unknowns leave no "
                     "residual degrees of freedom; use more wavelengths")
+        if at_bound is not None and at_bound.any():
+            se[at_bound] = np.nan
+            note = "; ".join(filter(None, [note, (
+                f"non-negative CLS: {int(at_bound.sum())} concentration(s) held at the zero "
+                "bound, reported as 0 with no standard error (a bound estimate has no "
+                "symmetric interval)")]))
         return CLSPrediction(conc, se, dof, rss, ratio, lev, coef[:, m:], note)
+
+    def _solve(self, h: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+        """Coefficients for ``h = K(x − bg)``, the term t with ``rᵀr = ‖x − bg‖² + t``, and
+        (non-negative models) which concentrations are held at zero."""
+        if not self.non_negative:
+            coef = h @ self.aug_gram_inv_
+            return coef, -np.einsum("ij,ij->i", coef, h), None
+        K, m = self.augmented_spectra_, self.pure_spectra_.shape[0]
+        fit = nnls_gram(K @ K.T, h, np.arange(K.shape[0]) < m)
+        return fit.coef, fit.objective, fit.at_bound[:, :m]
 
     # ------------------------------------------------------------------ what the model holds
     @property

@@ -54,7 +54,8 @@ FLAG_CODES: dict[str, str] = {
         "which no real sample can have: check the blank, baseline or model."
     ),
     "no_se": (
-        "No standard error could be estimated (no residual degrees of freedom); the "
+        "No standard error could be estimated (no residual degrees of freedom, or a "
+        "non-negative CLS concentration held at zero, which has no symmetric interval); the "
         "notes column says why."
     ),
     "unchecked": (

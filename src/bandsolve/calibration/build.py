@@ -127,7 +127,8 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
               blank: SpectralSet | None = None, blanks: SpectralSet | None = None,
               alpha: float = 0.01, ceiling: float = DEFAULT_CEILING_AU,
               leverage_factor: float = CLS_LEVERAGE_FACTOR,
-              provenance: dict[str, Any] | None = None) -> Calibration:
+              provenance: dict[str, Any] | None = None,
+              non_negative: bool = False) -> Calibration:
     """Build a CLS calibration from standards or calibration mixtures.
 
     Parameters
@@ -158,6 +159,8 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
         ranges (1: any composition with every analyte inside its range passes).
     provenance : dict, optional
         Extra provenance (training-file fingerprints, labels) stored with the model.
+    non_negative : bool
+        Predict concentrations constrained to be ≥ 0 (see :class:`~bandsolve.cls.CLSRegressor`).
     """
     if not (np.isfinite(leverage_factor) and leverage_factor > 0):
         raise ModelError(f"leverage factor must be a positive number, not {leverage_factor}")
@@ -166,9 +169,10 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
     check_ceiling(spectra, pre.used_mask, ceiling)
     Z = pre.transform(spectra.values)
     est = CLSRegressor(fit_intercept=intercept, baseline=baseline, wavelengths=pre.used_axis,
-                       alpha=alpha).fit(Z, C)
+                       alpha=alpha, non_negative=non_negative).fit(Z, C)
     settings = {"intercept": intercept, "baseline": baseline, "window": window,
-                "alpha": alpha, "blank_subtracted": blank is not None}
+                "alpha": alpha, "blank_subtracted": blank is not None,
+                "non_negative": non_negative}
     calibrated_range = np.column_stack([C.min(axis=0), C.max(axis=0)])
     scale, scale_dof = est.error_scale()
     limits = Limits(float(leverage_factor), (EstimatorLimits(

@@ -75,6 +75,9 @@ def register(sub: argparse._SubParsersAction) -> None:
                    default="none", help="baseline terms solved at prediction (default none)")
     c.add_argument("--alpha", type=float, default=0.01,
                    help="significance level of the residual limit (default 0.01)")
+    c.add_argument("--non-negative", action="store_true",
+                   help="predict concentrations constrained to be zero or more (analytes "
+                        "that are present or absent); one held at zero has no standard error")
     s = p.add_argument_group("PLS options")
     s.add_argument("--components", default="auto", help="auto (by cross-validation) or N")
     s.add_argument("--max-components", type=int, default=15, metavar="N",
@@ -110,7 +113,8 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 #: Options that belong to one method only; giving them to another is a mistake to report.
 METHOD_OPTIONS = {
-    "cls": ("intercept", "baseline", "alpha", "absorptivity", "validated_range"),
+    "cls": ("intercept", "baseline", "alpha", "absorptivity", "validated_range",
+            "non_negative"),
     "pls": ("components", "max_components", "cv", "select", "select_alpha", "mode", "scale",
             "savgol_window", "derivative", "offset", "q_limit"),
 }
@@ -131,7 +135,8 @@ def check_options(args: argparse.Namespace) -> None:
 
 def _build_cls(args: argparse.Namespace, spectra: SpectralSet, **common: Any) -> Calibration:
     return build_cls(spectra, read_concentrations(args.concentrations), intercept=args.intercept,
-                     baseline=args.baseline, alpha=args.alpha, **common)
+                     baseline=args.baseline, alpha=args.alpha,
+                     non_negative=args.non_negative, **common)
 
 
 def _build_pls(args: argparse.Namespace, spectra: SpectralSet, **common: Any) -> Calibration:
