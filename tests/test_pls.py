@@ -190,3 +190,26 @@ def test_real_aromatics_standards_match_sklearn():
 def test_sklearn_estimator_contract(estimator, check):
     # Reference: scikit-learn's estimator checks (no checks need to be skipped).
     check(estimator)
+
+
+def test_batched_gram_kernel_equals_the_primal_kernel_per_problem():
+    from bandsolve._pls_kernels import gram_pls_batch, kernel_pls
+
+    rng = np.random.default_rng(41)
+    # Three problems fitted together; the second has rank 3, so it stops early while the
+    # others go on (as a fold whose training data run out of rank).
+    Xs = [rng.normal(size=(12, 8)) @ rng.normal(size=(8, 20)),
+          rng.normal(size=(12, 3)) @ rng.normal(size=(3, 20)),
+          rng.normal(size=(12, 20))]
+    Xs = [x - x.mean(axis=0) for x in Xs]
+    Ys = [rng.normal(size=(12, 2)) for _ in Xs]
+    Ys = [y - y.mean(axis=0) for y in Ys]
+    fits = gram_pls_batch(np.stack([x @ x.T for x in Xs]), np.stack(Ys), 6)
+    for x, y, fit in zip(Xs, Ys, fits, strict=True):
+        ref = kernel_pls(x.T @ x, x.T @ y, 6)
+        # Theory (Lindgren et al. 1993; Dayal & MacGregor 1997): the Gram and the XᵀX kernel
+        # forms fit the same model, so the regression coefficients R Qᵀ agree.
+        assert fit.tau.size == ref.tau.size
+        np.testing.assert_allclose(x.T @ fit.rotation_coords @ fit.y_loadings.T,
+                                   ref.rotations @ ref.y_loadings.T, rtol=1e-7, atol=1e-9)
+    assert fits[1].tau.size == 3

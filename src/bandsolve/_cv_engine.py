@@ -34,7 +34,12 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from bandsolve._pls_kernels import gram_pls, kernel_pls, residual_ss_path
+from bandsolve._pls_kernels import (
+    GramFactors,
+    gram_pls_batch,
+    kernel_pls,
+    residual_ss_path,
+)
 from bandsolve.errors import ModelError
 
 
@@ -112,6 +117,10 @@ def rows_of(test: np.ndarray) -> slice | np.ndarray:
 
 #: Rows of X centred at a time while the cross-products are accumulated (≈ 4 MB blocks).
 _BLOCK_BYTES = 1 << 22
+#: Gram blocks fitted together by the wide engine, at most (bytes): small folds are batched
+#: to share the per-call overhead, but the batch must stay in cache, as each component reads
+#: all of it again (one fold of 450 samples already fills this).
+_BATCH_BYTES = 1 << 21
 #: Largest number of stored per-fold XᵀX elements (K·p², 128 MB) for the one-pass products.
 _MAX_FOLD_PRODUCTS = 1 << 24
 
@@ -203,7 +212,7 @@ def _without(gram: np.ndarray, rows: slice | np.ndarray, train: np.ndarray) -> n
 
 
 class WideEngine:
-    """Gram-matrix PLS per fold (for p > n).
+    """Gram-matrix PLS of all folds together (for p > n).
 
     Parameters
     ----------
@@ -220,9 +229,29 @@ class WideEngine:
         self.sx = self.x0.sum(axis=0)
         self.gram = None if scale else self.x0 @ self.x0.T
 
-    def fold(self, k: int, train: np.ndarray, test: np.ndarray,
-             n_settings: int) -> FoldOutput:
-        """Results for held-out ``test`` (fold ``k``) of the model fitted to ``train``."""
+    def fold_all(self, splits: list[tuple[np.ndarray, np.ndarray]],
+                 n_settings: int) -> list[FoldOutput]:
+        """Results of every fold, their PLS fits run together (:func:`gram_pls_batch`).
+
+        Folds with the same number of training samples form one batch, up to
+        :data:`_BATCH_BYTES` of Gram blocks at a time.
+        """
+        sizes = np.array([train.size for train, _ in splits])
+        outputs: list = [None] * len(splits)
+        for size in np.unique(sizes):
+            same = np.flatnonzero(sizes == size)
+            step = max(1, _BATCH_BYTES // (8 * int(size) ** 2))
+            for start in range(0, same.size, step):
+                group = same[start:start + step]
+                inputs = [self._inputs(*splits[i]) for i in group]
+                fits = gram_pls_batch(_stacked([f.gram_tt for f in inputs]),
+                                      _stacked([f.yc for f in inputs]), n_settings)
+                for i, f, fit in zip(group, inputs, fits, strict=True):
+                    outputs[i] = self._finish(f, fit)
+        return outputs
+
+    def _inputs(self, train: np.ndarray, test: np.ndarray) -> _WideFold:
+        """What one fold's fit needs: centred Gram blocks, held-out spectra, centred y."""
         n_train = train.size
         xv = self.x0[rows_of(test)]
         x_mean = (self.sx - xv.sum(axis=0)) / n_train
@@ -249,12 +278,33 @@ class WideEngine:
             x_rows, rows = self.x0, train
         yt = self.y0[train]
         y_mean = yt.mean(axis=0)
-        f = gram_pls(gram_tt, yt - y_mean, n_settings)
+        return _WideFold(x_val, gram_tt, gram_vt, yt - y_mean, self.y_offset + y_mean, x_rows,
+                         rows)
+
+    def _finish(self, f: _WideFold, fit: GramFactors) -> FoldOutput:
         # Pᵀ = TᵀX_t/τ; training scores sum to zero, so any centring of the rows gives the same P.
-        coef = np.zeros((f.tau.size, x_rows.shape[0]))
-        coef[:, rows] = f.scores.T / f.tau[:, None]
-        return _fold_output(x_val, self.y_offset + y_mean, gram_vt @ f.rotation_coords,
-                            (coef @ x_rows).T, f.y_loadings, f.tau, n_train)
+        coef = np.zeros((fit.tau.size, f.x_rows.shape[0]))
+        coef[:, f.rows] = fit.scores.T / fit.tau[:, None]
+        return _fold_output(f.x_val, f.y_mean, f.gram_vt @ fit.rotation_coords,
+                            (coef @ f.x_rows).T, fit.y_loadings, fit.tau, f.yc.shape[0])
+
+
+def _stacked(arrays: list[np.ndarray]) -> np.ndarray:
+    """``np.stack`` without a copy for a single array."""
+    return arrays[0][None] if len(arrays) == 1 else np.stack(arrays)
+
+
+@dataclass
+class _WideFold:
+    """One fold's inputs in the Gram form (see :meth:`WideEngine._inputs`)."""
+
+    x_val: np.ndarray
+    gram_tt: np.ndarray
+    gram_vt: np.ndarray
+    yc: np.ndarray
+    y_mean: np.ndarray
+    x_rows: np.ndarray
+    rows: slice | np.ndarray
 
 
 @dataclass

@@ -164,45 +164,7 @@ def gram_pls(gram: np.ndarray, yc: np.ndarray, n_components: int) -> GramFactors
        data sets with many variables and fewer objects. Part 1. *Journal of Chemometrics*, 8(2),
        111-125.
     """
-    # Deliberately parallel to kernel_pls above (see the note there): wide-data form.
-    n, m = yc.shape
-    total_ss = float(np.trace(gram))
-    y_def = yc.copy()
-    # Row a of each array is component a (contiguous rows; fewer temporaries per component).
-    weight_coords = np.zeros((n_components, n))
-    rotation_coords = np.zeros((n_components, n))
-    scores = np.zeros((n_components, n))
-    # scores / τ, so that Pᵀw = Tᵀ X_c w / τ is one product.
-    scaled_scores = np.zeros((n_components, n))
-    y_loadings = np.zeros((n_components, m))
-    tau = np.zeros(n_components)
-    first_sv2 = None
-    a = 0
-    for a in range(n_components):
-        gram_y = gram @ y_def
-        v, sv2 = _dominant_direction(y_def.T @ gram_y)
-        first_sv2 = sv2 if first_sv2 is None else first_sv2
-        if sv2 <= RANK_TOL**2 * first_sv2 or sv2 <= 0.0:
-            break
-        # w = X_cᵀg with ‖w‖ = 1; gram_g = X_c w.  ‖X_cᵀ y_def v‖² = vᵀ(y_defᵀ K y_def)v = sv2.
-        v /= np.sqrt(sv2)
-        g = y_def @ v
-        gram_g = gram_y @ v
-        # r = w − R Pᵀw in sample coordinates.
-        proj = scaled_scores[:a] @ gram_g
-        t = gram_g - proj @ scores[:a]
-        tau_a = float(t @ t)
-        if tau_a <= RANK_TOL * total_ss:
-            break
-        q_a = (t @ y_def) / tau_a
-        y_def -= np.outer(t, q_a)
-        weight_coords[a], rotation_coords[a] = g, g - proj @ rotation_coords[:a]
-        scores[a], y_loadings[a], tau[a] = t, q_a, tau_a
-        scaled_scores[a] = t / tau_a
-    else:
-        a = n_components
-    return GramFactors(weight_coords[:a].T, rotation_coords[:a].T, scores[:a].T,
-                       y_loadings[:a].T, tau[:a])
+    return gram_pls_batch(gram[None], yc[None], n_components)[0]
 
 
 def residual_ss_path(xs: np.ndarray, scores: np.ndarray, x_loadings: np.ndarray) -> np.ndarray:
@@ -244,3 +206,72 @@ def residual_ss_path(xs: np.ndarray, scores: np.ndarray, x_loadings: np.ndarray)
     q_res[-1] = np.einsum("ij,ij->i", resid, resid)
     q_res[:-1] = q_res[-1] + dropped.T
     return q_res
+
+
+def gram_pls_batch(grams: np.ndarray, ycs: np.ndarray, n_components: int) -> list[GramFactors]:
+    """:func:`gram_pls` for B problems of the same size at once (the folds of a CV).
+
+    Every step runs on all B problems in one numpy call, so the per-component overhead of
+    many small calls is paid once rather than B times (it dominates for small folds).  A
+    problem whose rank is exhausted stops contributing (its later components are dropped),
+    exactly as :func:`gram_pls` stops.
+
+    Parameters
+    ----------
+    grams : ndarray of shape (B, n, n)
+        Centred Gram matrices.
+    ycs : ndarray of shape (B, n, m)
+        Centred concentrations.
+    n_components : int
+        Largest number of components wanted.
+
+    Returns
+    -------
+    list of GramFactors
+        One per problem, as :func:`gram_pls` would return it.
+    """
+    n_batch, n, m = ycs.shape
+    total_ss = np.trace(grams, axis1=1, axis2=2)
+    y_def = ycs.copy()
+    weight_coords = np.zeros((n_batch, n_components, n))
+    rotation_coords = np.zeros((n_batch, n_components, n))
+    scores = np.zeros((n_batch, n_components, n))
+    scaled_scores = np.zeros((n_batch, n_components, n))
+    y_loadings = np.zeros((n_batch, n_components, m))
+    tau = np.zeros((n_batch, n_components))
+    n_used = np.full(n_batch, n_components)
+    live = np.ones(n_batch, dtype=bool)
+    first_sv2 = None
+    for a in range(n_components):
+        gram_y = grams @ y_def
+        cross = np.swapaxes(y_def, 1, 2) @ gram_y
+        if m == 1:
+            v, sv2 = np.ones((n_batch, 1)), cross[:, 0, 0].copy()
+        else:
+            eigval, eigvec = np.linalg.eigh(cross)
+            v, sv2 = eigvec[:, :, -1], eigval[:, -1].copy()
+        first_sv2 = sv2.copy() if first_sv2 is None else first_sv2
+        stop = live & ((sv2 <= RANK_TOL**2 * first_sv2) | (sv2 <= 0.0))
+        sv2[~live | stop] = 1.0  # placeholders: these problems take no more components
+        v /= np.sqrt(sv2)[:, None]
+        g = (y_def @ v[:, :, None])[:, :, 0]
+        gram_g = (gram_y @ v[:, :, None])[:, :, 0]
+        # Stacked products (matmul) rather than einsum: one BLAS call per problem.
+        proj = scaled_scores[:, :a] @ gram_g[:, :, None]  # (B, a, 1)
+        t = gram_g - (np.swapaxes(proj, 1, 2) @ scores[:, :a])[:, 0]
+        tau_a = (t[:, None, :] @ t[:, :, None])[:, 0, 0]
+        stop |= live & (tau_a <= RANK_TOL * total_ss)
+        n_used[stop] = a
+        live &= ~stop
+        if not live.any():
+            break
+        t[~live] = 0.0
+        tau_a[~live] = 1.0
+        q_a = (t[:, None, :] @ y_def)[:, 0] / tau_a[:, None]
+        y_def -= t[:, :, None] * q_a[:, None, :]
+        weight_coords[:, a] = g
+        rotation_coords[:, a] = g - (np.swapaxes(proj, 1, 2) @ rotation_coords[:, :a])[:, 0]
+        scores[:, a], y_loadings[:, a], tau[:, a] = t, q_a, tau_a
+        scaled_scores[:, a] = t / tau_a[:, None]
+    return [GramFactors(weight_coords[b, :k].T, rotation_coords[b, :k].T, scores[b, :k].T,
+                        y_loadings[b, :k].T, tau[b, :k]) for b, k in enumerate(n_used)]

@@ -358,10 +358,10 @@ def cross_validate_pls(X, Y, max_components: int, cv="interleaved:10", scale: bo
         if tall:
             once = (_held_out_counts(splits, n) == 1).all()
             engine = TallEngine(X, Y2, scale, [test for _, test in splits] if once else None)
-        else:
-            engine = WideEngine(X, Y2, scale)
-        return _run(splits, Y2, settings, "n_components",
-                    lambda k, train, test: engine.fold(k, train, test, len(settings)))
+            return _run(splits, Y2, settings, "n_components",
+                        lambda k, train, test: engine.fold(k, train, test, len(settings)))
+        outputs = WideEngine(X, Y2, scale).fold_all(splits, len(settings))
+        return _run(splits, Y2, settings, "n_components", lambda k, train, test: outputs[k])
 
 
 def cross_validate_estimator(estimator, X, Y, cv="interleaved:10", groups=None) -> CVResult:
