@@ -150,53 +150,68 @@ class TallEngine:
         self.X = X
         n, p = X.shape
         self.sy = self.y0.sum(axis=0)
+        self.step = max(1, _BLOCK_BYTES // (8 * p))  # rows of X handled at a time
         if tests is not None and len(tests) * p * p <= _MAX_FOLD_PRODUCTS:
             self.fold_products = [self._products(rows_of(test)) for test in tests]
-            self.sxx = sum(f[0] for f in self.fold_products)
-            self.sxy = sum(f[1] for f in self.fold_products)
-            self.sx = sum(f[2] for f in self.fold_products)
-            return
-        self.fold_products = None
-        self.sxx, self.sxy, self.sx = np.zeros((p, p)), np.zeros((p, Y.shape[1])), np.zeros(p)
-        step = max(1, _BLOCK_BYTES // (8 * p))
-        for start in range(0, n, step):
-            sxx, sxy, sx, _ = self._products(slice(start, start + step))
-            self.sxx += sxx
-            self.sxy += sxy
-            self.sx += sx
+            self.sxx, self.sxy, self.sx, _ = (sum(parts) for parts in
+                                              zip(*self.fold_products, strict=True))
+        else:
+            self.fold_products = None
+            self.sxx, self.sxy, self.sx, _ = self._products(slice(0, n))
+
+    def _blocks(self, rows: slice | np.ndarray):
+        """Row blocks (≈ 4 MB of X each) of ``rows``, as slices or index arrays."""
+        if isinstance(rows, slice):
+            return [slice(i, min(i + self.step, rows.stop))
+                    for i in range(rows.start, rows.stop, self.step)]
+        return [rows[i:i + self.step] for i in range(0, rows.size, self.step)]
 
     def _products(self, rows) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """``X_rᵀX_r``, ``X_rᵀY_r``, ``X_rᵀ1`` and ``Y_rᵀ1`` of rows ``rows`` (centred data)."""
-        xr = np.subtract(self.X[rows], self.x_mean)
-        yr = self.y0[rows]
-        return xr.T @ xr, xr.T @ yr, xr.sum(axis=0), yr.sum(axis=0)
+        p, m = self.X.shape[1], self.y0.shape[1]
+        sxx, sxy, sx = np.zeros((p, p)), np.zeros((p, m)), np.zeros(p)
+        for block in self._blocks(rows):
+            xb = np.subtract(self.X[block], self.x_mean)
+            sxx += xb.T @ xb
+            sxy += xb.T @ self.y0[block]
+            sx += xb.sum(axis=0)
+        return sxx, sxy, sx, self.y0[rows].sum(axis=0)
 
     def fold(self, k: int, train: np.ndarray, test: np.ndarray,
              n_settings: int) -> FoldOutput:
-        """Results for held-out ``test`` (fold ``k``) of the model fitted to ``train``."""
+        """Results for held-out ``test`` (fold ``k``) of the model fitted to ``train``.
+
+        The held-out rows are centred and evaluated in blocks, so no temporary grows with
+        the size of the fold.
+        """
         rows = rows_of(test)
-        xv = np.subtract(self.X[rows], self.x_mean)
         n_train = train.size
-        if self.fold_products is None:
-            yv = self.y0[rows]
-            sxx_v, sxy_v, sx_v, sy_v = xv.T @ xv, xv.T @ yv, xv.sum(axis=0), yv.sum(axis=0)
-        else:
-            sxx_v, sxy_v, sx_v, sy_v = self.fold_products[k]
+        sxx_v, sxy_v, sx_v, sy_v = (self._products(rows) if self.fold_products is None
+                                    else self.fold_products[k])
         sx_t = self.sx - sx_v
         sy_t = self.sy - sy_v
         cxx = self.sxx - sxx_v
         cxx -= np.outer(sx_t, sx_t / n_train)
         cxy = self.sxy - sxy_v
         cxy -= np.outer(sx_t, sy_t / n_train)
-        xv -= sx_t / n_train  # the held-out rows, centred with the training mean
-        if self.scale:
-            sd = _fold_scale(np.diag(cxx).copy(), n_train)
+        sd = _fold_scale(np.diag(cxx).copy(), n_train) if self.scale else None
+        if sd is not None:
             cxx /= np.outer(sd, sd)
             cxy /= sd[:, None]
-            xv /= sd
         f = kernel_pls(cxx, cxy, n_settings)
-        return _fold_output(xv, self.y_offset + sy_t / n_train, xv @ f.rotations,
-                            f.x_loadings, f.y_loadings, f.tau, n_train)
+        parts = []
+        for block in self._blocks(rows):
+            # The held-out rows, centred with the training mean (and scaled).
+            xb = np.subtract(self.X[block], self.x_mean)
+            xb -= sx_t / n_train
+            if sd is not None:
+                xb /= sd
+            parts.append(_fold_output(xb, self.y_offset + sy_t / n_train, xb @ f.rotations,
+                                      f.x_loadings, f.y_loadings, f.tau, n_train))
+        if len(parts) == 1:
+            return parts[0]
+        return FoldOutput(*(np.concatenate([getattr(part, name) for part in parts], axis=1)
+                            for name in ("predictions", "q_residuals", "hotelling_t2")))
 
 
 def _without(gram: np.ndarray, rows: slice | np.ndarray, train: np.ndarray) -> np.ndarray:
