@@ -99,9 +99,9 @@ def kernel_pls(cxx: np.ndarray, cxy: np.ndarray, n_components: int) -> KernelFac
     .. [1] Dayal, B. S., & MacGregor, J. F. (1997). Improved PLS algorithms. *Journal of
        Chemometrics*, 11(1), 73-85.
     """
-    # Deliberately parallel to gram_pls below: the same component loop on the p × p (tall
-    # data) instead of the n × n (wide data) cross products; merging them would put a branch
-    # in every step of the hot loop.
+    # Deliberately parallel to gram_pls_batch below: the same component loop on the p × p
+    # (tall data) instead of the n × n (wide data) cross products; merging them would put a
+    # branch in every step of the hot loop.
     p, m = cxy.shape
     total_ss = float(np.trace(cxx))
     s = cxy.copy()
