@@ -85,11 +85,15 @@ class SpectralSet:
 
     def __post_init__(self) -> None:
         src = self.source
-        # Freezing below must never make the caller's own arrays read-only: the axis is copied,
-        # the values (up to gigabytes) become a read-only view of a float64 array, not a copy.
+        # Freezing below must never make the caller's own arrays read-only, and the set must not
+        # change when the caller changes them: both are copied.  A float64 array that is already
+        # read-only (as a reader hands over what it parsed) cannot change, so its values (up to
+        # gigabytes) are taken as a view instead of a second copy.
         try:
             axis = np.array(self.axis, dtype=float)
-            values = np.asarray(self.values, dtype=float).view()
+            given = self.values
+            values = (given.view() if isinstance(given, np.ndarray) and given.dtype == np.float64
+                      and not given.flags.writeable else np.array(given, dtype=float))
         except (TypeError, ValueError) as exc:
             raise DataError(f"{where(src)}axis and values must be numbers ({exc})") from None
         ids = tuple(str(s) for s in self.sample_ids)
