@@ -170,13 +170,13 @@ def test_fail_on_flags_exit_code_and_stdin(model_file, capsys, monkeypatch):
     flagged = SpectralSet(axis=AXIS, values=alien, sample_ids=s.sample_ids)
     buf = io.StringIO()
     flagged.to_frame().to_csv(buf)
-    monkeypatch.setattr("sys.stdin", io.StringIO(buf.getvalue()))
+    monkeypatch.setattr("sys.stdin", io.TextIOWrapper(io.BytesIO(buf.getvalue().encode())))
     # Exit code 4 with --fail-on-flags when a result is flagged (documented in bandsolve.cli).
     assert main(["predict", str(model_file), "-", "--fail-on-flags"]) == 4
     out = pd.read_csv(io.StringIO(capsys.readouterr().out), keep_default_na=False)
     assert list(out["flag_codes"] != "") == [False, True, False]
     assert "residual" in out["flag_codes"][1]
-    monkeypatch.setattr("sys.stdin", io.StringIO(buf.getvalue()))
+    monkeypatch.setattr("sys.stdin", io.TextIOWrapper(io.BytesIO(buf.getvalue().encode())))
     assert main(["predict", str(model_file), "-"]) == 0
 
 

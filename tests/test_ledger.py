@@ -185,6 +185,7 @@ def test_ledger_command_lists_and_exports(setup, tmp_path, capsys):
 def test_killed_prediction_leaves_no_partial_output_and_no_partial_run(setup, tmp_path):
     d, _ = setup
     ledger, out = tmp_path / "l.sqlite", tmp_path / "out" / "r.csv"
+    out.parent.mkdir()
     assert main(["predict", str(d / "m.bsm"), str(d / "a.csv"), "--ledger", str(ledger)]) == 0
     before = ledger.read_bytes()
     big = tmp_path / "big.csv"

@@ -26,7 +26,7 @@ from bandsolve.batch.predict import DEFAULT_CHUNK, iter_array_sets, predict_sets
 from bandsolve.calibration.model import Calibration
 from bandsolve.errors import DataError, FormatError
 from bandsolve.flags import FLAG_COLUMN, flag_bits
-from bandsolve.io.atomic import atomic_write
+from bandsolve.io.atomic import atomic_write, output_folder
 
 __all__ = ["CubeResult", "predict_cube"]
 
@@ -78,7 +78,8 @@ def predict_cube(model: Calibration, path: str | os.PathLike[str],
     path : path-like
         ``.npy`` cube of absorbance, shape (rows, cols, p).
     out_folder : path-like
-        Folder for the map files (created when absent); each file is written atomically.
+        Folder for the map files (created when absent, in an existing parent folder); each
+        file is written atomically.
     axis : array_like of shape (p,), optional
         Spectral axis of the cube in the model's unit.
     chunk_size, n_jobs
@@ -112,7 +113,7 @@ def predict_cube(model: Calibration, path: str | os.PathLike[str],
         bits[start:stop] = flag_bits(frame[FLAG_COLUMN].tolist())
         notes = str(frame["notes"].iloc[0])
         start = stop
-    out = Path(out_folder)
+    out = output_folder(out_folder, option="--out")
     maps = {}
     for k, label in enumerate(model.analytes):
         maps[label] = out / f"{path.stem}.{_safe(label)}.npy"

@@ -1,62 +1,88 @@
-"""Results ledger: an append-only SQLite record of every prediction run.
+"""Results ledger: an append-only, hash-chained SQLite record of every prediction run.
 
 A run records when it ran, the model (checksum and training-file fingerprints), the bandsolve
-version, user labels (batch, operator), every input with its SHA-256 and outcome, and every
-result row (key columns plus the whole row as JSON).
+version, user labels (batch, operator), every input with the SHA-256 of the bytes actually
+read and its outcome, the results file (path and SHA-256), and every result row (key columns
+plus the whole row as JSON). Runs and rows are chained by hash, and sealed with the lab key
+when one is given (:mod:`bandsolve.batch.ledger_chain` says what that does and does not
+guarantee).
 
-While a batch runs, rows go to a private temporary database; when the batch ends they are
-copied into the ledger in **one transaction**. A run killed at any moment therefore leaves
-the ledger exactly as it was, and a long run never blocks other writers. Concurrent runs
-from several processes wait for each other (SQLite busy timeout, then retries). Triggers
-refuse UPDATE and DELETE: the ledger offers no way to change a recorded result; a
-re-prediction is a new run.
+Before a batch is computed, the ledger is checked: a damaged file, a broken chain, a ledger
+that cannot be written (read-only file or folder) or a nearly full disk are refused, so no
+work is lost to a record that cannot be made. While the batch runs, rows go to a private
+spool; when it ends they are copied into the ledger in **one transaction**, so a run killed
+at any moment leaves the ledger as it was. Concurrent runs wait for each other (SQLite busy
+timeout, then retries). Triggers refuse UPDATE and DELETE; a re-prediction is a new run.
 
 Tables: ``runs(run_id, started, finished, model_path, model_checksum, training_files,
-bandsolve_version, batch, operator, n_inputs, n_failed, n_results)``,
+bandsolve_version, batch, operator, n_inputs, n_failed, n_results, results_path,
+results_sha256, key_id, prev_hash, run_hash, seal)``,
 ``inputs(run_id, position, path, sha256, status, reason)``,
-``results(run_id, row, input_position, sample, source, flags, concentrations, record)``.
+``results(run_id, row, input_position, sample, source, flags, concentrations, record,
+row_hash)``.
 """
 
 from __future__ import annotations
 
-import contextlib
-import hashlib
 import json
 import math
 import os
 import shutil
 import sqlite3
-import tempfile
 import time
-from collections.abc import Iterator
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
-from urllib.parse import quote
 
 import pandas as pd
 
 from bandsolve import __version__
+from bandsolve.batch.ledger_chain import (
+    GENESIS,
+    RUN_FIELDS,
+    SEAL_PURPOSE,
+    LedgerCheck,
+    chain_head,
+    row_hash,
+    run_hash,
+    verify_ledger,
+)
+from bandsolve.batch.ledger_read import (
+    BUSY_SECONDS,
+    TABLES,
+    check_ledger,
+    list_checks,
+    list_inputs,
+    list_results,
+    list_runs,
+)
 from bandsolve.calibration.model import Calibration
+from bandsolve.calibration.modelfile import sha256_file
 from bandsolve.errors import DataError
 from bandsolve.flags import FLAG_COLUMN
+from bandsolve.io.atomic import SpoolFolder, remove_stray_spools
+from bandsolve.io.fingerprint import Fingerprints, record_bytes
+from bandsolve.labkey import LabKey
 
-__all__ = ["LedgerRecorder", "check_ledger", "list_runs", "list_inputs", "list_results",
-           "list_checks"]
+__all__ = ["LedgerRecorder", "LedgerCheck", "check_ledger", "verify_ledger", "list_runs",
+           "list_inputs", "list_results", "list_checks", "check_free_space", "prepare_ledger",
+           "MIN_FREE_BYTES"]
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS runs (
     run_id INTEGER PRIMARY KEY AUTOINCREMENT, started TEXT NOT NULL, finished TEXT NOT NULL,
     model_path TEXT, model_checksum TEXT NOT NULL, training_files TEXT NOT NULL,
     bandsolve_version TEXT NOT NULL, batch TEXT, operator TEXT,
-    n_inputs INTEGER NOT NULL, n_failed INTEGER NOT NULL, n_results INTEGER NOT NULL);
+    n_inputs INTEGER NOT NULL, n_failed INTEGER NOT NULL, n_results INTEGER NOT NULL,
+    results_path TEXT, results_sha256 TEXT, key_id TEXT, prev_hash TEXT, run_hash TEXT,
+    seal TEXT);
 CREATE TABLE IF NOT EXISTS inputs (
     run_id INTEGER NOT NULL REFERENCES runs(run_id), position INTEGER NOT NULL,
     path TEXT NOT NULL, sha256 TEXT, status TEXT NOT NULL, reason TEXT);
 CREATE TABLE IF NOT EXISTS results (
     run_id INTEGER NOT NULL REFERENCES runs(run_id), row INTEGER NOT NULL,
     input_position INTEGER NOT NULL, sample TEXT NOT NULL, source TEXT, flags TEXT NOT NULL,
-    concentrations TEXT NOT NULL, record TEXT NOT NULL);
+    concentrations TEXT NOT NULL, record TEXT NOT NULL, row_hash TEXT);
 CREATE INDEX IF NOT EXISTS results_run ON results(run_id);
 CREATE INDEX IF NOT EXISTS results_sample ON results(sample);
 CREATE TABLE IF NOT EXISTS check_results (
@@ -65,10 +91,13 @@ CREATE TABLE IF NOT EXISTS check_results (
     se REAL, recovery_pct REAL, low REAL, high REAL, passed INTEGER NOT NULL, basis TEXT);
 CREATE INDEX IF NOT EXISTS check_results_run ON check_results(run_id)
 """
-#: Tables every ledger has; ``check_results`` (check standards, see
-#: :mod:`bandsolve.batch.checks`) is added to older ledgers by their next run.
-_TABLES = ("runs", "inputs", "results")
-_APPEND_ONLY = (*_TABLES, "check_results")
+#: Tables every ledger has (:data:`bandsolve.batch.ledger_read.TABLES`); ``check_results``
+#: (check standards, see :mod:`bandsolve.batch.checks`) is added to older ledgers by their next
+#: run.
+_APPEND_ONLY = (*TABLES, "check_results")
+# Columns added since the first ledgers (older files gain them on their next run).
+_ADDED = {"runs": ("results_path", "results_sha256", "key_id", "prev_hash", "run_hash", "seal"),
+          "results": ("row_hash",)}
 # One statement each: executescript() would commit the open transaction first.
 _SETUP = [s.strip() for s in _SCHEMA.split(";")] + [
     f"CREATE TRIGGER IF NOT EXISTS {t}_no_{op} BEFORE {op.upper()} ON {t} BEGIN "
@@ -78,8 +107,10 @@ _SPOOL = """
 CREATE TABLE results (row INTEGER PRIMARY KEY, input_position INTEGER, sample TEXT,
     source TEXT, flags TEXT, concentrations TEXT, record TEXT);
 """
-_BUSY_SECONDS = 10.0
 _RETRIES = 4
+_INSERT_ROWS = 5000
+#: A ledger (or results) folder with less free space than this is refused before any work.
+MIN_FREE_BYTES = 16 << 20
 
 
 def _now() -> str:
@@ -92,6 +123,63 @@ def _json_value(v: Any) -> Any:
     return v.item() if hasattr(v, "item") else v
 
 
+def _full(exc: BaseException) -> bool:
+    return "full" in str(exc) or getattr(exc, "errno", None) == 28  # ENOSPC
+
+
+def check_free_space(folder: str | os.PathLike[str], what: str) -> None:
+    """Refuse a folder whose disk has less than :data:`MIN_FREE_BYTES` free."""
+    free = shutil.disk_usage(folder).free
+    if free < MIN_FREE_BYTES:
+        raise DataError(f"{folder}: the disk holding the {what} has only {free >> 20} MB free "
+                        f"(at least {MIN_FREE_BYTES >> 20} MB are needed); free some space and "
+                        "run again (nothing was computed)")
+
+
+def _check_writable(path: Path) -> None:
+    """Open a write transaction and roll it back: a read-only file or folder fails here."""
+    try:
+        con = sqlite3.connect(path, timeout=BUSY_SECONDS, isolation_level=None)
+        try:
+            con.execute("BEGIN IMMEDIATE")
+            con.execute("CREATE TABLE bandsolve_write_probe (x)")
+            con.execute("ROLLBACK")
+        finally:
+            con.close()
+    except sqlite3.DatabaseError as exc:
+        if "locked" in str(exc) or "busy" in str(exc):
+            return  # another run is appending: it will be waited for at the end
+        raise DataError(f"{path}: the results ledger cannot be written ({exc}); check that the "
+                        "file and its folder are writable (nothing was computed)") from None
+
+
+def prepare_ledger(path: str | os.PathLike[str], key: LabKey | None = None) -> None:
+    """Check, before the batch is computed, everything that can fail about the ledger.
+
+    Raises
+    ------
+    DataError
+        The ledger is damaged, its chain or seals are broken (quick check, see
+        :func:`~bandsolve.batch.ledger_chain.verify_ledger`), it cannot be written, or its
+        disk is nearly full.
+    """
+    path = Path(path)
+    check_ledger(path, new_ok=True)
+    if not path.parent.is_dir():
+        raise DataError(f"--ledger {path}: the folder {path.parent} does not exist; create it "
+                        "first or correct the path (bandsolve does not create folders)")
+    check_free_space(path.parent, "ledger")
+    if path.exists() and path.stat().st_size:
+        check = verify_ledger(path, key, every_row=False)
+        if not check.ok:
+            raise DataError(f"{path}: refusing to append to a damaged ledger: {check.problem} "
+                            f"(see bandsolve ledger {path} --verify)")
+        _check_writable(path)
+    elif not os.access(path.parent, os.W_OK):
+        raise DataError(f"{path}: cannot create the results ledger, the folder {path.parent} "
+                        "is not writable (nothing was computed)")
+
+
 class LedgerRecorder:
     """A batch sink that records one run in a ledger (see
     :func:`bandsolve.batch.predict.run_batch`).
@@ -99,36 +187,46 @@ class LedgerRecorder:
     Parameters
     ----------
     path : path-like
-        The ledger (SQLite file); created when absent.
+        The ledger (SQLite file); created when absent, in an existing folder.
     model : Calibration
         The model used (its checksum and training-file fingerprints are recorded).
     model_path : str, optional
         Where the model file was read from.
     batch, operator : str, optional
         User labels stored with the run.
-    stdin_text : str, optional
-        Text read from standard input (``-``), hashed for the record.
+    stdin_bytes : bytes, optional
+        The raw bytes read from standard input (``-``), fingerprinted for the record.
+    key : LabKey, optional
+        Seal the run with the lab key; the existing runs must carry valid seals of it.
+
+    Raises
+    ------
+    DataError
+        Before any work, when the ledger is damaged, its chain or seals are broken, it
+        cannot be written, or its disk is nearly full.
     """
 
     def __init__(self, path: str | os.PathLike[str], model: Calibration, *,
                  model_path: str | None = None, batch: str | None = None,
-                 operator: str | None = None, stdin_text: str | None = None) -> None:
+                 operator: str | None = None, stdin_bytes: bytes | None = None,
+                 key: LabKey | None = None) -> None:
         from bandsolve.calibration.modelfile import model_checksum
 
-        self.path = Path(path)
-        check_ledger(self.path, new_ok=True)
+        self.path, self.key = Path(path), key
+        prepare_ledger(self.path, key)
+        remove_stray_spools("ledger")
         self.started = _now()
         self.model_path, self.batch, self.operator = model_path, batch, operator
         self.checksum = model.provenance.get("model_checksum") or model_checksum(model)
         self.training = json.dumps(model.provenance.get("training_files", []), sort_keys=True)
         self.analytes = list(model.analytes)
-        self._stdin_sha = (hashlib.sha256(stdin_text.encode()).hexdigest()
-                           if stdin_text is not None else None)
-        self._hashes: dict[int, str | None] = {}
+        self._seen: Fingerprints | None = Fingerprints().__enter__()  # left in close()
+        if stdin_bytes is not None:
+            record_bytes("-", stdin_bytes)
         self._checks: list[tuple] = []
         self._position = -1
-        self._dir = tempfile.mkdtemp(prefix="bandsolve-ledger-")
-        self._spool_path = Path(self._dir) / "run.sqlite"
+        self._folder = SpoolFolder("ledger")
+        self._spool_path = self._folder.path / "run.sqlite"
         self._spool = sqlite3.connect(self._spool_path, isolation_level=None)
         self._spool.executescript(_SPOOL)
         self._spool.execute("BEGIN")
@@ -166,29 +264,48 @@ class LedgerRecorder:
 
     # -------------------------------------------------------------- the run
     def _sha(self, item: str) -> str | None:
-        if item == "-":
-            return self._stdin_sha
-        from bandsolve.calibration.modelfile import sha256_file
+        """SHA-256 of the bytes the readers took from ``item`` (None if not read to its end)."""
+        seen = self._seen.get(item) if self._seen is not None else None
+        return seen.sha256 if seen is not None and seen.complete else None
 
-        try:
-            return sha256_file(item) if os.path.isfile(item) else None
-        except OSError:
-            return None
+    def finish(self, inputs: list[str], failures: list[Any], *,
+               results_file: str | os.PathLike[str] | None = None,
+               results_path: str | os.PathLike[str] | None = None) -> int:
+        """Write the run into the ledger in one transaction; returns its run id.
 
-    def finish(self, inputs: list[str], failures: list[Any]) -> int:
-        """Write the run into the ledger in one transaction; returns its run id."""
+        Parameters
+        ----------
+        inputs, failures
+            From the :class:`~bandsolve.batch.predict.BatchSummary`.
+        results_file : path-like, optional
+            The complete results file as it is now (possibly still a temporary file), whose
+            SHA-256 is recorded.
+        results_path : path-like, optional
+            Where that file will be found (recorded as an absolute path).
+        """
         self._spool.execute("COMMIT")
         reasons = {f.input: f.reason for f in failures}
         input_rows = [(i, p, self._sha(p), "failed" if p in reasons else "predicted",
                        reasons.get(p)) for i, p in enumerate(inputs)]
         n_results = self._spool.execute("SELECT COUNT(*) FROM results").fetchone()[0]
         self._spool.close()
-        run = (self.started, _now(), self.model_path, self.checksum, self.training,
-               __version__, self.batch, self.operator, len(inputs), len(reasons), n_results)
+        results = (None if results_path is None else os.path.abspath(results_path),
+                   None if results_file is None else sha256_file(results_file))
+        run = {"started": self.started, "finished": _now(), "model_path": self.model_path,
+               "model_checksum": self.checksum, "training_files": self.training,
+               "bandsolve_version": __version__, "batch": self.batch,
+               "operator": self.operator, "n_inputs": len(inputs), "n_failed": len(reasons),
+               "n_results": n_results, "results_path": results[0],
+               "results_sha256": results[1],
+               "key_id": self.key.key_id if self.key is not None else None}
         for attempt in range(_RETRIES):
             try:
                 return self._append(run, input_rows)
             except sqlite3.DatabaseError as exc:
+                if _full(exc):
+                    raise DataError(f"{self.path}: the disk is full; nothing of this run was "
+                                    "recorded and no results file was written: free space "
+                                    "and run again") from None
                 if "locked" not in str(exc) and "busy" not in str(exc):
                     raise DataError(f"{self.path}: cannot write the results ledger "
                                     f"({exc})") from None
@@ -199,209 +316,69 @@ class LedgerRecorder:
                 time.sleep(0.05 * 2**attempt)
         raise AssertionError("unreachable")  # pragma: no cover
 
-    def _append(self, run: tuple, input_rows: list[tuple]) -> int:
-        self.path.parent.mkdir(parents=True, exist_ok=True)
-        con = sqlite3.connect(self.path, timeout=_BUSY_SECONDS, isolation_level=None)
+    def _append(self, run: dict[str, Any], input_rows: list[tuple]) -> int:
+        con = sqlite3.connect(self.path, timeout=BUSY_SECONDS, isolation_level=None)
         try:
             con.execute("ATTACH DATABASE ? AS spool", (str(self._spool_path),))
             con.execute("BEGIN IMMEDIATE")
             try:
-                for statement in _SETUP:
-                    con.execute(statement)
-                cur = con.execute(
-                    "INSERT INTO runs (started, finished, model_path, model_checksum, "
-                    "training_files, bandsolve_version, batch, operator, n_inputs, n_failed, "
-                    "n_results) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", run)
-                run_id = int(cur.lastrowid)
-                con.executemany("INSERT INTO inputs VALUES (?, ?, ?, ?, ?, ?)",
-                                [(run_id, *r) for r in input_rows])
-                con.execute(
-                    "INSERT INTO main.results SELECT ?, row, input_position, sample, source, "
-                    "flags, concentrations, record FROM spool.results ORDER BY row",
-                    (run_id,))
-                con.executemany("INSERT INTO check_results VALUES "
-                                "(?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                                [(run_id, *row) for row in self._checks])
+                run_id = self._insert(con, run, input_rows)
                 con.execute("COMMIT")
             except BaseException:
-                con.execute("ROLLBACK")
+                if con.in_transaction:
+                    con.execute("ROLLBACK")
                 raise
             return run_id
         finally:
             con.close()
 
+    def _insert(self, con: sqlite3.Connection, run: dict[str, Any],
+                input_rows: list[tuple]) -> int:
+        for statement in _SETUP:
+            con.execute(statement)
+        for table, columns in _ADDED.items():
+            have = {r[1] for r in con.execute(f"PRAGMA table_info({table})")}
+            for column in columns:
+                if column not in have:
+                    con.execute(f"ALTER TABLE {table} ADD COLUMN {column} TEXT")
+        run_id = 1 + con.execute("SELECT COALESCE(MAX(seq), 0) FROM sqlite_sequence WHERE "
+                                 "name = 'runs'").fetchone()[0]
+        run = {"run_id": run_id, "prev_hash": _head(con), **run}
+        last, batch = run["prev_hash"], []
+        cursor = con.execute("SELECT row, input_position, sample, source, flags, "
+                             "concentrations, record FROM spool.results ORDER BY row")
+        for values in cursor:
+            last = row_hash(last, values)
+            batch.append((run_id, *values, last))
+            if len(batch) >= _INSERT_ROWS:
+                con.executemany("INSERT INTO main.results VALUES (?,?,?,?,?,?,?,?,?)", batch)
+                batch = []
+        con.executemany("INSERT INTO main.results VALUES (?,?,?,?,?,?,?,?,?)", batch)
+        con.executemany("INSERT INTO inputs VALUES (?, ?, ?, ?, ?, ?)",
+                        [(run_id, *r) for r in input_rows])
+        con.executemany("INSERT INTO check_results VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                        [(run_id, *row) for row in self._checks])
+        values = tuple(run[f] for f in RUN_FIELDS)
+        chained = run_hash(values, input_rows, last, self._checks)
+        seal = self.key.mac(SEAL_PURPOSE, chained) if self.key is not None else None
+        con.execute(f"INSERT INTO runs ({', '.join(RUN_FIELDS)}, run_hash, seal) VALUES "
+                    f"({', '.join('?' * (len(RUN_FIELDS) + 2))})", (*values, chained, seal))
+        return run_id
+
     def close(self) -> None:
         """Remove the temporary spool (call after :meth:`finish`, or to abandon the run)."""
         self._spool.close()
-        shutil.rmtree(self._dir, ignore_errors=True)
+        self._folder.cleanup()
+        if self._seen is not None:
+            self._seen.__exit__(None, None, None)
+            self._seen = None
 
 
-# ---------------------------------------------------------------------- reading
-def _not_a_ledger(path: str | os.PathLike[str], fix: str) -> DataError:
-    return DataError(f"{path} is not a bandsolve results ledger (SQLite); {fix}")
-
-
-def _tables(con: sqlite3.Connection, path: str | os.PathLike[str], fix: str) -> set[str]:
-    try:
-        rows = con.execute("SELECT name FROM sqlite_master WHERE type='table'").fetchall()
-    except sqlite3.OperationalError as exc:  # locked, unreadable: a ledger we cannot read now
-        raise DataError(f"{path}: cannot read the results ledger ({exc})") from None
-    except sqlite3.DatabaseError:  # "file is not a database": some other file
-        raise _not_a_ledger(path, fix) from None
-    return {r[0] for r in rows}
-
-
-def _open_ro(path: str | os.PathLike[str]) -> sqlite3.Connection:
-    return sqlite3.connect(f"file:{quote(str(Path(path).resolve()))}?mode=ro", uri=True,
-                           timeout=_BUSY_SECONDS)
-
-
-def check_ledger(path: str | os.PathLike[str], *, new_ok: bool = False) -> None:
-    """Refuse, before any work is done, a file that is not a results ledger.
-
-    Parameters
-    ----------
-    path : path-like
-        The ledger file.
-    new_ok : bool
-        Accept a path that does not exist yet, or an empty file (a ledger to be created).
-
-    Raises
-    ------
-    DataError
-        ``path`` is a folder, some other file (a CSV, a foreign SQLite database), or absent
-        (when ``new_ok`` is false).
-    """
-    fix = ("give a new file name or an existing ledger" if new_ok
-           else "give a ledger written by bandsolve predict --ledger")
-    p = Path(path)
-    if p.is_dir():
-        raise DataError(f"{path} is a folder, not a results ledger; {fix}")
-    if not p.exists():
-        if new_ok:
-            return
-        raise DataError(f"{path}: no such ledger; it is created by bandsolve predict --ledger")
-    if new_ok and p.stat().st_size == 0:
-        return
-    con = _open_ro(p)
-    try:
-        tables = _tables(con, path, fix)
-    finally:
-        con.close()
-    if not set(_TABLES) <= tables and (tables or not new_ok):
-        raise _not_a_ledger(path, fix)
-
-
-@contextlib.contextmanager
-def _connect_ro(path: str | os.PathLike[str]) -> Iterator[sqlite3.Connection]:
-    check_ledger(path)
-    con = _open_ro(path)
-    try:
-        yield con
-    finally:
-        con.close()
-
-
-def _require_run(con: sqlite3.Connection, path: str | os.PathLike[str], run: int) -> None:
-    """DataError naming the recorded run ids when ``run`` is not one of them."""
-    low, high, n = con.execute("SELECT MIN(run_id), MAX(run_id), COUNT(*) FROM runs").fetchone()
-    if not con.execute("SELECT 1 FROM runs WHERE run_id = ?", (run,)).fetchone():
-        held = (f"it holds runs {low} to {high}" if n > 1 else f"it holds run {low}" if n
-                else "it holds no runs yet")
-        raise DataError(f"{path}: no run {run} in this ledger; {held} (list them with "
-                        f"bandsolve ledger {path})")
-
-
-def _since(value: str | None) -> str | None:
-    if value is None:
-        return None
-    try:
-        when = datetime.fromisoformat(value)
-    except ValueError:
-        raise DataError(f"--since {value!r} is not a date; use YYYY-MM-DD or an ISO time "
-                        "such as 2025-03-01T08:00") from None
-    if when.tzinfo is None:
-        when = when.replace(tzinfo=timezone.utc)
-    now = datetime.now(timezone.utc)
-    if when > now:
-        raise DataError(f"--since {value} is in the future (it is now "
-                        f"{now.isoformat(timespec='minutes')} UTC), so no run can have started "
-                        "then; check the date")
-    return when.astimezone(timezone.utc).isoformat(timespec="seconds")
-
-
-def list_runs(path: str | os.PathLike[str], *, since: str | None = None) -> pd.DataFrame:
-    """Every run (one row each), oldest first, with ``n_flagged`` (result rows carrying a
-    flag); ``since`` keeps runs started at/after a date (a future date is an error)."""
-    with _connect_ro(path) as con:
-        return pd.read_sql_query(
-            "SELECT runs.*, (SELECT COUNT(*) FROM results r WHERE r.run_id = runs.run_id "
-            "AND r.flags != '') AS n_flagged FROM runs WHERE started >= COALESCE(?, '') "
-            "ORDER BY run_id", con, params=(_since(since),))
-
-
-def list_inputs(path: str | os.PathLike[str], run: int) -> pd.DataFrame:
-    """Inputs of one run with their SHA-256, status and failure reason (DataError: no such run)."""
-    with _connect_ro(path) as con:
-        _require_run(con, path, run)
-        return pd.read_sql_query("SELECT * FROM inputs WHERE run_id = ? ORDER BY position",
-                                 con, params=(run,))
-
-
-def list_results(path: str | os.PathLike[str], *, run: int | None = None,
-                 since: str | None = None, sample: str | None = None) -> pd.DataFrame:
-    """Recorded result rows with their run's labels, expanded from the stored JSON rows.
-
-    Parameters
-    ----------
-    run : int, optional
-        Only this run (a DataError when the ledger holds no such run).
-    since : str, optional
-        Only runs started at or after this ISO date/time (UTC when no zone is given).
-    sample : str, optional
-        Glob pattern on the sample id (``*`` and ``?``; case-sensitive).
-
-    Returns
-    -------
-    pandas.DataFrame
-        ``run_id``, ``started``, ``batch``, ``operator``, ``model_checksum``, ``input``,
-        ``input_sha256``, then the columns of the stored results table.
-    """
-    query = (
-        "SELECT r.run_id, u.started, u.batch, u.operator, u.model_checksum, i.path AS input, "
-        "i.sha256 AS input_sha256, r.record FROM results r JOIN runs u USING (run_id) "
-        "JOIN inputs i ON i.run_id = r.run_id AND i.position = r.input_position "
-        "WHERE (? IS NULL OR r.run_id = ?) AND u.started >= COALESCE(?, '') "
-        "AND (? IS NULL OR r.sample GLOB ?) ORDER BY r.run_id, r.row")
-    with _connect_ro(path) as con:
-        if run is not None:
-            _require_run(con, path, run)
-        rows = con.execute(query, (run, run, _since(since), sample, sample)).fetchall()
-    head = ["run_id", "started", "batch", "operator", "model_checksum", "input", "input_sha256"]
-    records = [dict(zip(head, r[:-1], strict=True)) | json.loads(r[-1]) for r in rows]
-    return pd.DataFrame.from_records(records, columns=None if records else head)
-
-
-def list_checks(path: str | os.PathLike[str]) -> pd.DataFrame:
-    """Recorded check-standard results with their run's labels, oldest run first.
-
-    Returns
-    -------
-    pandas.DataFrame
-        ``run_id``, ``started``, ``batch``, ``operator``, ``model_checksum``, then the
-        columns of :data:`bandsolve.batch.checks.CHECK_COLUMNS` (``passed`` as bool). Empty
-        for a ledger without check standards.
-    """
-    from bandsolve.batch.checks import CHECK_COLUMNS
-
-    head = ["run_id", "started", "batch", "operator", "model_checksum"]
-    with _connect_ro(path) as con:
-        if "check_results" not in _tables(con, path, "give a ledger written by bandsolve"):
-            return pd.DataFrame(columns=[*head, *CHECK_COLUMNS])
-        frame = pd.read_sql_query(
-            "SELECT u.run_id, u.started, u.batch, u.operator, u.model_checksum, "
-            + ", ".join(f"c.{c}" for c in CHECK_COLUMNS)
-            + " FROM check_results c JOIN runs u USING (run_id) ORDER BY c.run_id, c.rowid",
-            con)
-    frame["passed"] = frame["passed"].astype(bool)
-    return frame
+def _head(con: sqlite3.Connection) -> str:
+    """Hash of the newest run (the chain start for the next), walking older runs if unhashed."""
+    row = con.execute("SELECT run_hash FROM runs ORDER BY run_id DESC LIMIT 1").fetchone()
+    if row is None:
+        return GENESIS
+    if row[0] is not None:
+        return row[0]
+    return chain_head(con)

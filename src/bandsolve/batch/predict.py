@@ -117,6 +117,9 @@ def _read_sets(item: str, options: dict[str, Any], stdin_text: str | None
         yield read_spectra_text(stdin_text or "", source="<stdin>", **options)
         return
     if not os.path.exists(item):
+        if os.path.islink(item):
+            raise DataError(f"{item}: a symbolic link to {os.readlink(item)}, which does not "
+                            "exist; fix or remove the link")
         raise DataError(f"{item}: no such file; check the path")
     path = Path(item)
     if (path.is_dir() or path.suffix.lower() in JCAMP_SUFFIXES

@@ -18,6 +18,7 @@ from typing import IO, Any
 import pandas as pd
 
 from bandsolve.errors import FormatError
+from bandsolve.io.formulas import neutralise_formulas
 
 __all__ = ["FORMATS", "open_writer", "format_for", "csv_rows"]
 
@@ -96,11 +97,13 @@ def _quoted(text: str) -> str:
 class _TextWriter:
     """CSV (header once) or a JSON array of row objects, spooled per input."""
 
-    def __init__(self, handle: IO[str], fmt: str, columns: list[str]) -> None:
+    def __init__(self, handle: IO[str], fmt: str, columns: list[str],
+                 formula_safe: bool = True) -> None:
         self.handle, self.fmt, self.n_rows = handle, fmt, 0
         self._spool: Any = None
+        self._safe = neutralise_formulas if formula_safe and fmt == "csv" else (lambda f: f)
         if fmt == "csv":
-            pd.DataFrame(columns=columns).to_csv(handle, index=False)
+            self._safe(pd.DataFrame(columns=columns)).to_csv(handle, index=False)
         else:
             handle.write("[")
 
@@ -110,7 +113,7 @@ class _TextWriter:
 
     def write(self, frame: pd.DataFrame) -> None:
         if self.fmt == "csv":
-            self._spool.write(csv_rows(frame))
+            self._spool.write(csv_rows(self._safe(frame)))
             return
         for record in frame.to_dict(orient="records"):
             clean = {k: (None if isinstance(v, float) and not math.isfinite(v) else v)
@@ -188,10 +191,13 @@ class _ParquetWriter:
         self._tmpdir.cleanup()
 
 
-def open_writer(handle: IO, fmt: str, columns: list[str]):
+def open_writer(handle: IO, fmt: str, columns: list[str], *, formula_safe: bool = True):
     """A results sink writing ``fmt`` to the open ``handle`` (binary for Parquet).
 
-    Call ``close()`` on it after the batch, before the handle is closed.
+    With ``formula_safe`` (the default), CSV text cells that a spreadsheet would run as a
+    formula get a leading apostrophe (:mod:`bandsolve.io.formulas`); JSON and Parquet keep
+    text as it is (they are not opened as spreadsheets). Call ``close()`` on it after the
+    batch, before the handle is closed.
     """
     if fmt == "parquet":
         try:
@@ -200,4 +206,4 @@ def open_writer(handle: IO, fmt: str, columns: list[str]):
             raise FormatError("Parquet output needs pyarrow: pip install 'bandsolve[parquet]', "
                               "or choose --format csv or json") from None
         return _ParquetWriter(handle, columns)
-    return _TextWriter(handle, fmt, columns)
+    return _TextWriter(handle, fmt, columns, formula_safe)

@@ -34,10 +34,19 @@ import numpy as np
 
 from bandsolve.calibration.detail import CLS_LEVERAGE_FACTOR, LEVERAGE_FACTOR
 from bandsolve.calibration.model import Calibration
+from bandsolve.calibration.modelfile_guard import (
+    check_authentic,
+    check_plausible,
+    load_array,
+    load_json,
+    read_members,
+    sign,
+)
 from bandsolve.calibration.records import EstimatorLimits, IntervalBasis, Limits, Selection
 from bandsolve.cls import CLSRegressor
 from bandsolve.errors import ModelFileError
 from bandsolve.io.atomic import atomic_write
+from bandsolve.labkey import LabKey
 from bandsolve.merit import FiguresOfMerit
 from bandsolve.pls import PLSRegressor
 from bandsolve.preprocess import SpectralPreprocessor
@@ -163,14 +172,21 @@ def model_checksum(cal: Calibration) -> str:
     return _content_hash({k: hashlib.sha256(v).hexdigest() for k, v in members.items()})
 
 
-def save_model(cal: Calibration, path: str | os.PathLike[str]) -> str:
-    """Write ``cal`` to ``path`` atomically; returns the content checksum (hex SHA-256)."""
+def save_model(cal: Calibration, path: str | os.PathLike[str], *,
+               key: LabKey | None = None) -> str:
+    """Write ``cal`` to ``path`` atomically; returns the content checksum (hex SHA-256).
+
+    With a lab ``key`` the file is signed (see :mod:`bandsolve.calibration.modelfile_guard`).
+    """
     _, members = _content(cal)
     hashes = {k: hashlib.sha256(v).hexdigest() for k, v in members.items()}
     checksum = _content_hash(hashes)
     manifest = {"format": FORMAT_NAME, "schema_version": SCHEMA_VERSION,
-                "checksum_algorithm": "sha256", "members": hashes, "checksum": checksum}
-    with atomic_write(path, "wb") as handle:
+                "checksum_algorithm": "sha256", "members": hashes, "checksum": checksum,
+                "sizes": {k: len(v) for k, v in members.items()}}
+    if key is not None:
+        manifest["signature"] = sign(checksum, key)
+    with atomic_write(path, "wb", kind="model") as handle:
         with zipfile.ZipFile(handle, "w", compression=zipfile.ZIP_DEFLATED) as zf:
             zf.writestr("manifest.json", json.dumps(manifest, indent=1, sort_keys=True))
             for name, data in members.items():
@@ -178,19 +194,32 @@ def save_model(cal: Calibration, path: str | os.PathLike[str]) -> str:
     return checksum
 
 
-def load_model(path: str | os.PathLike[str]) -> Calibration:
+def load_model(path: str | os.PathLike[str], *, key: LabKey | None = None,
+               expect: set[str] | None = None) -> Calibration:
     """Read and verify a model file.
+
+    Parameters
+    ----------
+    path : path-like
+        The model file.
+    key : LabKey, optional
+        The lab key: the file must carry a valid signature made with it.
+    expect : set of str, optional
+        Approved content checksums: any other model is refused.
 
     Raises
     ------
     ModelFileError
-        When the file is not a model file, is truncated or damaged, fails its checksum,
-        claims a newer schema than this version reads, or carries a pickled object.
+        When the file is not a model file, is truncated, damaged, oversized or implausible,
+        fails its checksum, is not approved or not signed by ``key``, claims a newer schema
+        than this version reads, or carries a pickled object.
     """
     path = Path(path)
     try:
         with zipfile.ZipFile(path) as zf:
-            members = {info.filename: zf.read(info) for info in zf.infolist()}
+            members = read_members(path, zf)
+    except ModelFileError:
+        raise
     except FileNotFoundError:
         raise ModelFileError(f"{path}: no such model file") from None
     except zipfile.BadZipFile as exc:
@@ -218,20 +247,12 @@ def load_model(path: str | os.PathLike[str]) -> Calibration:
             f"{path}: content does not match its checksum ({', '.join(bad) or 'manifest'}); "
             "the file is damaged or was altered: use the original model file"
         )
-    arrays = {}
-    for name, data in members.items():
-        if name.startswith("arrays/"):
-            try:
-                arrays[name[len("arrays/"):]] = np.load(io.BytesIO(data), allow_pickle=False)
-            except ValueError as exc:
-                raise ModelFileError(
-                    f"{path}: {name} carries a pickled object or is not a plain array ({exc}); "
-                    "model files never contain code, so it is refused"
-                ) from None
-    try:
-        doc = json.loads(members["model.json"])
-    except (KeyError, json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise ModelFileError(f"{path}: model description unreadable ({exc})") from None
+    check_authentic(path, manifest, key, expect)
+    arrays = {name[len("arrays/"):]: load_array(path, name, data)
+              for name, data in members.items() if name.startswith("arrays/")}
+    if "model.json" not in members:
+        raise ModelFileError(f"{path}: model description missing (no model.json)")
+    doc = load_json(path, "model.json", members["model.json"])
     build = _calibration_v1 if manifest["schema_version"] < 3 else _calibration
     try:
         cal = build(doc, arrays)
@@ -239,6 +260,7 @@ def load_model(path: str | os.PathLike[str]) -> Calibration:
         raise ModelFileError(f"{path}: model description incomplete ({exc!r})") from None
     except ModelFileError as exc:
         raise ModelFileError(f"{path}: {exc}") from None
+    check_plausible(path, arrays, cal.limits)
     return dataclasses.replace(cal, provenance={**cal.provenance,
                                                 "model_checksum": manifest["checksum"]})
 
@@ -294,10 +316,9 @@ def _calibration_v1(doc: dict[str, Any], arrays: dict[str, np.ndarray]) -> Calib
 
 
 def _read_manifest(path: Path, members: dict[str, bytes]) -> dict[str, Any]:
-    try:
-        manifest = json.loads(members["manifest.json"])
-    except (KeyError, json.JSONDecodeError, UnicodeDecodeError):
-        raise ModelFileError(f"{path}: no readable manifest; not a bandsolve model file") from None
+    manifest = load_json(path, "manifest.json", members["manifest.json"])
+    if not isinstance(manifest, dict):
+        raise ModelFileError(f"{path}: no readable manifest; not a bandsolve model file")
     if manifest.get("format") != FORMAT_NAME:
         raise ModelFileError(f"{path}: not a bandsolve model file")
     version = manifest.get("schema_version")

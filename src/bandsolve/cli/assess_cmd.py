@@ -6,12 +6,20 @@ import argparse
 import json
 from pathlib import Path
 
-from bandsolve.calibration.modelfile import load_model, save_model
+from bandsolve.calibration.modelfile import save_model
 from bandsolve.cautions import SHORT_CAUTION
-from bandsolve.cli._common import add_input_options, eprint, read_options, write_table
+from bandsolve.cli._common import (
+    add_input_options,
+    eprint,
+    guard_outputs,
+    open_model,
+    read_options,
+    write_table,
+)
 from bandsolve.errors import BandsolveError
 from bandsolve.evaluate.assess import assess, read_spectra_files, validated_model
 from bandsolve.io import read_concentrations
+from bandsolve.labkey import load_lab_key
 
 EXAMPLES = """\
 examples:
@@ -63,7 +71,10 @@ def run(args: argparse.Namespace) -> int:
     if args.out_model and Path(args.out_model).resolve() == Path(args.model).resolve():
         raise BandsolveError(f"--out-model {args.out_model} is the assessed model itself; "
                              "give a new file name (a model is never changed in place)")
-    model = load_model(args.model)
+    inputs = ["model", "spectra", "concentrations"]
+    guard_outputs(args, {"--samples": "samples"}, inputs)
+    guard_outputs(args, {"--out-model": "out_model"}, inputs, kind="model")
+    model = open_model(args)
     test = read_spectra_files(args.spectra, read_options(args), pattern=args.glob)
     table = read_concentrations(args.concentrations)
     result = assess(model, test.spectra, table, alpha=args.alpha,
@@ -72,7 +83,7 @@ def run(args: argparse.Namespace) -> int:
         write_table(result.samples, args.samples)
     if args.out_model:
         new = validated_model(model, result, [*test.files, args.concentrations])
-        checksum = save_model(new, args.out_model)
+        checksum = save_model(new, args.out_model, key=load_lab_key())
         eprint(f"validated model written to {args.out_model} (checksum {checksum[:12]}): "
                f"intervals now rest on {new.interval_basis}")
     if args.json:

@@ -15,14 +15,17 @@ from bandsolve.calibration.modelfile import save_model
 from bandsolve.cli._common import (
     CV_HELP,
     add_input_options,
+    add_key_option,
     caution_text,
     eprint,
+    guard_outputs,
     read_options,
     read_with_groups,
 )
 from bandsolve.design.amounts import parse_analyte_range
 from bandsolve.errors import BandsolveError
 from bandsolve.io import read_absorptivities, read_concentrations, read_spectra
+from bandsolve.labkey import load_lab_key
 from bandsolve.preprocess import parse_window
 from bandsolve.progress import progress_bar
 from bandsolve.reference_outliers import ReferenceOutlier
@@ -58,6 +61,7 @@ def register(sub: argparse._SubParsersAction) -> None:
                         'Beer\'s law, e.g. "dye A=0-12 mg/L" (unit as in the table\'s label); '
                         "results outside it are flagged")
     p.add_argument("--out", metavar="MODEL", required=True, help="model file to write")
+    add_key_option(p)
     p.add_argument("--window", metavar="RANGES", help="axis ranges to use, e.g. 400-700")
     p.add_argument("--blank", metavar="FILE", help="blank spectra subtracted from calibration")
     p.add_argument("--blanks", metavar="FILE",
@@ -187,8 +191,11 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
 
 
 def run(args: argparse.Namespace) -> int:
+    guard_outputs(args, {"--out": "out"},
+                  ["spectra", "concentrations", "absorptivity", "blank", "blanks"], kind="model")
     cal = build_from_args(args)
-    checksum = save_model(cal, args.out)
+    key = load_lab_key(args.key_file)
+    checksum = save_model(cal, args.out, key=key)
     if cal.selection is not None:
         eprint(cal.selection.curves(cal.analytes))
     for found in cal.provenance.get("reference_outliers") or ():
@@ -196,6 +203,7 @@ def run(args: argparse.Namespace) -> int:
     if cal.provenance.get("merit_note"):
         eprint(f"bandsolve: warning: {cal.provenance['merit_note']}")
     eprint(f"{cal.method.upper()} model for {len(cal.analytes)} analytes "
-           f"({', '.join(cal.analytes)}) written to {args.out} (checksum {checksum[:12]})")
+           f"({', '.join(cal.analytes)}) written to {args.out} (checksum {checksum}"
+           + (f"; signed with lab key {key.key_id})" if key else "; not signed)"))
     eprint(caution_text())
     return 0

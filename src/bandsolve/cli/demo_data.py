@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from bandsolve.io.atomic import atomic_write
+from bandsolve.io.atomic import atomic_write, output_folder
 
 __all__ = ["DEMO_LABEL", "DemoFiles", "write_demo_data", "demo_pure_spectra", "bands",
            "measure", "write_spectra", "write_concentrations"]
@@ -102,7 +102,8 @@ def write_demo_data(folder: str | Path) -> DemoFiles:
     """Generate the invented demo files into ``folder`` (same content on every run)."""
     from bandsolve.design import calibration_plan, parse_analyte_range
 
-    folder = Path(folder)
+    folder = output_folder(folder, option="--out")
+    output_folder(folder / "routine")
     rng = np.random.default_rng(RANDOM_STATE)
     ranges = [parse_analyte_range(f"{n}={lo:g}-{hi:g} {u}") for n, u, lo, hi, _ in DYES]
     plan = calibration_plan(ranges, levels=5, n_validation=8, validation_decimals=2,

@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 
 from bandsolve.cli import demo_data as D
+from bandsolve.io.atomic import output_folder
 
 __all__ = ["Lifecycle", "run_lifecycle", "NEW_INSTRUMENT", "N_RUNS", "DRIFT_FROM"]
 
@@ -64,6 +65,7 @@ def _season(folder: Path, model, rng: np.random.Generator) -> Path:
                                         columns=list(known.analytes)))
     ledger = folder / "results.sqlite"
     ledger.unlink(missing_ok=True)  # the demo's own ledger: one season per demo run
+    output_folder(folder / "season")
     lows = np.array([d[2] for d in D.DYES])
     highs = np.array([d[3] for d in D.DYES])
     for run in range(1, N_RUNS + 1):
@@ -101,7 +103,7 @@ def run_lifecycle(folder: Path, model, files: D.DemoFiles) -> Lifecycle:
     pick = kennard_stone(model.prepare(cal_spectra)[0], 10)
     ids = [cal.sample_ids[i] for i in pick]
     conc = cal.values[pick]
-    unit2 = folder / "instrument-2"
+    unit2 = output_folder(folder / "instrument-2")
     paths = {"original": unit2 / "transfer_on_instrument_1.csv",
              "new": unit2 / "transfer_on_instrument_2.csv"}
     D.write_spectra(paths["original"], ids, D.measure(conc, rng),

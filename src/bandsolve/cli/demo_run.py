@@ -13,7 +13,7 @@ import pandas as pd
 
 from bandsolve.cli.demo_data import DEMO_LABEL, RESULT_FILES, DemoFiles, write_demo_data
 from bandsolve.cli.demo_lifecycle import Lifecycle, run_lifecycle
-from bandsolve.io.atomic import atomic_write
+from bandsolve.io.atomic import atomic_write, output_folder
 
 __all__ = ["DemoRun", "run_demo"]
 
@@ -44,8 +44,8 @@ def run_demo(folder: str | Path) -> DemoRun:
     from bandsolve.calibration.modelfile import save_model
     from bandsolve.io import read_concentrations, read_spectra
 
-    folder = Path(folder)
     files = write_demo_data(folder)
+    folder = output_folder(Path(folder) / "models").parent
     spectra = read_spectra(files.calibration_spectra)
     table = read_concentrations(files.calibration_concentrations)
     prov = {"data_label": DEMO_LABEL, "training_files": file_fingerprints(

@@ -6,7 +6,7 @@ import argparse
 import json
 from pathlib import Path
 
-from bandsolve.cli._common import caution_text
+from bandsolve.cli._common import caution_text, guard_outputs
 from bandsolve.design import (
     VOLUME_FIGURES,
     Amount,
@@ -107,12 +107,6 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.set_defaults(func=run)
 
 
-def _check_out(out: Path | None) -> None:
-    if out is not None and not out.parent.is_dir():
-        raise DataError(f"--out {out}: the folder {out.parent} does not exist; create it first "
-                        "or correct the path (bandsolve does not create folders)")
-
-
 def _stocks(args: argparse.Namespace) -> tuple[dict[str, Amount], float, float] | None:
     """Stocks, final volume and pipetting minimum (mL), read before any work is done."""
     if not args.stock:
@@ -137,7 +131,7 @@ def run(args: argparse.Namespace) -> int:
     Every input is checked (and the plan and preparation sheet computed) before anything is
     printed or written, so a bad command gives one error line and no files.
     """
-    _check_out(args.out)
+    guard_outputs(args, {"--out": "out"}, ["absorptivity"])
     analytes = [parse_analyte_range(text) for text in args.analytes]
     stock_options = _stocks(args)
     pipettes = _pipettes(args)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 
-from bandsolve.calibration.modelfile import load_model
+from bandsolve.cli._common import open_model
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -21,7 +21,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    cal = load_model(args.model)
+    cal = open_model(args)
     if args.json:
         print(json.dumps(cal.describe(), indent=2, default=str))
     else:

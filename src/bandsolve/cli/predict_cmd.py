@@ -4,18 +4,30 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import io
 import sys
+from pathlib import Path
 
 from bandsolve.batch.checks import CheckSink, CheckStandards
-from bandsolve.batch.ledger import LedgerRecorder, check_ledger
+from bandsolve.batch.ledger import LedgerRecorder, check_free_space, check_ledger
+from bandsolve.batch.ledger_recovery import RunIntent, recover_results
 from bandsolve.batch.overview import RoundingSink
-from bandsolve.batch.predict import DEFAULT_CHUNK, result_table_columns, run_batch
+from bandsolve.batch.predict import DEFAULT_CHUNK, expand_inputs, result_table_columns, run_batch
 from bandsolve.batch.writers import FORMATS, format_for, open_writer
-from bandsolve.calibration.modelfile import load_model
 from bandsolve.cli._codes import EXIT_FLAGGED, EXIT_PARTIAL
-from bandsolve.cli._common import add_input_options, caution_text, eprint, read_options
+from bandsolve.cli._common import (
+    add_input_options,
+    add_key_option,
+    add_model_checks,
+    caution_text,
+    eprint,
+    guard_outputs,
+    open_model,
+    read_options,
+)
 from bandsolve.errors import FormatError
 from bandsolve.io.atomic import atomic_write
+from bandsolve.labkey import load_lab_key
 from bandsolve.progress import progress_bar
 
 EXAMPLES = """\
@@ -75,6 +87,9 @@ def register(sub: argparse._SubParsersAction) -> None:
                    help="results format (default: from the --out ending, else csv); parquet "
                         "needs the parquet extra")
     p.add_argument("--glob", metavar="PATTERN", help="file pattern inside folders")
+    p.add_argument("--keep-formulas", action="store_true",
+                   help="write CSV text cells starting with = + - @ as they are (by default "
+                        "they get a leading apostrophe so spreadsheets do not run them)")
     p.add_argument("--quiet", action="store_true",
                    help="no progress bar (it is shown only on a terminal anyway)")
     p.add_argument("--fail-on-flags", action="store_true",
@@ -107,6 +122,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     qc.add_argument("--check-limits", metavar="LOW-HIGH", type=_recovery_range,
                     help="accepted recovery in %%, e.g. 95-105 (default: expected +/- 3 SE "
                          "of each result)")
+    add_key_option(p)
+    add_model_checks(p)
     add_input_options(p)
     p.set_defaults(func=run_command)
 
@@ -140,23 +157,16 @@ def _run_cubes(model, args: argparse.Namespace) -> int:
     return 0
 
 
-def _read_stdin() -> str:
-    """Standard input decoded by the rules every file is read with (UTF-8, Latin-1, UTF-16)."""
-    raw = getattr(sys.stdin, "buffer", None)
-    if raw is None:  # already text (for example when replaced in tests)
-        return sys.stdin.read()
-    from bandsolve.io._source import read_text
-
-    return read_text(raw, "<stdin>")
-
-
 def run_command(args: argparse.Namespace) -> int:
-    model = load_model(args.model)
+    args.lab_key = load_lab_key(args.key_file)
+    model = open_model(args)
     if (args.batch or args.operator) and not args.ledger:
         raise FormatError("--batch and --operator label a ledger run; add --ledger FILE.sqlite")
     if any(i.lower().endswith(".npy") for i in args.inputs):
         return _run_cubes(model, args)
     fmt = format_for(args.out, args.format)
+    guard_outputs(args, {"--out": "out"}, ["model", "ledger", "checks"],
+                  extra=expand_inputs(args.inputs, args.glob))
     to_stdout = args.out in (None, "-")
     if fmt == "parquet" and to_stdout:
         raise FormatError("Parquet results need a file: add --out FILE.parquet")
@@ -166,9 +176,13 @@ def run_command(args: argparse.Namespace) -> int:
     checks = _check_sink(model, args) if args.checks else None
     if args.ledger:
         check_ledger(args.ledger, new_ok=True)  # before any work: a bad ledger loses nothing
-    stdin_text = _read_stdin() if "-" in args.inputs else None
+        for note in recover_results(args.ledger, None if to_stdout else args.out):
+            eprint(f"bandsolve: {note}")
+    if not to_stdout:
+        check_free_space(Path(args.out).resolve().parent, "results file")
+    stdin_bytes = _read_stdin() if "-" in args.inputs else None
     try:
-        summary = _predict(model, args, fmt, stdin_text, checks)
+        summary = _predict(model, args, fmt, stdin_bytes, checks)
     except _NothingPredicted as stop:
         summary = stop.args[0]
     for failure in summary.failures:
@@ -197,37 +211,68 @@ def _check_sink(model, args: argparse.Namespace) -> CheckSink:
                      model.analytes)
 
 
-def _predict(model, args: argparse.Namespace, fmt: str, stdin_text: str | None,
+def _read_stdin() -> bytes:
+    """Standard input as raw bytes (fingerprinted for the ledger, then decoded)."""
+    raw = getattr(sys.stdin, "buffer", None)
+    if raw is None:  # already text (for example when replaced in tests)
+        return sys.stdin.read().encode()
+    return raw.read()
+
+
+def _stdin_text(data: bytes) -> str:
+    """Standard input decoded by the rules every file is read with (UTF-8, Latin-1, UTF-16)."""
+    from bandsolve.io._source import read_text
+
+    return read_text(io.BytesIO(data), "<stdin>")
+
+def _predict(model, args: argparse.Namespace, fmt: str, stdin_bytes: bytes | None,
              checks: CheckSink | None):
-    """Run the batch into the results file (or standard output) and the ledger."""
+    """Run the batch into the results file (or standard output) and the ledger.
+
+    With a ledger and a results file, the run is recorded (with the SHA-256 of the complete
+    temporary results file) before that file is renamed into place; a kill in between is
+    completed by the next run (:func:`bandsolve.batch.ledger_recovery.recover_results`).
+    """
+    stdin_text = None if stdin_bytes is None else _stdin_text(stdin_bytes)
     to_stdout = args.out in (None, "-")
     with contextlib.ExitStack() as stack:
-        if to_stdout:
-            handle = sys.stdout
-        elif fmt == "parquet":
-            handle = stack.enter_context(atomic_write(args.out, "wb"))
-        else:
-            handle = stack.enter_context(atomic_write(args.out, "w", newline=""))
-        writer = open_writer(handle, fmt, result_table_columns(model))
-        shown = RoundingSink(writer, model.analytes) if args.round else writer
-        sinks = [shown, *([checks] if checks is not None else [])]
         recorder = None
         if args.ledger:
             recorder = LedgerRecorder(args.ledger, model, model_path=args.model,
                                       batch=args.batch, operator=args.operator,
-                                      stdin_text=stdin_text)
+                                      stdin_bytes=stdin_bytes, key=args.lab_key)
             stack.callback(recorder.close)
-            sinks.append(recorder)
+            if not to_stdout:
+                stack.callback(RunIntent(args.ledger, args.out).close)
+
+        def record(results_file=None) -> None:
+            if checks is not None:
+                recorder.record_checks(checks.report().table)
+            run_id = recorder.finish(summary.inputs, summary.failures,
+                                     results_file=results_file,
+                                     results_path=results_file and args.out)
+            eprint(f"recorded as run {run_id} in {args.ledger}")
+
+        commit = record if recorder is not None else None
+        if to_stdout:
+            handle = sys.stdout
+        elif fmt == "parquet":
+            handle = stack.enter_context(atomic_write(args.out, "wb", before_replace=commit))
+        else:
+            handle = stack.enter_context(atomic_write(args.out, "w", newline="",
+                                                      before_replace=commit))
+        writer = open_writer(handle, fmt, result_table_columns(model),
+                             formula_safe=not args.keep_formulas)
+        shown = RoundingSink(writer, model.analytes) if args.round else writer
+        sinks = [shown, *([checks] if checks is not None else []),
+                 *([recorder] if recorder is not None else [])]
         summary = run_batch(model, args.inputs, sinks, read_options=read_options(args),
                             pattern=args.glob, stdin_text=stdin_text,
                             chunk_size=args.chunk_size, n_jobs=args.jobs,
                             scheduler=args.scheduler, progress=progress_bar(args.quiet))
         writer.close()
-        if recorder is not None:
-            if checks is not None:
-                recorder.record_checks(checks.report().table)
-            run_id = recorder.finish(summary.inputs, summary.failures)
-            eprint(f"recorded as run {run_id} in {args.ledger}")
+        if recorder is not None and (to_stdout or not summary.n_predicted):
+            record()  # no results file: standard output, or nothing predicted
         if not summary.n_predicted and not to_stdout:
             raise _NothingPredicted(summary)
     return summary

@@ -9,9 +9,14 @@ from collections.abc import Callable
 from typing import Any
 
 from bandsolve.batch.predict import predict_inputs
-from bandsolve.calibration.modelfile import load_model
 from bandsolve.cli._codes import EXIT_OK, EXIT_PARTIAL
-from bandsolve.cli._common import add_input_options, eprint, read_options
+from bandsolve.cli._common import (
+    add_input_options,
+    eprint,
+    guard_outputs,
+    open_model,
+    read_options,
+)
 from bandsolve.io import read_concentrations, read_spectra
 from bandsolve.progress import progress_bar
 from bandsolve.report import write_report
@@ -98,7 +103,9 @@ def _sections(cal, args: argparse.Namespace, assessment, val_spectra, val_table)
 
 
 def run(args: argparse.Namespace) -> int:
-    cal = load_model(args.model)
+    guard_outputs(args, {"--out": "out"},
+                  ["model", "calibration", "assess", "compare", "blanks", "batch"])
+    cal = open_model(args)
     cal_spectra, cal_table = _pair(args.calibration, args)
     val_spectra, val_table = _pair(args.assess, args)
     assessment = comparison = None

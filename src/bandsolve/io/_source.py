@@ -27,6 +27,7 @@ from pathlib import Path
 from typing import BinaryIO
 
 from bandsolve.errors import FormatError, where
+from bandsolve.io.fingerprint import open_hashed
 
 __all__ = ["MAX_LINE_BYTES", "BLOCK_BYTES", "Block", "TextSource"]
 
@@ -69,7 +70,7 @@ class TextSource:
         if isinstance(file, str | Path):
             self.source = source or str(file)
             try:
-                self._raw: BinaryIO = open(file, "rb")
+                self._raw: BinaryIO = open_hashed(file)  # fingerprints what is read
             except OSError as exc:
                 raise FormatError(f"{file}: cannot read the file ({exc.strerror or exc})") from None
         else:

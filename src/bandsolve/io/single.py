@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import os
 import warnings
 from collections.abc import Sequence
 from pathlib import Path
@@ -32,11 +33,16 @@ def read_file(path: str | Path, *, layout: str = "auto", axis_unit: str | None =
 SPECTRA_SUFFIXES = (".csv", ".txt", ".tsv", ".dat", ".prn", ".jdx", ".dx", ".jcamp", ".jcm")
 
 
+def _broken_link(path: Path) -> bool:
+    return path.is_symlink() and not path.exists()
+
+
 def folder_files(folder: str | Path, pattern: str | None = None) -> list[Path]:
     """The spectra files below ``folder``, searched recursively, sorted by path.
 
     Hidden files and folders are skipped. Without ``pattern`` every file with an ending in
-    :data:`SPECTRA_SUFFIXES` is taken; with it, the files matching that glob.
+    :data:`SPECTRA_SUFFIXES` is taken; with it, the files matching that glob. Broken symbolic
+    links are listed too (never skipped silently): reading them fails with their reason.
 
     Raises
     ------
@@ -46,7 +52,7 @@ def folder_files(folder: str | Path, pattern: str | None = None) -> list[Path]:
     root = Path(folder)
     found = root.rglob(pattern) if pattern else (
         p for p in root.rglob("*") if p.suffix.lower() in SPECTRA_SUFFIXES)
-    files = sorted(p for p in found if p.is_file()
+    files = sorted(p for p in found if (p.is_file() or _broken_link(p))
                    and not any(part.startswith(".") for part in p.relative_to(root).parts))
     if not files:
         raise FormatError(f"{where(str(root))}no spectra files"
@@ -87,6 +93,11 @@ def read_folder(folder: str | Path, *, pattern: str | None = None, layout: str =
     root = Path(folder)
     files = folder_files(root, pattern)
     sets, ids, rows = [], [], []
+    broken = [p for p in files if _broken_link(p)]
+    if broken:
+        raise FormatError(f"{where(str(broken[0]))}a symbolic link to "
+                          f"{os.readlink(broken[0])}, which does not exist; fix or remove the "
+                          "link (or choose the files with a pattern)")
     for path in files:
         with warnings.catch_warnings():  # warn once, about the whole folder, below
             warnings.simplefilter("ignore", BandsolveWarning)

@@ -13,6 +13,7 @@ from html import escape
 from pathlib import Path
 from typing import Any
 
+import matplotlib
 import pandas as pd
 
 from bandsolve import __version__
@@ -102,13 +103,15 @@ def render_report(cal: Calibration, *, calibration_spectra: SpectralSet | None =
             "batch"))
 
     figures: dict[str, list[str]] = {sid: [] for sid, _ in SECTION_IDS}
-    for i, make in enumerate(makers):
-        made = make()
-        for item in made if isinstance(made, list) else [made]:
-            if item is not None:
-                figures[item.section].append(S.figure_html(item))
-                item.figure.clear()
-        step(progress, i + 1, len(makers), "figures")
+    # Sample ids and analyte names are shown as written: a "$" is not mathematics.
+    with matplotlib.rc_context({"text.parse_math": False}):
+        for i, make in enumerate(makers):
+            made = make()
+            for item in made if isinstance(made, list) else [made]:
+                if item is not None:
+                    figures[item.section].append(S.figure_html(item))
+                    item.figure.clear()
+            step(progress, i + 1, len(makers), "figures")
 
     bodies = {
         "model": S.model_section(cal),
