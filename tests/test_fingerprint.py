@@ -91,7 +91,8 @@ def test_file_replaced_mid_run_is_recorded_with_the_content_that_was_predicted(t
     cal = _set(12, 2, "c")
     conc = ConcentrationTable(cal.sample_ids, ("A [mg/L]", "B [mg/L]"),
                               np.random.default_rng(2).uniform(0.1, 1.0, (12, 2)))
-    model = build_cls(SpectralSet(axis=AXIS, values=conc.values @ PURE,
+    noise = 1e-3 * np.random.default_rng(11).standard_normal((12, AXIS.size))
+    model = build_cls(SpectralSet(axis=AXIS, values=conc.values @ PURE + noise,
                                   sample_ids=cal.sample_ids), conc)
     path = tmp_path / "batch.csv"
     write_spectra_csv(_set(5, 3, "b"), path)

@@ -50,7 +50,8 @@ def test_numbers_stay_numbers_and_text_numbers_are_kept():
 def test_results_csv_and_ledger_export_are_formula_safe(tmp_path, capsys):
     rng = np.random.default_rng(8)
     C = rng.uniform(0.1, 1.0, (12, 2))
-    cal = SpectralSet(axis=AXIS, values=C @ PURE, sample_ids=[f"c{i}" for i in range(12)])
+    cal = SpectralSet(axis=AXIS, values=C @ PURE + 1e-3 * rng.standard_normal((12, AXIS.size)),
+                      sample_ids=[f"c{i}" for i in range(12)])
     save_model(build_cls(cal, ConcentrationTable(cal.sample_ids, ("A [mg/L]", "B [mg/L]"), C)),
                tmp_path / "m.bsm")
     ids = ["=1+1", "@SUM(A1)", "+cmd", "-2+3", "-5", "plain"]

@@ -40,7 +40,8 @@ def ledgers(tmp_path_factory):
     d = tmp_path_factory.mktemp("chain")
     cal = _set(12, 1, "c")
     conc = np.random.default_rng(1).uniform(0.1, 1.0, (12, 2))
-    cal = SpectralSet(axis=AXIS, values=conc @ PURE, sample_ids=cal.sample_ids)
+    noise = 1e-3 * np.random.default_rng(11).standard_normal((12, AXIS.size))
+    cal = SpectralSet(axis=AXIS, values=conc @ PURE + noise, sample_ids=cal.sample_ids)
     # Signed: with a lab key configured, predict accepts only models signed by it.
     save_model(build_cls(cal, ConcentrationTable(cal.sample_ids, ("A [mg/L]", "B [mg/L]"),
                                                  conc)), d / "m.bsm",

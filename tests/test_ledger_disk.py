@@ -45,7 +45,8 @@ def disk(tmp_path):
 def lab(tmp_path):
     rng = np.random.default_rng(3)
     C = rng.uniform(0.1, 1.0, (12, 2))
-    cal = SpectralSet(axis=AXIS, values=C @ PURE, sample_ids=[f"c{i}" for i in range(12)])
+    cal = SpectralSet(axis=AXIS, values=C @ PURE + 1e-3 * rng.standard_normal((12, AXIS.size)),
+                      sample_ids=[f"c{i}" for i in range(12)])
     save_model(build_cls(cal, ConcentrationTable(cal.sample_ids, ("A [mg/L]", "B [mg/L]"), C)),
                tmp_path / "m.bsm")
     write_spectra_csv(SpectralSet(axis=AXIS, values=rng.uniform(0.1, 1, (3, 2)) @ PURE,

@@ -88,7 +88,8 @@ def _sha(path) -> str:
 def test_sigkill_anywhere_leaves_record_and_results_together_or_neither(tmp_path):
     rng = np.random.default_rng(2024)
     C = rng.uniform(0.1, 1.0, (15, 2))
-    cal = SpectralSet(axis=AXIS, values=C @ PURE, sample_ids=[f"c{i}" for i in range(15)])
+    cal = SpectralSet(axis=AXIS, values=C @ PURE + 1e-3 * rng.standard_normal((15, AXIS.size)),
+                      sample_ids=[f"c{i}" for i in range(15)])
     save_model(build_cls(cal, ConcentrationTable(cal.sample_ids, ("A [mg/L]", "B [mg/L]"),
                                                  C)), tmp_path / "m.bsm")
     batch = SpectralSet(axis=AXIS, values=rng.uniform(0.1, 1.0, (1500, 2)) @ PURE,

@@ -38,6 +38,7 @@ import pandas as pd
 
 from bandsolve import __version__
 from bandsolve.batch.ledger_chain import (
+    APPEND_ONLY,
     GENESIS,
     RUN_FIELDS,
     SEAL_PURPOSE,
@@ -49,7 +50,6 @@ from bandsolve.batch.ledger_chain import (
 )
 from bandsolve.batch.ledger_read import (
     BUSY_SECONDS,
-    TABLES,
     check_ledger,
     list_checks,
     list_inputs,
@@ -91,10 +91,6 @@ CREATE TABLE IF NOT EXISTS check_results (
     se REAL, recovery_pct REAL, low REAL, high REAL, passed INTEGER NOT NULL, basis TEXT);
 CREATE INDEX IF NOT EXISTS check_results_run ON check_results(run_id)
 """
-#: Tables every ledger has (:data:`bandsolve.batch.ledger_read.TABLES`); ``check_results``
-#: (check standards, see :mod:`bandsolve.batch.checks`) is added to older ledgers by their next
-#: run.
-_APPEND_ONLY = (*TABLES, "check_results")
 # Columns added since the first ledgers (older files gain them on their next run).
 _ADDED = {"runs": ("results_path", "results_sha256", "key_id", "prev_hash", "run_hash", "seal"),
           "results": ("row_hash",)}
@@ -102,7 +98,7 @@ _ADDED = {"runs": ("results_path", "results_sha256", "key_id", "prev_hash", "run
 _SETUP = [s.strip() for s in _SCHEMA.split(";")] + [
     f"CREATE TRIGGER IF NOT EXISTS {t}_no_{op} BEFORE {op.upper()} ON {t} BEGIN "
     f"SELECT RAISE(ABORT, 'the results ledger is append-only: recorded {t} cannot be "
-    f"changed or removed'); END" for t in _APPEND_ONLY for op in ("update", "delete")]
+    f"changed or removed'); END" for t in APPEND_ONLY for op in ("update", "delete")]
 _SPOOL = """
 CREATE TABLE results (row INTEGER PRIMARY KEY, input_position INTEGER, sample TEXT,
     source TEXT, flags TEXT, concentrations TEXT, record TEXT);

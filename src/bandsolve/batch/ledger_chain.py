@@ -53,7 +53,8 @@ RUN_FIELDS = ("run_id", "prev_hash", "started", "finished", "model_path", "model
 ROW_FIELDS = ("row", "input_position", "sample", "source", "flags", "concentrations", "record")
 INPUT_FIELDS = ("position", "path", "sha256", "status", "reason")
 CHECK_FIELDS = CHECK_COLUMNS
-TRIGGERS = 6
+#: Tables whose rows can never be changed or removed (each has two guarding triggers).
+APPEND_ONLY = ("runs", "inputs", "results", "check_results")
 
 
 def _canonical(values: Sequence[Any]) -> bytes:
@@ -117,11 +118,13 @@ def _structure(con: sqlite3.Connection) -> None:
     if result != ["ok"]:
         raise _Broken(None, "the SQLite file itself is damaged (" + "; ".join(result[:3])
                       + "); restore it from a backup")
-    triggers = con.execute("SELECT COUNT(*) FROM sqlite_master WHERE type = 'trigger' AND "
-                           "name LIKE '%_no_%'").fetchone()[0]
-    if triggers < TRIGGERS:
-        raise _Broken(None, "the append-only guards (triggers) were removed from the ledger; "
-                      "it may have been edited: compare it with a backup")
+    names = {(r[0], r[1]) for r in con.execute("SELECT type, name FROM sqlite_master")}
+    guarded = [t for t in APPEND_ONLY if ("table", t) in names]
+    missing = [f"{t}_no_{op}" for t in guarded for op in ("update", "delete")
+               if ("trigger", f"{t}_no_{op}") not in names]
+    if missing:
+        raise _Broken(None, f"the append-only triggers ({', '.join(missing)}) were removed from "
+                      "the ledger; it may have been edited: compare it with a backup")
 
 
 def _runs(con: sqlite3.Connection) -> list[sqlite3.Row]:
