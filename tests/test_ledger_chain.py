@@ -239,3 +239,15 @@ def test_check_before_appending_rehashes_only_the_newest_run(plain):
     _tamper(plain, "UPDATE results SET flags = 'y' WHERE run_id = 3")
     check = verify_ledger(plain, every_row=False)
     assert not check.ok and check.run_id in (2, 3)
+
+
+def test_edited_check_standard_result_is_named(ledgers, tmp_path):
+    known = tmp_path / "known.csv"
+    known.write_text("sample,A [mg/L],B [mg/L]\ns0-*,0.5,0.5\n")
+    ledger = tmp_path / "checks.sqlite"
+    assert main(["predict", str(ledgers / "m.bsm"), str(ledgers / "in0.csv"), "--out",
+                 str(tmp_path / "r.csv"), "--ledger", str(ledger), "--checks",
+                 str(known)]) in (0, 4)
+    assert verify_ledger(ledger).ok
+    _tamper(ledger, "UPDATE check_results SET passed = 1 - passed")
+    _named(verify_ledger(ledger), 1)

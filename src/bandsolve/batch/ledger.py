@@ -44,6 +44,7 @@ from bandsolve.batch.ledger_chain import (
     SEAL_PURPOSE,
     LedgerCheck,
     chain_head,
+    check_rows,
     row_hash,
     run_hash,
     verify_ledger,
@@ -355,7 +356,7 @@ class LedgerRecorder:
         con.executemany("INSERT INTO check_results VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
                         [(run_id, *row) for row in self._checks])
         values = tuple(run[f] for f in RUN_FIELDS)
-        chained = run_hash(values, input_rows, last, self._checks)
+        chained = run_hash(values, input_rows, last, check_rows(con, run_id))
         seal = self.key.mac(SEAL_PURPOSE, chained) if self.key is not None else None
         con.execute(f"INSERT INTO runs ({', '.join(RUN_FIELDS)}, run_hash, seal) VALUES "
                     f"({', '.join('?' * (len(RUN_FIELDS) + 2))})", (*values, chained, seal))

@@ -41,8 +41,8 @@ from bandsolve.batch.ledger_read import check_ledger, open_ro
 from bandsolve.errors import DataError
 from bandsolve.labkey import LabKey
 
-__all__ = ["GENESIS", "RUN_FIELDS", "LedgerCheck", "chain_head", "row_hash", "run_hash",
-           "verify_ledger"]
+__all__ = ["GENESIS", "RUN_FIELDS", "LedgerCheck", "chain_head", "check_rows", "row_hash",
+           "run_hash", "verify_ledger"]
 
 GENESIS = "0" * 64
 SEAL_PURPOSE = "ledger seal"
@@ -218,7 +218,7 @@ def _walk(con: sqlite3.Connection, key: LabKey | None, check: LedgerCheck,
             last, count = _stored_rows(con, run, start)
         inputs = con.execute(f"SELECT {', '.join(INPUT_FIELDS)} FROM inputs WHERE run_id = ? "
                              "ORDER BY position", (run_id,)).fetchall()
-        checks = _checks(con, run_id)
+        checks = check_rows(con, run_id)
         if run["run_hash"] is None:
             if chained:
                 raise _Broken(run_id, f"run {run_id} carries no hash although earlier runs "
@@ -247,7 +247,8 @@ def _walk(con: sqlite3.Connection, key: LabKey | None, check: LedgerCheck,
                            "not checked; give the lab key (--key-file) to check them")
 
 
-def _checks(con: sqlite3.Connection, run_id: int) -> list[tuple]:
+def check_rows(con: sqlite3.Connection, run_id: int) -> list[tuple]:
+    """The check-standard rows of a run as stored (the values the run hash covers)."""
     tables = {r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
     if "check_results" not in tables:
         return []
