@@ -104,7 +104,7 @@ def _sections(cal, args: argparse.Namespace, assessment, val_spectra, val_table)
 
 def run(args: argparse.Namespace) -> int:
     guard_outputs(args, {"--out": "out"},
-                  ["model", "calibration", "assess", "compare", "blanks", "batch"])
+                  ["model", "calibration", "assess", "compare", "blanks", "batch", "drift"])
     cal = open_model(args)
     cal_spectra, cal_table = _pair(args.calibration, args)
     val_spectra, val_table = _pair(args.assess, args)
