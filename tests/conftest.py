@@ -39,3 +39,16 @@ def dataset(name: str) -> Path:
     if not folder.is_dir():
         pytest.skip(f"shared dataset {name} not available at {folder}")
     return folder
+
+
+def two_analyte_model(axis: np.ndarray, pure: np.ndarray, rng: np.random.Generator,
+                      n: int = 12):
+    """A CLS model of analytes A and B [mg/L] from ``n`` invented mixtures (1 mAU noise)."""
+    from bandsolve.calibration.build import build_cls
+    from bandsolve.concentrations import ConcentrationTable
+    from bandsolve.spectra import SpectralSet
+
+    conc = rng.uniform(0.1, 1.0, (n, 2))
+    cal = SpectralSet(axis=axis, values=conc @ pure + 1e-3 * rng.standard_normal((n, axis.size)),
+                      sample_ids=[f"c{i}" for i in range(n)])
+    return build_cls(cal, ConcentrationTable(cal.sample_ids, ("A [mg/L]", "B [mg/L]"), conc))

@@ -8,15 +8,13 @@ import pandas as pd
 from hypothesis import given
 from hypothesis import strategies as st
 
-from bandsolve.calibration.build import build_cls
 from bandsolve.calibration.modelfile import save_model
 from bandsolve.cli import main
-from bandsolve.concentrations import ConcentrationTable
 from bandsolve.io import write_spectra_csv
 from bandsolve.io.formulas import RISKY_STARTS, neutralise_formulas, neutralise_text
 from bandsolve.spectra import SpectralSet
 
-from .conftest import gaussian_bands
+from .conftest import gaussian_bands, two_analyte_model
 
 AXIS = np.linspace(400.0, 700.0, 41)
 PURE = gaussian_bands(AXIS, (480, 560), (40, 45))
@@ -49,11 +47,7 @@ def test_numbers_stay_numbers_and_text_numbers_are_kept():
 
 def test_results_csv_and_ledger_export_are_formula_safe(tmp_path, capsys):
     rng = np.random.default_rng(8)
-    C = rng.uniform(0.1, 1.0, (12, 2))
-    cal = SpectralSet(axis=AXIS, values=C @ PURE + 1e-3 * rng.standard_normal((12, AXIS.size)),
-                      sample_ids=[f"c{i}" for i in range(12)])
-    save_model(build_cls(cal, ConcentrationTable(cal.sample_ids, ("A [mg/L]", "B [mg/L]"), C)),
-               tmp_path / "m.bsm")
+    save_model(two_analyte_model(AXIS, PURE, rng), tmp_path / "m.bsm")
     ids = ["=1+1", "@SUM(A1)", "+cmd", "-2+3", "-5", "plain"]
     routine = SpectralSet(axis=AXIS, values=rng.uniform(0.1, 1.0, (6, 2)) @ PURE,
                           sample_ids=ids)

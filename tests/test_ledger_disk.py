@@ -10,14 +10,12 @@ import numpy as np
 import pytest
 
 from bandsolve.batch.ledger import MIN_FREE_BYTES
-from bandsolve.calibration.build import build_cls
 from bandsolve.calibration.modelfile import save_model
 from bandsolve.cli import main
-from bandsolve.concentrations import ConcentrationTable
 from bandsolve.io import write_spectra_csv
 from bandsolve.spectra import SpectralSet
 
-from .conftest import gaussian_bands
+from .conftest import gaussian_bands, two_analyte_model
 
 AXIS = np.linspace(400.0, 700.0, 41)
 PURE = gaussian_bands(AXIS, (480, 560), (40, 45))
@@ -44,11 +42,7 @@ def disk(tmp_path):
 @pytest.fixture
 def lab(tmp_path):
     rng = np.random.default_rng(3)
-    C = rng.uniform(0.1, 1.0, (12, 2))
-    cal = SpectralSet(axis=AXIS, values=C @ PURE + 1e-3 * rng.standard_normal((12, AXIS.size)),
-                      sample_ids=[f"c{i}" for i in range(12)])
-    save_model(build_cls(cal, ConcentrationTable(cal.sample_ids, ("A [mg/L]", "B [mg/L]"), C)),
-               tmp_path / "m.bsm")
+    save_model(two_analyte_model(AXIS, PURE, rng), tmp_path / "m.bsm")
     write_spectra_csv(SpectralSet(axis=AXIS, values=rng.uniform(0.1, 1, (3, 2)) @ PURE,
                                   sample_ids=["a", "b", "c"]), tmp_path / "x.csv")
     return tmp_path
