@@ -125,6 +125,14 @@ def test_fifo_and_devices_are_refused_without_opening_them(lab, capsys):
                   "--format", "csv"], capsys, "symbolic link")
 
 
+def test_fifo_as_ledger_is_refused_without_opening_it(lab, capsys):
+    fifo = lab / "ledger.fifo"
+    os.mkfifo(fifo)
+    _refused(["predict", f"{lab}/m.bsm", f"{lab}/batch/x.csv", "--out", f"{lab}/o.csv",
+              "--ledger", str(fifo)], capsys, "not a regular file")
+    assert not (lab / "o.csv").exists()
+
+
 def test_missing_folders_are_not_created(lab, capsys):
     before = _snapshot(lab)
     _refused(["predict", f"{lab}/m.bsm", f"{lab}/batch/x.csv", "--out", f"{lab}/a/b/c.csv"],

@@ -78,6 +78,9 @@ def check_ledger(path: str | os.PathLike[str], *, new_ok: bool = False) -> None:
     fix = ("give a new file name or an existing ledger" if new_ok
            else "give a ledger written by bandsolve predict --ledger")
     p = Path(path)
+    if p.exists() and not p.is_dir() and not p.is_file():
+        raise DataError(f"{path} is not a regular file (a FIFO, device or socket); a results "
+                        f"ledger is an SQLite file: {fix}")
     if p.is_dir():
         raise DataError(f"{path} is a folder, not a results ledger; {fix}")
     if not p.exists():
