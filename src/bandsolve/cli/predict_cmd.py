@@ -180,7 +180,7 @@ def run_command(args: argparse.Namespace) -> int:
             eprint(f"bandsolve: {note}")
     if not to_stdout:
         check_free_space(Path(args.out).resolve().parent, "results file")
-    stdin_bytes = _read_stdin() if "-" in args.inputs else None
+    stdin_bytes = _stdin_bytes() if "-" in args.inputs else None
     try:
         summary = _predict(model, args, fmt, stdin_bytes, checks)
     except _NothingPredicted as stop:
@@ -211,7 +211,7 @@ def _check_sink(model, args: argparse.Namespace) -> CheckSink:
                      model.analytes)
 
 
-def _read_stdin() -> bytes:
+def _stdin_bytes() -> bytes:
     """Standard input as raw bytes (fingerprinted for the ledger, then decoded)."""
     raw = getattr(sys.stdin, "buffer", None)
     if raw is None:  # already text (for example when replaced in tests)
@@ -219,11 +219,13 @@ def _read_stdin() -> bytes:
     return raw.read()
 
 
-def _stdin_text(data: bytes) -> str:
-    """Standard input decoded by the rules every file is read with (UTF-8, Latin-1, UTF-16)."""
+def _read_stdin(data: bytes | None = None) -> str:
+    """Standard input (or its ``data`` already read) decoded by the rules every file is read
+    with (UTF-8, Latin-1, UTF-16)."""
     from bandsolve.io._source import read_text
 
-    return read_text(io.BytesIO(data), "<stdin>")
+    return read_text(io.BytesIO(_stdin_bytes() if data is None else data), "<stdin>")
+
 
 def _predict(model, args: argparse.Namespace, fmt: str, stdin_bytes: bytes | None,
              checks: CheckSink | None):
@@ -233,7 +235,7 @@ def _predict(model, args: argparse.Namespace, fmt: str, stdin_bytes: bytes | Non
     temporary results file) before that file is renamed into place; a kill in between is
     completed by the next run (:func:`bandsolve.batch.ledger_recovery.recover_results`).
     """
-    stdin_text = None if stdin_bytes is None else _stdin_text(stdin_bytes)
+    stdin_text = None if stdin_bytes is None else _read_stdin(stdin_bytes)
     to_stdout = args.out in (None, "-")
     with contextlib.ExitStack() as stack:
         recorder = None
