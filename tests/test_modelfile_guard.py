@@ -153,7 +153,7 @@ def test_members_not_as_the_manifest_lists_them_are_refused(model_file, tmp_path
     forged = tmp_path / "f.bsm"
     _forge(model_file / "m.bsm", forged, {},
            manifest_edit=lambda m: m["sizes"].update({"model.json": 12}))
-    _refused(forged, "not as the manifest lists it")
+    _refused(forged, "does not match its checksum")
 
 
 @pytest.mark.parametrize("name,data,match", [

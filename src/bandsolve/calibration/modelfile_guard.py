@@ -90,7 +90,8 @@ def read_members(path: Path, zf: zipfile.ZipFile) -> dict[str, bytes]:
         declared = {n: i.file_size for n, i in by_name.items() if n != "manifest.json"}
         if declared != sizes:
             wrong = sorted(set(declared.items()) ^ set(sizes.items()))[0][0]
-            raise _refuse(path, f"member {wrong} is not as the manifest lists it")
+            raise _refuse(path, f"member {wrong} does not match its checksum (its size is not "
+                          "the one the manifest lists)")
     for info in infos:
         if info.filename != "manifest.json":
             members[info.filename] = _read(zf, info)
@@ -152,8 +153,8 @@ def load_array(path: Path, name: str, data: bytes) -> np.ndarray:
     except (ValueError, SyntaxError, TypeError) as exc:
         raise _refuse(path, f"{name} is not a plain array ({exc})") from None
     if dtype.kind not in _NUMERIC_KINDS or dtype.hasobject:
-        raise _refuse(path, f"{name} holds {dtype} values, not numbers (model files never "
-                      "contain objects or code)")
+        raise _refuse(path, f"{name} holds {dtype} values, not numbers: a pickled object "
+                      "is refused (model files never contain objects or code)")
     count = math.prod(shape)
     if count * dtype.itemsize != len(data) - handle.tell():
         raise _refuse(path, f"{name} declares shape {shape} but holds "
