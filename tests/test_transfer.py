@@ -294,3 +294,14 @@ def test_axis_shift_on_real_spectra_with_real_blank_noise(standard):
                          np.interp(axis - 0.5, axis, x) + noise[2 * k]).shift - 0.5
               for k in range(len(noise) // 2)]
     assert np.quantile(np.abs(errors), 0.9) < 0.1
+
+
+@pytest.mark.parametrize("half_window", [0, 1, 3])
+def test_banded_pds_map_equals_the_full_matrix_product(half_window):
+    # Reference: numpy's dense product X @ F + b with the same banded F.
+    rng = np.random.default_rng(41)
+    S1, S2 = rng.normal(size=(12, 20)), rng.normal(size=(12, 20))
+    T = piecewise_direct_standardization(S1, S2, half_window=half_window)
+    X = rng.normal(size=(7, 20))
+    np.testing.assert_allclose(T.map_spectra(X), X @ T.matrix + T.offset, rtol=1e-12,
+                               atol=1e-12)

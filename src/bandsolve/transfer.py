@@ -55,6 +55,9 @@ TRANSFER_METHODS = ("pds", "ds", "slope-bias")
 DEFAULT_HALF_WINDOW = 1
 DEFAULT_RCOND = 0.01
 
+#: Rows mapped at a time by a banded (PDS) map: small enough to stay in cache.
+_MAP_ROWS = 1024
+
 
 @dataclass(frozen=True)
 class Transfer:
@@ -89,10 +92,33 @@ class Transfer:
     record: dict[str, Any] = field(default_factory=dict)
 
     def map_spectra(self, X: np.ndarray) -> np.ndarray:
-        """Spectra of the new instrument as the original would have measured them (n × p)."""
+        """Spectra of the new instrument as the original would have measured them (n × p).
+
+        A PDS map is banded: it is applied as ``2w + 1`` shifted element-wise products on
+        blocks of rows that stay in cache (O(n·p·(2w+1)) instead of the O(n·p²) of a full
+        product; ``tests/benchmarks/bench_transfer.py``, 10⁵ × 171 spectra on a busy 2-core
+        machine: 0.22 s against 0.48 s for ``X @ F``, 0.74 s unblocked). Each row's
+        numbers never depend on the other rows.
+        """
         if self.matrix is None:
             return X
-        return X @ self.matrix + self.offset
+        if self.half_window is None:
+            return X @ self.matrix + self.offset
+        X = np.asarray(X, dtype=float)
+        p = X.shape[1]
+        bands = [(k, np.diagonal(self.matrix, offset=-k))  # F[j + k, j]: new j + k → orig j
+                 for k in range(-self.half_window, self.half_window + 1) if abs(k) < p]
+        out = np.empty_like(X)
+        for start in range(0, len(X), _MAP_ROWS):
+            x = X[start:start + _MAP_ROWS]
+            block = np.broadcast_to(self.offset, x.shape).copy()
+            for k, band in bands:
+                if k >= 0:
+                    block[:, :p - k] += x[:, k:] * band
+                else:
+                    block[:, -k:] += x[:, :p + k] * band
+            out[start:start + _MAP_ROWS] = block
+        return out
 
     def correct(self, concentrations: np.ndarray, standard_errors: np.ndarray
                 ) -> tuple[np.ndarray, np.ndarray]:
