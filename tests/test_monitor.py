@@ -206,3 +206,9 @@ def test_state_in_control_names_the_run_after_the_last_alarm():
     result = control_chart(values, ChartDesign(phase_one=20))
     assert result.in_control and result.since == 31
     assert result.to_dict()["in_control_arl"]["cusum"] == pytest.approx(465, rel=0.01)
+
+
+def test_unusable_chart_designs_are_refused():
+    for bad in ({"phase_one": 1}, {"h": 0.0}, {"ewma_lambda": 1.5}):
+        with pytest.raises(DataError):
+            ChartDesign(**bad)

@@ -77,6 +77,15 @@ class ChartDesign:
     ewma_width: float = 2.814
     rules: bool = True
 
+    def __post_init__(self) -> None:
+        if not (isinstance(self.phase_one, int) and self.phase_one >= 5):
+            raise DataError(f"control limits need at least 5 reference runs (20-25 is usual), "
+                            f"not {self.phase_one!r}")
+        if not (self.h > 0 and self.k >= 0 and self.width > 0):
+            raise DataError("CUSUM h and the Shewhart width must be positive and k >= 0")
+        if self.ewma_lambda is not None and not 0 < self.ewma_lambda <= 1:
+            raise DataError(f"EWMA smoothing must lie in (0, 1], not {self.ewma_lambda:g}")
+
     def in_control_arl(self) -> dict[str, float]:
         """In-control ARL of each chart (known σ): the mean runs between false alarms."""
         out = {"shewhart": shewhart_arl(0.0, self.width), "cusum": cusum_arl(self.k, self.h)}
