@@ -8,6 +8,7 @@ Each method only calls public methods of its estimators.
 from __future__ import annotations
 
 import dataclasses
+from abc import ABC, abstractmethod
 from collections.abc import Sequence
 from typing import Any
 
@@ -27,7 +28,7 @@ from bandsolve.merit import (
 __all__ = ["METHODS", "CalibrationMethod", "method_named"]
 
 
-class CalibrationMethod:
+class CalibrationMethod(ABC):
     """Behaviour of one calibration method (see :data:`METHODS`)."""
 
     #: Short name stored in the model (``Calibration.method``).
@@ -43,30 +44,35 @@ class CalibrationMethod:
     nas_caption = ""
     component_caption = ""
 
+    @abstractmethod
     def detail(self, estimators: Sequence[Any], limits: Sequence[EstimatorLimits],
                scans: list[tuple[np.ndarray, np.ndarray]]) -> Detail:
         """Per-sample detail from each estimator's scan products ``(H, ss)``."""
-        raise NotImplementedError
+        ...
 
+    @abstractmethod
     def component_spectra(self, estimators: Sequence[Any]) -> np.ndarray:
         """The spectra that define the model (pure spectra or regression vectors), (m, p')."""
-        raise NotImplementedError
+        ...
 
+    @abstractmethod
     def component_unit(self, unit: str) -> str:
         """Unit label of :meth:`component_spectra` for a concentration unit."""
-        raise NotImplementedError
+        ...
 
+    @abstractmethod
     def noise_from_residuals(self, estimators: Sequence[Any], Z: np.ndarray,
                              C: np.ndarray) -> NoiseEstimate:
         """σx from calibration residuals of preprocessed spectra Z (n, p) and references C."""
-        raise NotImplementedError
+        ...
 
+    @abstractmethod
     def signal(self, estimators: Sequence[Any], noise: NoiseEstimate, *, Z: np.ndarray | None,
                C: np.ndarray | None, blank: np.ndarray | None,
                reference_variance: np.ndarray) -> SignalFigures:
         """SEN, SEL, γ, LOD and LOQ per analyte (``blank``: the blank composition's spectrum
         after preprocessing, or None for the zero spectrum)."""
-        raise NotImplementedError
+        ...
 
     def needs_training(self, estimators: Sequence[Any]) -> bool:
         """True when figures of merit need the calibration spectra and concentrations."""
@@ -76,10 +82,11 @@ class CalibrationMethod:
         """RMSECV per analyte recorded at build time, or None when it must be computed."""
         return None
 
+    @abstractmethod
     def describe_components(self, estimators: Sequence[Any],
                             selection: Selection | None, m: int) -> str:
         """How many components the model has and why, in words."""
-        raise NotImplementedError
+        ...
 
     def pure_spectra(self, estimators: Sequence[Any]) -> np.ndarray | None:
         """Pure spectra of the analytes when the model holds them (CLS), else None."""
