@@ -196,20 +196,33 @@ def test_batched_gram_kernel_equals_the_primal_kernel_per_problem():
     from bandsolve._pls_kernels import gram_pls_batch, kernel_pls
 
     rng = np.random.default_rng(41)
-    # Three problems fitted together; the second has rank 3, so it stops early while the
-    # others go on (as a fold whose training data run out of rank).
-    Xs = [rng.normal(size=(12, 8)) @ rng.normal(size=(8, 20)),
-          rng.normal(size=(12, 3)) @ rng.normal(size=(3, 20)),
-          rng.normal(size=(12, 20))]
-    Xs = [x - x.mean(axis=0) for x in Xs]
-    Ys = [rng.normal(size=(12, 2)) for _ in Xs]
-    Ys = [y - y.mean(axis=0) for y in Ys]
-    fits = gram_pls_batch(np.stack([x @ x.T for x in Xs]), np.stack(Ys), 6)
-    for x, y, fit in zip(Xs, Ys, fits, strict=True):
-        ref = kernel_pls(x.T @ x, x.T @ y, 6)
+    # One data set, three training subsets fitted together.  Rows 0-11 lie in a 3-dimensional
+    # affine subspace, so the subset made of them has rank 3 after centring and stops early
+    # while the others go on (as a fold whose training data run out of rank).
+    X = np.vstack([rng.normal(size=(12, 3)) @ rng.normal(size=(3, 20)) + 4.0,
+                   rng.normal(size=(10, 20))])
+    Y = rng.normal(size=(22, 2)) + 1.0
+    train = np.ones((3, 22), dtype=bool)
+    train[0, 12:] = False
+    train[1, 3:9] = False
+    train[2, ::3] = False
+    x0 = X - X[5]  # the Gram matrix may be centred with any fixed row
+    fits = gram_pls_batch(x0 @ x0.T, Y, train, 6)
+    for rows, fit in zip(train, fits, strict=True):
+        mean, y_mean = X[rows].mean(axis=0), Y[rows].mean(axis=0)
+        xc = X[rows] - mean
+        ref = kernel_pls(xc.T @ xc, xc.T @ (Y[rows] - y_mean), 6)
         # Theory (Lindgren et al. 1993; Dayal & MacGregor 1997): the Gram and the XᵀX kernel
-        # forms fit the same model, so the regression coefficients R Qᵀ agree.
+        # forms fit the same model, so the regression coefficients R Qᵀ agree...
         assert fit.tau.size == ref.tau.size
-        np.testing.assert_allclose(x.T @ fit.rotation_coords @ fit.y_loadings.T,
+        np.testing.assert_allclose(xc.T @ fit.rotation_coords[rows] @ fit.y_loadings.T,
                                    ref.rotations @ ref.y_loadings.T, rtol=1e-7, atol=1e-9)
-    assert fits[1].tau.size == 3
+        # ...and every row's scores times Qᵀ (the prediction it adds) are those of
+        # (x − training mean) R Qᵀ, the held-out rows included.
+        np.testing.assert_allclose(fit.scores @ fit.y_loadings.T,
+                                   (X - mean) @ ref.rotations @ ref.y_loadings.T,
+                                   rtol=1e-7, atol=1e-9)
+        # Coordinates live on the training rows only.
+        assert np.all(fit.rotation_coords[~rows] == 0.0)
+    assert fits[0].tau.size == 3
+    assert fits[1].tau.size == fits[2].tau.size == 6

@@ -36,8 +36,9 @@ import pandas as pd
 
 from bandsolve._pls_kernels import (
     GramFactors,
+    KernelFactors,
     gram_pls_batch,
-    kernel_pls,
+    kernel_pls_batch,
     residual_ss_path,
 )
 from bandsolve.errors import ModelError
@@ -117,12 +118,21 @@ def rows_of(test: np.ndarray) -> slice | np.ndarray:
 
 #: Rows of X centred at a time while the cross-products are accumulated (≈ 4 MB blocks).
 _BLOCK_BYTES = 1 << 22
-#: Gram blocks fitted together by the wide engine, at most (bytes): small folds are batched
-#: to share the per-call overhead, but the batch must stay in cache, as each component reads
-#: all of it again (one fold of 450 samples already fills this).
-_BATCH_BYTES = 1 << 21
+#: Working memory of the folds fitted together (bytes): the stacked p×p cross-products of the
+#: tall engine, the n-vectors of the wide engine.  All folds of a usual CV fit in one batch.
+_BATCH_BYTES = 1 << 25
 #: Largest number of stored per-fold XᵀX elements (K·p², 128 MB) for the one-pass products.
 _MAX_FOLD_PRODUCTS = 1 << 24
+
+
+@dataclass
+class _TallFold:
+    """One fold's fitted model in the tall engine: training mean and scale, factors."""
+
+    x_mean: np.ndarray
+    y_mean: np.ndarray
+    scale: np.ndarray | None
+    factors: KernelFactors
 
 
 class TallEngine:
@@ -132,7 +142,9 @@ class TallEngine:
     their K p×p products fit in memory, each fold's own products ``X_vᵀX_v`` are computed
     once and their sum is the whole-set ``XᵀX``, so the data are multiplied once instead of
     twice.  Otherwise the whole-set products are accumulated over row blocks and each fold
-    computes its own.  Rows are centred with the whole-set mean as they are read.
+    computes its own.  Rows are centred with the whole-set mean as they are read.  The folds
+    are fitted together (:func:`kernel_pls_batch`) when the engine is built; :meth:`fold`
+    then evaluates one fold's held-out rows.
 
     Parameters
     ----------
@@ -140,24 +152,35 @@ class TallEngine:
     Y : ndarray of shape (n, m)
     scale : bool
         Autoscale X columns with each training fold's SD.
-    tests : list of ndarray, optional
-        Held-out rows of each fold, when every sample is held out exactly once.
+    splits : list of (train, test) index arrays
+    n_components : int
+        Largest number of components fitted in each fold.
+    partition : bool
+        True when every sample is held out exactly once.
     """
 
     def __init__(self, X: np.ndarray, Y: np.ndarray, scale: bool,
-                 tests: list[np.ndarray] | None = None):
+                 splits: list[tuple[np.ndarray, np.ndarray]], n_components: int,
+                 partition: bool):
         _centre(self, X, Y, scale)
         self.X = X
         n, p = X.shape
         self.sy = self.y0.sum(axis=0)
         self.step = max(1, _BLOCK_BYTES // (8 * p))  # rows of X handled at a time
-        if tests is not None and len(tests) * p * p <= _MAX_FOLD_PRODUCTS:
-            self.fold_products = [self._products(rows_of(test)) for test in tests]
-            self.sxx, self.sxy, self.sx, _ = (sum(parts) for parts in
-                                              zip(*self.fold_products, strict=True))
+        if partition and len(splits) * p * p <= _MAX_FOLD_PRODUCTS:
+            stored = self._stacked_products([rows_of(test) for _, test in splits])
+            self.sxx, self.sxy, self.sx, _ = (part.sum(axis=0) for part in stored)
         else:
-            self.fold_products = None
+            stored = None
             self.sxx, self.sxy, self.sx, _ = self._products(slice(0, n))
+        step = max(1, _BATCH_BYTES // (8 * p * p))
+        self.folds: list[_TallFold] = []
+        for start in range(0, len(splits), step):
+            batch = splits[start:start + step]
+            own = (self._stacked_products([rows_of(test) for _, test in batch])
+                   if stored is None else [part[start:start + step] for part in stored])
+            self.folds += self._fit(own, np.array([train.size for train, _ in batch]),
+                                    n_components)
 
     def _blocks(self, rows: slice | np.ndarray):
         """Row blocks (≈ 4 MB of X each) of ``rows``, as slices or index arrays."""
@@ -166,68 +189,81 @@ class TallEngine:
                     for i in range(rows.start, rows.stop, self.step)]
         return [rows[i:i + self.step] for i in range(0, rows.size, self.step)]
 
-    def _products(self, rows) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """``X_rᵀX_r``, ``X_rᵀY_r``, ``X_rᵀ1`` and ``Y_rᵀ1`` of rows ``rows`` (centred data)."""
+    def _products(self, rows, out=None) -> tuple[np.ndarray, np.ndarray, np.ndarray,
+                                                  np.ndarray]:
+        """``X_rᵀX_r``, ``X_rᵀY_r``, ``X_rᵀ1`` and ``Y_rᵀ1`` of rows ``rows`` (centred data),
+        written into ``out`` when given."""
         p, m = self.X.shape[1], self.y0.shape[1]
-        sxx, sxy, sx = np.zeros((p, p)), np.zeros((p, m)), np.zeros(p)
+        sxx, sxy, sx, sy = out if out is not None else (np.zeros((p, p)), np.zeros((p, m)),
+                                                         np.zeros(p), np.zeros(m))
         for block in self._blocks(rows):
             xb = np.subtract(self.X[block], self.x_mean)
             sxx += xb.T @ xb
             sxy += xb.T @ self.y0[block]
             sx += xb.sum(axis=0)
-        return sxx, sxy, sx, self.y0[rows].sum(axis=0)
+        sy += self.y0[rows].sum(axis=0)
+        return sxx, sxy, sx, sy
 
-    def fold(self, k: int, train: np.ndarray, test: np.ndarray,
-             n_settings: int) -> FoldOutput:
+    def _stacked_products(self, fold_rows: list) -> tuple[np.ndarray, ...]:
+        """:meth:`_products` of several row sets, stacked: (K, p, p), (K, p, m), (K, p), (K, m)."""
+        p, m = self.X.shape[1], self.y0.shape[1]
+        k = len(fold_rows)
+        stacked = (np.zeros((k, p, p)), np.zeros((k, p, m)), np.zeros((k, p)), np.zeros((k, m)))
+        for i, rows in enumerate(fold_rows):
+            self._products(rows, out=tuple(part[i] for part in stacked))
+        return stacked
+
+    def _fit(self, own: tuple[np.ndarray, ...], n_train: np.ndarray,
+             n_components: int) -> list[_TallFold]:
+        """Fit the folds whose held-out products are ``own`` (overwritten) together."""
+        sxx_v, sxy_v, sx_v, sy_v = own
+        sx_t = self.sx - sx_v
+        sy_t = self.sy - sy_v
+        mean_t = sx_t / n_train[:, None]
+        # Training cross-products, centred with the training mean: whole − held-out − rank 1.
+        cxx = np.subtract(self.sxx, sxx_v, out=sxx_v)
+        cxx -= sx_t[:, :, None] * mean_t[:, None, :]
+        cxy = np.subtract(self.sxy, sxy_v, out=sxy_v)
+        cxy -= sx_t[:, :, None] * (sy_t / n_train[:, None])[:, None, :]
+        sd = None
+        if self.scale:
+            sd = np.stack([_fold_scale(np.diagonal(c).copy(), k)
+                           for c, k in zip(cxx, n_train, strict=True)])
+            cxx /= sd[:, :, None]
+            cxx /= sd[:, None, :]
+            cxy /= sd[:, :, None]
+        fits = kernel_pls_batch(cxx, cxy, n_components)
+        return [_TallFold(self.x_mean + mean_t[i], self.y_offset + sy_t[i] / n_train[i],
+                          None if sd is None else sd[i], fit) for i, fit in enumerate(fits)]
+
+    def fold(self, k: int, train: np.ndarray, test: np.ndarray) -> FoldOutput:
         """Results for held-out ``test`` (fold ``k``) of the model fitted to ``train``.
 
         The held-out rows are centred and evaluated in blocks, so no temporary grows with
         the size of the fold.
         """
-        rows = rows_of(test)
-        n_train = train.size
-        sxx_v, sxy_v, sx_v, sy_v = (self._products(rows) if self.fold_products is None
-                                    else self.fold_products[k])
-        sx_t = self.sx - sx_v
-        sy_t = self.sy - sy_v
-        cxx = self.sxx - sxx_v
-        cxx -= np.outer(sx_t, sx_t / n_train)
-        cxy = self.sxy - sxy_v
-        cxy -= np.outer(sx_t, sy_t / n_train)
-        sd = _fold_scale(np.diag(cxx).copy(), n_train) if self.scale else None
-        if sd is not None:
-            cxx /= np.outer(sd, sd)
-            cxy /= sd[:, None]
-        f = kernel_pls(cxx, cxy, n_settings)
+        f = self.folds[k]
         parts = []
-        for block in self._blocks(rows):
+        for block in self._blocks(rows_of(test)):
             # The held-out rows, centred with the training mean (and scaled).
-            xb = np.subtract(self.X[block], self.x_mean)
-            xb -= sx_t / n_train
-            if sd is not None:
-                xb /= sd
-            parts.append(_fold_output(xb, self.y_offset + sy_t / n_train, xb @ f.rotations,
-                                      f.x_loadings, f.y_loadings, f.tau, n_train))
+            xb = np.subtract(self.X[block], f.x_mean)
+            if f.scale is not None:
+                xb /= f.scale
+            parts.append(_fold_output(xb, f.y_mean, xb @ f.factors.rotations,
+                                      f.factors.x_loadings, f.factors.y_loadings,
+                                      f.factors.tau, train.size))
         if len(parts) == 1:
             return parts[0]
         return FoldOutput(*(np.concatenate([getattr(part, name) for part in parts], axis=1)
                             for name in ("predictions", "q_residuals", "hotelling_t2")))
 
 
-def _without(gram: np.ndarray, rows: slice | np.ndarray, train: np.ndarray) -> np.ndarray:
-    """The training block ``gram[train][:, train]``: four block copies when the held-out
-    rows are consecutive, else two row/column gathers (both far cheaper than ``np.ix_``)."""
-    if not isinstance(rows, slice):
-        return gram.take(train, axis=0).take(train, axis=1)
-    a, b = rows.start, rows.stop
-    out = np.empty((train.size, train.size))
-    out[:a, :a], out[:a, a:] = gram[:a, :a], gram[:a, b:]
-    out[a:, :a], out[a:, a:] = gram[b:, :a], gram[b:, b:]
-    return out
-
-
 class WideEngine:
     """Gram-matrix PLS of all folds together (for p > n).
+
+    The Gram matrix of the whole set is computed once and every fold works on n-vectors that
+    are zero on its held-out rows (:func:`gram_pls_batch`): no fold copies a training block,
+    and each component is one matrix product for all folds together.
 
     Parameters
     ----------
@@ -235,91 +271,49 @@ class WideEngine:
     Y : ndarray of shape (n, m)
     scale : bool
         Autoscale X columns with each training fold's SD (the Gram matrix is then rebuilt per
-        fold, O(n_t²p)).
+        fold, O(n²p)).
     """
 
     def __init__(self, X: np.ndarray, Y: np.ndarray, scale: bool):
         _centre(self, X, Y, scale)
         self.x0 = X - self.x_mean
-        self.sx = self.x0.sum(axis=0)
         self.gram = None if scale else self.x0 @ self.x0.T
 
     def fold_all(self, splits: list[tuple[np.ndarray, np.ndarray]],
                  n_settings: int) -> list[FoldOutput]:
-        """Results of every fold, their PLS fits run together (:func:`gram_pls_batch`).
-
-        Folds with the same number of training samples form one batch, up to
-        :data:`_BATCH_BYTES` of Gram blocks at a time.
-        """
-        sizes = np.array([train.size for train, _ in splits])
-        outputs: list = [None] * len(splits)
-        for size in np.unique(sizes):
-            same = np.flatnonzero(sizes == size)
-            step = max(1, _BATCH_BYTES // (8 * int(size) ** 2))
-            for start in range(0, same.size, step):
-                group = same[start:start + step]
-                inputs = [self._inputs(*splits[i]) for i in group]
-                fits = gram_pls_batch(_stacked([f.gram_tt for f in inputs]),
-                                      _stacked([f.yc for f in inputs]), n_settings)
-                for i, f, fit in zip(group, inputs, fits, strict=True):
-                    outputs[i] = self._finish(f, fit)
+        """Results of every fold; up to :data:`_BATCH_BYTES` of fold vectors fitted at once."""
+        n, m = self.y0.shape
+        train = np.zeros((len(splits), n), dtype=bool)
+        for k, (rows, _) in enumerate(splits):
+            train[k, rows] = True
+        if self.scale:
+            outputs = []
+            for k, (rows, test) in enumerate(splits):
+                xt = self.x0[rows]
+                sd = _fold_scale(np.var(xt, axis=0) * rows.size, rows.size)
+                xs = self.x0 / sd
+                fit = gram_pls_batch(xs @ xs.T, self.y0, train[k:k + 1], n_settings)[0]
+                outputs.append(self._finish(xs, train[k], test, fit))
+            return outputs
+        step = max(1, _BATCH_BYTES // (8 * n * (4 * n_settings + 3 * m)))
+        outputs = []
+        for start in range(0, len(splits), step):
+            fits = gram_pls_batch(self.gram, self.y0, train[start:start + step], n_settings)
+            outputs += [self._finish(self.x0, train[start + i], splits[start + i][1], fit)
+                        for i, fit in enumerate(fits)]
         return outputs
 
-    def _inputs(self, train: np.ndarray, test: np.ndarray) -> _WideFold:
-        """What one fold's fit needs: centred Gram blocks, held-out spectra, centred y."""
-        n_train = train.size
-        xv = self.x0[rows_of(test)]
-        x_mean = (self.sx - xv.sum(axis=0)) / n_train
-        if self.scale:
-            xt = self.x0[train] - x_mean
-            sd = _fold_scale(np.einsum("ij,ij->j", xt, xt), n_train)
-            xt /= sd
-            x_val = (xv - x_mean) / sd
-            gram_tt = xt @ xt.T
-            gram_vt = x_val @ xt.T
-            x_rows, rows = xt, slice(None)
-        else:
-            x_val = xv - x_mean
-            # Double-centre the stored Gram blocks with the training mean only.
-            held = rows_of(test)
-            gram_tt = _without(self.gram, held, train)
-            k_mean = gram_tt.mean(axis=0)
-            gram_vt = self.gram[held].take(train, axis=1)
-            gram_vt -= k_mean
-            gram_vt -= gram_vt.mean(axis=1, keepdims=True)
-            gram_tt -= k_mean[:, None]
-            gram_tt -= k_mean - k_mean.mean()
-            # The training rows of the stored data, reached without copying them.
-            x_rows, rows = self.x0, train
-        yt = self.y0[train]
-        y_mean = yt.mean(axis=0)
-        return _WideFold(x_val, gram_tt, gram_vt, yt - y_mean, self.y_offset + y_mean, x_rows,
-                         rows)
-
-    def _finish(self, f: _WideFold, fit: GramFactors) -> FoldOutput:
+    def _finish(self, xs: np.ndarray, train: np.ndarray, test: np.ndarray,
+                fit: GramFactors) -> FoldOutput:
+        """Held-out results of one fold from its fit; ``xs`` are the (scaled) centred data."""
+        n_train = int(train.sum())
+        weights = train / n_train
+        held = rows_of(test)
+        x_val = xs[held] - weights @ xs
         # Pᵀ = TᵀX_t/τ; training scores sum to zero, so any centring of the rows gives the same P.
-        coef = np.zeros((fit.tau.size, f.x_rows.shape[0]))
-        coef[:, f.rows] = fit.scores.T / fit.tau[:, None]
-        return _fold_output(f.x_val, f.y_mean, f.gram_vt @ fit.rotation_coords,
-                            (coef @ f.x_rows).T, fit.y_loadings, fit.tau, f.yc.shape[0])
-
-
-def _stacked(arrays: list[np.ndarray]) -> np.ndarray:
-    """``np.stack`` without a copy for a single array."""
-    return arrays[0][None] if len(arrays) == 1 else np.stack(arrays)
-
-
-@dataclass
-class _WideFold:
-    """One fold's inputs in the Gram form (see :meth:`WideEngine._inputs`)."""
-
-    x_val: np.ndarray
-    gram_tt: np.ndarray
-    gram_vt: np.ndarray
-    yc: np.ndarray
-    y_mean: np.ndarray
-    x_rows: np.ndarray
-    rows: slice | np.ndarray
+        coef = fit.scores.T * (train / fit.tau[:, None])
+        return _fold_output(x_val, self.y_offset + weights @ self.y0, fit.scores[held],
+                            (coef @ xs).T, fit.y_loadings, fit.tau, n_train)
 
 
 @dataclass

@@ -356,10 +356,9 @@ def cross_validate_pls(X, Y, max_components: int, cv="interleaved:10", scale: bo
     # same stalls on a busy machine.
     with single_blas_thread():
         if tall:
-            once = (_held_out_counts(splits, n) == 1).all()
-            engine = TallEngine(X, Y2, scale, [test for _, test in splits] if once else None)
-            return _run(splits, Y2, settings, "n_components",
-                        lambda k, train, test: engine.fold(k, train, test, len(settings)))
+            once = bool((_held_out_counts(splits, n) == 1).all())
+            engine = TallEngine(X, Y2, scale, splits, len(settings), once)
+            return _run(splits, Y2, settings, "n_components", engine.fold)
         outputs = WideEngine(X, Y2, scale).fold_all(splits, len(settings))
         return _run(splits, Y2, settings, "n_components", lambda k, train, test: outputs[k])
 
