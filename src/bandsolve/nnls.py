@@ -28,7 +28,6 @@ References
 from __future__ import annotations
 
 import functools
-import itertools
 from dataclasses import dataclass
 
 import numpy as np
@@ -55,46 +54,95 @@ class NNLSResult:
     objective: np.ndarray
 
 
-def _by_row(op: np.ufunc, values: np.ndarray) -> np.ndarray:
-    """``op.reduce(values, axis=1)`` for few columns, one vector operation per column: numpy's
-    reduction along a short last axis costs a call per row, 7× slower for k = 4."""
-    return functools.reduce(op, values.T)
+class _PassiveInverses:
+    """``(G_PP)⁻¹`` for every passive set P met, each formed once, as a k×k matrix that is zero
+    outside P×P, so that ``inverse @ h`` is the minimizer on P."""
+
+    def __init__(self, gram: np.ndarray, bound: np.ndarray):
+        self.gram = gram
+        # One bit per constrained coefficient (free ones are always passive): a set's number.
+        self.bits = np.where(bound, 2.0 ** (np.cumsum(bound) - 1), 0.0)
+        m = int(bound.sum())
+        # Up to 2^16 sets a table from set number to stored inverse (no sorting per round).
+        self.slot = np.full(2**m, -1) if m <= 16 else None
+        self.stack = np.empty((0, *gram.shape))
+
+    def _invert(self, sets: np.ndarray) -> np.ndarray:
+        inside = sets[:, :, None] & sets[:, None, :]
+        # The identity outside P keeps every matrix invertible without changing the P block.
+        outside = np.eye(len(self.gram)) * ~sets[:, :, None]
+        inverse = np.linalg.inv(np.where(inside, self.gram, outside))
+        inverse[~inside] = 0.0
+        return inverse
+
+    def __call__(self, passive: np.ndarray) -> np.ndarray:
+        """The inverse for each row's passive set, shape (n, k, k)."""
+        numbers = (passive @ self.bits).astype(np.intp)
+        if self.slot is None:
+            _, first, which = np.unique(numbers, return_index=True, return_inverse=True)
+            return self._invert(passive[first])[which.reshape(-1)]
+        which = self.slot[numbers]
+        new = which < 0
+        if new.any():
+            fresh, first = np.unique(numbers[new], return_index=True)
+            self.slot[fresh] = len(self.stack) + np.arange(len(fresh))
+            self.stack = np.concatenate([self.stack, self._invert(passive[new][first])])
+            which = self.slot[numbers]
+        return np.take(self.stack, which, axis=0)
 
 
-def _row_argmax(values: np.ndarray) -> np.ndarray:
-    """``values.argmax(axis=1)`` for few columns, one vector operation per column (numpy's
+def _row_max(values: np.ndarray) -> np.ndarray:
+    """``values.max(axis=1)`` for few columns, one vector operation per column (numpy's
     reduction along a short last axis costs a call per row)."""
-    best = np.zeros(values.shape[0], dtype=int)
-    top = values[:, 0].copy()
-    for j in range(1, values.shape[1]):
-        better = values[:, j] > top
-        best[better] = j
-        top[better] = values[better, j]
-    return best
+    return functools.reduce(np.maximum, values.T)
 
 
-def _solve_passive(gram: np.ndarray, h: np.ndarray, passive: np.ndarray,
-                   inverses: dict) -> np.ndarray:
-    """Unconstrained minimizers on each row's passive set (zeros elsewhere).
+def _row_min(values: np.ndarray) -> np.ndarray:
+    """``values.min(axis=1)``, as :func:`_row_max`."""
+    return functools.reduce(np.minimum, values.T)
 
-    Rows sharing a passive set P are solved together with the inverse of ``G_PP``, computed
-    once per set and kept in ``inverses``.
+
+def _gradient_tolerance(gram: np.ndarray, h: np.ndarray, coef: np.ndarray) -> np.ndarray:
+    """Per row, the size of rounding in the gradient ``Gc − h``: 1000 units in the last place
+    of its largest terms."""
+    size = _row_max(np.abs(h)) + np.abs(gram).max() * _row_max(np.abs(coef))
+    return 1e3 * np.finfo(float).eps * size
+
+
+def _optimal(gram: np.ndarray, h: np.ndarray, coef: np.ndarray, passive: np.ndarray,
+             bound: np.ndarray) -> np.ndarray:
+    """Which rows satisfy the optimality (Karush-Kuhn-Tucker) conditions to rounding: the
+    gradient ``Gc − h`` vanishes on the passive set and is ≥ 0 where a concentration is held
+    at zero, and constrained coefficients are ≥ 0 (Lawson & Hanson 1974, ch. 23)."""
+    grad = coef @ gram - h
+    tol = _gradient_tolerance(gram, h, coef)[:, None]
+    kkt = np.where(passive, np.abs(grad) <= tol, grad >= -tol) & (~bound | (coef >= 0.0))
+    return functools.reduce(np.logical_and, kkt.T)
+
+
+def _exact_rows(gram: np.ndarray, h: np.ndarray, bound: np.ndarray) -> np.ndarray:
+    """The same minimizers, one row at a time, with ``scipy.optimize.nnls``.
+
+    Free coefficients are eliminated first (Schur complement); with the reduced Gram matrix
+    ``S = RᵀR`` the objective is ``‖Rc − R⁻ᵀh‖²`` up to a constant, a k×k NNLS problem.
     """
-    z = np.zeros_like(h)
-    keys = passive @ (1 << np.arange(passive.shape[1]))
-    order = np.argsort(keys, kind="stable")
-    ordered = keys[order]
-    edges = np.flatnonzero(np.r_[True, ordered[1:] != ordered[:-1], True])
-    for start, stop in itertools.pairwise(edges):
-        key = int(ordered[start])
-        if key not in inverses:
-            cols = np.flatnonzero(passive[order[start]])
-            inverses[key] = cols, np.linalg.inv(gram[np.ix_(cols, cols)]) if key else None
-        cols, inverse = inverses[key]
-        if key:
-            rows = order[start:stop, None]
-            z[rows, cols] = h[rows, cols] @ inverse
-    return z
+    from scipy.linalg import cho_factor, cho_solve, solve_triangular
+    from scipy.optimize import nnls
+
+    free = ~bound
+    elim = np.linalg.solve(gram[np.ix_(free, free)], gram[free]) if free.any() else None
+    reduced, target = gram[bound][:, bound], h[:, bound]
+    if elim is not None:
+        reduced = reduced - gram[np.ix_(bound, free)] @ elim[:, bound]
+        target = target - h[:, free] @ elim[:, bound]
+    upper = np.linalg.cholesky(reduced).T
+    rhs = solve_triangular(upper, target.T, trans="T").T
+    coef = np.zeros_like(h)
+    coef[:, bound] = [nnls(upper, row, maxiter=50 * len(upper))[0] for row in rhs]
+    if elim is not None:
+        factor = cho_factor(gram[np.ix_(free, free)])
+        coef[:, free] = cho_solve(factor, (h[:, free] - coef[:, bound] @ gram[bound][:, free]).T).T
+    return coef
 
 
 def nnls_gram(gram, h, constrained=None, max_iter: int | None = None) -> NNLSResult:
@@ -110,9 +158,8 @@ def nnls_gram(gram, h, constrained=None, max_iter: int | None = None) -> NNLSRes
         Which coefficients must be ≥ 0 (default: all), e.g. the analytes but not the
         baseline terms.
     max_iter : int, optional
-        Largest number of variables added to the passive sets (default ``3k``, as
-        ``scipy.optimize.nnls``); rows still not optimal then keep their last feasible
-        solution.
+        Most exchange rounds after the starting guess (default ``3k``); rows not optimal by
+        then are solved one at a time by ``scipy.optimize.nnls``.
 
     Returns
     -------
@@ -124,6 +171,11 @@ def nnls_gram(gram, h, constrained=None, max_iter: int | None = None) -> NNLSRes
     unique: any correct solver, scipy's per-spectrum ``nnls`` on ``(Kᵀ, x − bg)`` included,
     returns the same coefficients up to rounding.  The normal-equation form squares the
     condition number of K, which costs digits only for nearly collinear pure spectra.
+
+    Every row's answer is checked against the optimality (Karush-Kuhn-Tucker) conditions
+    before it is returned: the gradient ``Gc − h`` vanishes on the free and positive
+    coefficients and is ≥ 0 on those held at zero, to rounding.  A row that fails (nearly
+    degenerate problems only) is solved again by ``scipy.optimize.nnls``.
 
     Examples
     --------
@@ -137,43 +189,52 @@ def nnls_gram(gram, h, constrained=None, max_iter: int | None = None) -> NNLSRes
     h = np.atleast_2d(np.asarray(h, dtype=float))
     n, k = h.shape
     bound = np.ones(k, bool) if constrained is None else np.asarray(constrained, bool)
-    limit = 3 * k if max_iter is None else int(max_iter)
-    eps = 1e3 * np.finfo(float).eps  # relative size of rounding in the gradient h − Gc
-    passive = np.broadcast_to(~bound, (n, k)).copy()
-    inverses: dict = {}
-    coef = _solve_passive(gram, h, passive, inverses)
-    h_size = _by_row(np.maximum, np.abs(h))
-    g_size = np.abs(gram).max()
-    todo = np.arange(n)  # rows not yet known to be optimal
+    limit = 5 * k if max_iter is None else int(max_iter)
+    inverses = _PassiveInverses(gram, bound)
+    # Start from the unconstrained minimizer with its negative concentrations set to zero:
+    # feasible, and for most spectra one or two steps from the optimum.
+    c = h @ np.linalg.inv(gram)
+    np.maximum(c, 0.0, out=c, where=bound)
+    free = (c > 0.0) | ~bound
+    tol = _gradient_tolerance(gram, h, c)
+    coef, passive = np.zeros_like(h), free.copy()
+    rows, hh = np.arange(n), h  # the spectra not yet solved, and their products
     for _ in range(limit):
-        # Lawson-Hanson: add the constrained variable whose gradient most wants it positive.
-        w = h[todo] - coef[todo] @ gram
-        tol = eps * (h_size[todo] + g_size * _by_row(np.maximum, np.abs(coef[todo])))
-        wants = bound & ~passive[todo] & (w > tol[:, None])
-        more = _by_row(np.logical_or, wants)
-        todo, wants, w = todo[more], wants[more], w[more]
-        if todo.size == 0:
+        z = np.einsum("nij,nj->ni", inverses(free), hh)
+        # Lawson-Hanson: if the minimizer on the passive set is not feasible, move from c
+        # towards it until the first concentration reaches zero, and hold that one at zero.
+        bad = (z <= 0.0) & free & bound
+        ratio = np.full(z.shape, np.inf)
+        np.divide(c, np.maximum(c - z, np.finfo(float).tiny), out=ratio, where=bad)
+        step = _row_min(ratio)
+        feasible = step > 1.0
+        c += np.minimum(step, 1.0)[:, None] * (z - c)
+        np.copyto(c, z, where=feasible[:, None])
+        held = bad & ((ratio <= step[:, None]) | (c <= 0.0))
+        c[held] = 0.0
+        free &= ~held
+        # At a feasible minimizer, free the held concentration whose gradient most wants it
+        # positive; if none does, the spectrum is solved.
+        w = np.where(free | ~feasible[:, None], -np.inf, hh - c @ gram)
+        best = np.argmax(w, axis=1)
+        more = np.take_along_axis(w, best[:, None], axis=1)[:, 0] > tol
+        free[more, best[more]] = True
+        done = np.flatnonzero(feasible & ~more)
+        coef[rows[done]], passive[rows[done]] = c[done], free[done]
+        keep = np.flatnonzero(~feasible | more)
+        rows, c, free, hh, tol = rows[keep], c[keep], free[keep], hh[keep], tol[keep]
+        if rows.size == 0:
             break
-        passive[todo, _row_argmax(np.where(wants, w, -np.inf))] = True
-        rows = todo
-        for _inner in range(k + 1):
-            z = _solve_passive(gram, h[rows], passive[rows], inverses)
-            bad = passive[rows] & bound & (z <= 0.0)
-            fine = ~_by_row(np.logical_or, bad)
-            coef[rows[fine]] = z[fine]
-            rows, z, bad = rows[~fine], z[~fine], bad[~fine]
-            if rows.size == 0:
-                break
-            # Step from the feasible point towards z until the first coefficient reaches 0;
-            # it (and any other that reached 0) leaves the passive set.
-            c = coef[rows]
-            ratio = np.full(c.shape, np.inf)
-            ratio[bad] = c[bad] / np.maximum(c[bad] - z[bad], np.finfo(float).tiny)
-            step = _by_row(np.minimum, ratio)[:, None]
-            c += step * (z - c)
-            leave = bound & passive[rows] & ((ratio == step) | (c <= 0.0))
-            c[leave] = 0.0
-            passive[rows] &= ~leave
-            coef[rows] = c
-    objective = np.einsum("ij,ij->i", coef @ gram, coef) - 2.0 * np.einsum("ij,ij->i", coef, h)
+    passive[rows] = ~bound  # not solved within the limit: left to the check below
+    # Check every spectrum; where rounding in the inverse leaves too large a gradient on the
+    # passive set, one step of iterative refinement; what still fails is solved one by one.
+    retry = np.flatnonzero(~_optimal(gram, h, coef, passive, bound))
+    if retry.size:
+        coef[retry] += np.einsum("nij,nj->ni", inverses(passive[retry]),
+                                 h[retry] - coef[retry] @ gram)
+        retry = retry[~_optimal(gram, h[retry], coef[retry], passive[retry], bound)]
+    if retry.size:
+        coef[retry] = _exact_rows(gram, h[retry], bound)
+        passive[retry] = (coef[retry] != 0.0) | ~bound
+    objective = ((coef @ gram - 2.0 * h) * coef) @ np.ones(k)
     return NNLSResult(coef, bound & ~passive, objective)
