@@ -9,10 +9,15 @@ the spectrum again.  :func:`nnls_gram` solves it with some coefficients constrai
 (baseline terms).
 
 The solver is the active-set method of Lawson & Hanson in its normal-equation form
-(Bro & De Jong 1997), run for all spectra together: at each step the spectra that share a
-passive set are solved with one small factorization (the grouping of Van Benthem & Keenan
-2004), so the cost is a few k×k solves per distinct pattern instead of one Python-level
-solver call per spectrum.
+(Bro & De Jong 1997), run for all spectra together with masks instead of a loop over
+spectra.  Each spectrum starts from its unconstrained estimate with the negative
+concentrations set to zero, which is usually within one or two steps of the answer; at each
+round every spectrum not yet solved takes one Lawson-Hanson step (free one concentration, or
+hold one at zero).  The minimizer on a passive set P needs ``(G_PP)⁻¹``: it is formed once
+per distinct set met (a few dozen to a few hundred of the 2^m possible; the reuse of Van
+Benthem & Keenan 2004) and applied to all the spectra that share it.  Every answer is then
+checked against the optimality conditions, and a spectrum that fails (nearly degenerate
+problems only) is solved again on its own.
 
 References
 ----------
@@ -123,25 +128,21 @@ def _optimal(gram: np.ndarray, h: np.ndarray, coef: np.ndarray, passive: np.ndar
 def _exact_rows(gram: np.ndarray, h: np.ndarray, bound: np.ndarray) -> np.ndarray:
     """The same minimizers, one row at a time, with ``scipy.optimize.nnls``.
 
-    Free coefficients are eliminated first (Schur complement); with the reduced Gram matrix
-    ``S = RᵀR`` the objective is ``‖Rc − R⁻ᵀh‖²`` up to a constant, a k×k NNLS problem.
+    The free coefficients are eliminated first (Schur complement S of their block); with
+    ``S = RᵀR`` the objective is ``‖Rc − R⁻ᵀh‖²`` up to a constant, an NNLS problem of the
+    constrained coefficients alone.
     """
-    from scipy.linalg import cho_factor, cho_solve, solve_triangular
-    from scipy.optimize import nnls
+    from scipy.optimize import nnls  # needed only for nearly degenerate problems
 
     free = ~bound
-    elim = np.linalg.solve(gram[np.ix_(free, free)], gram[free]) if free.any() else None
-    reduced, target = gram[bound][:, bound], h[:, bound]
-    if elim is not None:
-        reduced = reduced - gram[np.ix_(bound, free)] @ elim[:, bound]
-        target = target - h[:, free] @ elim[:, bound]
-    upper = np.linalg.cholesky(reduced).T
-    rhs = solve_triangular(upper, target.T, trans="T").T
+    g_ff, g_fb = gram[np.ix_(free, free)], gram[np.ix_(free, bound)]
+    elim = np.linalg.solve(g_ff, g_fb)
+    upper = np.linalg.cholesky(gram[np.ix_(bound, bound)] - g_fb.T @ elim).T
+    target = np.linalg.solve(upper.T, (h[:, bound] - h[:, free] @ elim).T).T
     coef = np.zeros_like(h)
-    coef[:, bound] = [nnls(upper, row, maxiter=50 * len(upper))[0] for row in rhs]
-    if elim is not None:
-        factor = cho_factor(gram[np.ix_(free, free)])
-        coef[:, free] = cho_solve(factor, (h[:, free] - coef[:, bound] @ gram[bound][:, free]).T).T
+    if bound.any():  # (scipy's nnls must not be called with no columns)
+        coef[:, bound] = [nnls(upper, row, maxiter=50 * len(upper))[0] for row in target]
+    coef[:, free] = np.linalg.solve(g_ff, (h[:, free] - coef[:, bound] @ g_fb.T).T).T
     return coef
 
 
@@ -158,12 +159,13 @@ def nnls_gram(gram, h, constrained=None, max_iter: int | None = None) -> NNLSRes
         Which coefficients must be ≥ 0 (default: all), e.g. the analytes but not the
         baseline terms.
     max_iter : int, optional
-        Most exchange rounds after the starting guess (default ``3k``); rows not optimal by
-        then are solved one at a time by ``scipy.optimize.nnls``.
+        Most rounds (steps of the active-set method) for the batch (default ``5k``); rows
+        not solved by then are solved one at a time by ``scipy.optimize.nnls``.
 
     Returns
     -------
     NNLSResult
+        Rows of h that are not finite get NaN coefficients and no coefficient at the bound.
 
     Notes
     -----
@@ -188,6 +190,7 @@ def nnls_gram(gram, h, constrained=None, max_iter: int | None = None) -> NNLSRes
     gram = np.asarray(gram, dtype=float)
     h = np.atleast_2d(np.asarray(h, dtype=float))
     n, k = h.shape
+    finite = functools.reduce(np.logical_and, np.isfinite(h).T)
     bound = np.ones(k, bool) if constrained is None else np.asarray(constrained, bool)
     limit = 5 * k if max_iter is None else int(max_iter)
     inverses = _PassiveInverses(gram, bound)
@@ -228,7 +231,7 @@ def nnls_gram(gram, h, constrained=None, max_iter: int | None = None) -> NNLSRes
     passive[rows] = ~bound  # not solved within the limit: left to the check below
     # Check every spectrum; where rounding in the inverse leaves too large a gradient on the
     # passive set, one step of iterative refinement; what still fails is solved one by one.
-    retry = np.flatnonzero(~_optimal(gram, h, coef, passive, bound))
+    retry = np.flatnonzero(finite & ~_optimal(gram, h, coef, passive, bound))
     if retry.size:
         coef[retry] += np.einsum("nij,nj->ni", inverses(passive[retry]),
                                  h[retry] - coef[retry] @ gram)
@@ -236,5 +239,6 @@ def nnls_gram(gram, h, constrained=None, max_iter: int | None = None) -> NNLSRes
     if retry.size:
         coef[retry] = _exact_rows(gram, h[retry], bound)
         passive[retry] = (coef[retry] != 0.0) | ~bound
+    coef[~finite], passive[~finite] = np.nan, True  # a spectrum with missing values: no estimate
     objective = ((coef @ gram - 2.0 * h) * coef) @ np.ones(k)
     return NNLSResult(coef, bound & ~passive, objective)
