@@ -255,3 +255,19 @@ def test_real_three_aromatics_spectra():
     # 220-600 nm at 1 nm steps, 15 spectra (dataset SOURCE.md)
     assert (s.axis[0], s.axis[-1], s.n_points, s.n_samples) == (220.0, 600.0, 381, 15)
     assert s.axis_unit == "nm" and s.quantity == "absorbance"
+
+
+def test_readers_hand_their_parsed_array_over_read_only_without_a_copy(tmp_path):
+    from bandsolve.io._build import Options, build
+
+    parsed = np.arange(6.0).reshape(2, 3)
+    spectra = build(np.array([400.0, 410.0, 420.0]), parsed, ["a", "b"], ["row 2", "row 3"],
+                    Options(axis_unit="nm"), "x.csv")
+    # The set is a view of what the reader parsed (no second copy), which nobody can change.
+    assert np.shares_memory(spectra.values, parsed)
+    assert not parsed.flags.writeable
+    path = tmp_path / "w.csv"
+    path.write_text("sample,400,410,420\n" + "".join(f"s{i},1,2,{i}\n" for i in range(5)))
+    whole = read_spectra(path, axis_unit="nm")
+    assert not whole.values.flags.owndata and not whole.values.flags.writeable
+    assert whole.values[:, 2].tolist() == [0, 1, 2, 3, 4]

@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from bandsolve._interp import interp_rows
 from bandsolve._spectra_checks import (
     check_axis,
     check_finite,
@@ -274,10 +275,7 @@ class SpectralSet:
             )
         # Points inside the end slack take the end value (np.interp holds the end values), so
         # the result lies exactly on the requested grid.
-        out = np.empty((self.n_samples, target.size))
-        for i, row in enumerate(self.values):
-            out[i] = np.interp(target, self.axis, row)
-        return self._new(axis=target, values=out)
+        return self._new(axis=target, values=interp_rows(target, self.axis, self.values))
 
     def on_grid(self, axis: np.ndarray, axis_unit: str) -> SpectralSet:
         """As absorbance on ``axis`` (in ``axis_unit``): converted and resampled as needed."""

@@ -77,7 +77,12 @@ def build(axis: np.ndarray, values: np.ndarray, ids: Sequence[str], places: Sequ
     ``places`` says where each spectrum is in the file (for example ``"row 5"``) so a
     repeated id can be reported by position. ``unit_from`` records where a given axis unit
     came from (``"argument"``, ``"file"``, or ``"guess"``/``"default"`` when passed on).
+    ``values`` must be the reader's own array: it is made read-only.
     """
+    # The reader's own parsed array, handed over read-only: the set takes it as a view
+    # instead of a second copy (SpectralSet copies only arrays that could still change).
+    values = np.ascontiguousarray(values, dtype=np.float64)
+    values.setflags(write=False)
     ids = [str(s).strip() for s in ids]
     for k, s in enumerate(ids):
         if not s:
