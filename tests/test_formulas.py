@@ -67,3 +67,13 @@ def test_results_csv_and_ledger_export_are_formula_safe(tmp_path, capsys):
     raw = pd.read_csv(tmp_path / "raw.csv", keep_default_na=False, dtype={"sample": str})
     assert list(raw["sample"]) == ids
     capsys.readouterr()
+
+
+def test_mixed_object_columns_keep_what_is_not_text():
+    frame = pd.DataFrame({"note": ["=A1", None, 3, "-0.5", "ok", float("nan")],
+                          "count": pd.Series([1, 2, 3, 4, 5, 6], dtype=object)})
+    safe = neutralise_formulas(frame)
+    # Only text starting like a formula changes (OWASP CSV injection); None, numbers, NaN stay.
+    assert safe["note"].tolist()[:5] == ["'=A1", None, 3, "-0.5", "ok"]
+    assert np.isnan(safe["note"].iloc[5])
+    assert safe["count"].tolist() == [1, 2, 3, 4, 5, 6]

@@ -36,11 +36,28 @@ def neutralise_text(text: str) -> str:
 
 
 def neutralise_formulas(frame: pd.DataFrame) -> pd.DataFrame:
-    """A copy of ``frame`` whose text cells and column names cannot start a formula."""
+    """A copy of ``frame`` whose text cells and column names cannot start a formula.
+
+    Cells are screened by their first character at array speed; only the few that start like
+    a formula go through :func:`neutralise_text` (a results table of 200,000 rows took 1 s
+    cell by cell).
+    """
     text = [c for c in frame.columns if frame[c].dtype == object or pd.api.types.is_string_dtype(
         frame[c].dtype)]
-    changed = {c: frame[c].map(lambda v: neutralise_text(v) if isinstance(v, str) else v)
-               for c in text}
+    changed = {}
+    for name in text:
+        column = frame[name]
+        risky = _may_start_formula(column)
+        if risky.any():
+            changed[name] = column.mask(risky, column[risky].map(neutralise_text))
     out = frame.assign(**changed) if changed else frame
     names = [neutralise_text(str(c)) for c in out.columns]
     return out.set_axis(names, axis=1) if names != list(out.columns) else out
+
+
+def _may_start_formula(column: pd.Series) -> pd.Series:
+    """True for the text cells of ``column`` that start with a :data:`RISKY_STARTS` character."""
+    try:
+        return column.str.startswith(RISKY_STARTS, na=False).astype(bool)
+    except AttributeError:  # no text at all (an object column of numbers, say)
+        return column.map(lambda v: isinstance(v, str) and v.startswith(RISKY_STARTS)).astype(bool)
