@@ -298,7 +298,7 @@ def _results(model: Calibration, payloads, n_jobs: int):
         return (_task(model, pos, p) for pos, p in payloads)
     from joblib import Parallel, delayed
 
-    return Parallel(n_jobs=n_jobs, return_as="generator", pre_dispatch="2*n_jobs")(
+    return Parallel(n_jobs=n_jobs, return_as="generator", pre_dispatch="n_jobs")(
         delayed(_task)(model, pos, p) for pos, p in payloads)
 
 
