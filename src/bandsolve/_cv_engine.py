@@ -29,6 +29,7 @@ References
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import dataclass
 
 import numpy as np
@@ -82,15 +83,17 @@ def _fold_output(x_val: np.ndarray, y_mean: np.ndarray, val_scores: np.ndarray,
     if val_scores.shape[1] == 0:
         return FoldOutput(np.broadcast_to(y_mean, (1, n_val, y_mean.size)),
                           np.einsum("ij,ij->i", x_val, x_val)[None], np.zeros((1, n_val)))
-    # The models are nested: ŷ_a = ȳ + Σ_{j≤a} t_j q_jᵀ.
-    terms = val_scores.T[:, :, None] * y_loadings.T[:, None, :]
-    pred = np.cumsum(terms, axis=0, out=terms)
-    pred += y_mean
-    q_res = residual_ss_path(x_val, val_scores, x_loadings)
+    # The models are nested: ŷ_a = ȳ + Σ_{j≤a} t_j q_jᵀ.  Running sums component by
+    # component (whole contiguous rows) rather than np.cumsum along the first axis.
+    pred = val_scores.T[:, :, None] * y_loadings.T[:, None, :]
+    pred[0] += y_mean
     # Training scores are orthogonal, so S_T = TᵀT/(n−1) is diagonal with τ_a/(n−1).
     t2 = np.square(val_scores.T)
-    t2 /= tau[:, None] / (n_train - 1)
-    return FoldOutput(pred, q_res, np.cumsum(t2, axis=0, out=t2))
+    t2 *= ((n_train - 1) / tau)[:, None]
+    for a in range(1, pred.shape[0]):
+        pred[a] += pred[a - 1]
+        t2[a] += t2[a - 1]
+    return FoldOutput(pred, residual_ss_path(x_val, val_scores, x_loadings), t2)
 
 
 def _fold_scale(ss_diag: np.ndarray, n_train: int) -> np.ndarray:
@@ -116,8 +119,10 @@ def rows_of(test: np.ndarray) -> slice | np.ndarray:
     return test
 
 
-#: Rows of X centred at a time while the cross-products are accumulated (≈ 4 MB blocks).
-_BLOCK_BYTES = 1 << 22
+#: Rows of X centred at a time while the cross-products are accumulated and the held-out rows
+#: evaluated (≈ 1 MB blocks: larger temporaries are returned to the system after each block
+#: and cost page faults when taken again).
+_BLOCK_BYTES = 1 << 20
 #: Working memory of the folds fitted together (bytes): the stacked p×p cross-products of the
 #: tall engine, the n-vectors of the wide engine.  All folds of a usual CV fit in one batch.
 _BATCH_BYTES = 1 << 25
@@ -183,7 +188,7 @@ class TallEngine:
                                     n_components)
 
     def _blocks(self, rows: slice | np.ndarray):
-        """Row blocks (≈ 4 MB of X each) of ``rows``, as slices or index arrays."""
+        """Row blocks (≈ 1 MB of X each) of ``rows``, as slices or index arrays."""
         if isinstance(rows, slice):
             return [slice(i, min(i + self.step, rows.stop))
                     for i in range(rows.start, rows.stop, self.step)]
@@ -222,7 +227,8 @@ class TallEngine:
         mean_t = sx_t / n_train[:, None]
         # Training cross-products, centred with the training mean: whole − held-out − rank 1.
         cxx = np.subtract(self.sxx, sxx_v, out=sxx_v)
-        cxx -= sx_t[:, :, None] * mean_t[:, None, :]
+        for c, u, w in zip(cxx, sx_t, mean_t, strict=True):  # fold by fold: no K·p² temporary
+            c -= np.outer(u, w)
         cxy = np.subtract(self.sxy, sxy_v, out=sxy_v)
         cxy -= sx_t[:, :, None] * (sy_t / n_train[:, None])[:, None, :]
         sd = None
@@ -236,26 +242,22 @@ class TallEngine:
         return [_TallFold(self.x_mean + mean_t[i], self.y_offset + sy_t[i] / n_train[i],
                           None if sd is None else sd[i], fit) for i, fit in enumerate(fits)]
 
-    def fold(self, k: int, train: np.ndarray, test: np.ndarray) -> FoldOutput:
+    def fold(self, k: int, train: np.ndarray,
+             test: np.ndarray) -> Iterator[tuple[slice | np.ndarray, FoldOutput]]:
         """Results for held-out ``test`` (fold ``k``) of the model fitted to ``train``.
 
-        The held-out rows are centred and evaluated in blocks, so no temporary grows with
-        the size of the fold.
+        The held-out rows are centred and evaluated in blocks, each yielded with its rows, so
+        no temporary grows with the size of the fold.
         """
         f = self.folds[k]
-        parts = []
         for block in self._blocks(rows_of(test)):
             # The held-out rows, centred with the training mean (and scaled).
             xb = np.subtract(self.X[block], f.x_mean)
             if f.scale is not None:
                 xb /= f.scale
-            parts.append(_fold_output(xb, f.y_mean, xb @ f.factors.rotations,
+            yield block, _fold_output(xb, f.y_mean, xb @ f.factors.rotations,
                                       f.factors.x_loadings, f.factors.y_loadings,
-                                      f.factors.tau, train.size))
-        if len(parts) == 1:
-            return parts[0]
-        return FoldOutput(*(np.concatenate([getattr(part, name) for part in parts], axis=1)
-                            for name in ("predictions", "q_residuals", "hotelling_t2")))
+                                      f.factors.tau, train.size)
 
 
 class WideEngine:

@@ -237,11 +237,15 @@ def residual_ss_path(xs: np.ndarray, scores: np.ndarray, x_loadings: np.ndarray)
     resid = xs - scores @ x_loadings.T
     gram = x_loadings.T @ x_loadings
     upper = np.triu(gram) + np.triu(gram, 1)
-    terms = scores * (2.0 * (resid @ x_loadings) + scores @ upper.T)
-    dropped = np.cumsum(terms[:, :0:-1], axis=1)[:, ::-1]  # column a-1: Σ over j > a
+    # terms[j] = t_j (2 p_jᵀe + M_jj t_j + 2 Σ_{k>j} M_jk t_k), one row per component.
+    terms = x_loadings.T @ resid.T
+    terms *= 2.0
+    terms += upper @ scores.T
+    terms *= scores.T
     q_res = np.empty((n_comp, xs.shape[0]))
-    q_res[-1] = np.einsum("ij,ij->i", resid, resid)
-    q_res[:-1] = q_res[-1] + dropped.T
+    np.einsum("ij,ij->i", resid, resid, out=q_res[-1])
+    for a in range(n_comp - 2, -1, -1):  # row a: the components after a+1 dropped
+        np.add(q_res[a + 1], terms[a + 1], out=q_res[a])
     return q_res
 
 

@@ -243,7 +243,8 @@ def _held_out_counts(splits, n: int) -> np.ndarray:
 def _run(splits, Y: np.ndarray, settings: tuple, setting_name: str, fold_fn) -> CVResult:
     """Collect fold outputs into whole-set arrays.
 
-    When every sample is held out exactly once (the usual case) each fold writes its rows
+    ``fold_fn(k, train, test)`` yields ``(rows, FoldOutput)`` pieces covering ``test``.  When
+    every sample is held out exactly once (the usual case) each fold writes its rows
     directly (through a slice when they are consecutive); samples held out several times
     (repeats) are averaged.
     """
@@ -259,26 +260,23 @@ def _run(splits, Y: np.ndarray, settings: tuple, setting_name: str, fold_fn) -> 
     fold_mse = np.empty((n_set, len(splits), m))
     fold_index = np.full(n, -1)
     for k, (train, test) in enumerate(splits):
-        out = fold_fn(k, train, test)
-        rows = rows_of(test) if once else test
-        sq = np.subtract(out.predictions, Y[rows])
-        np.square(sq, out=sq)
-        fold_sq = np.empty((n_set, m))
-        put_path(fold_sq, slice(None), sq.sum(axis=1))
+        fold_sq = np.zeros((n_set, m))
+        for rows, out in fold_fn(k, train, test):
+            sq = np.subtract(out.predictions, Y[rows])
+            np.square(sq, out=sq)
+            put_path(fold_sq, slice(None), sq.sum(axis=1), add=True)
+            if diag is None and out.q_residuals is not None:
+                diag = [new((n_set, n)), new((n_set, n))]
+            put_path(predictions, rows, out.predictions, add=not once)
+            if diag is not None:
+                put_path(diag[0], rows, out.q_residuals, add=not once)
+                put_path(diag[1], rows, out.hotelling_t2, add=not once)
+            if not once:
+                put_path(sum_sq, rows, sq, add=True)
         press += fold_sq
         fold_mse[:, k] = fold_sq / test.size
-        if diag is None and out.q_residuals is not None:
-            diag = [new((n_set, n)), new((n_set, n))]
-        put_path(predictions, rows, out.predictions, add=not once)
-        if diag is not None:
-            put_path(diag[0], rows, out.q_residuals, add=not once)
-            put_path(diag[1], rows, out.hotelling_t2, add=not once)
-        if once:
-            fold_index[rows] = k
-        else:
-            put_path(sum_sq, test, sq, add=True)
-            first = test[fold_index[test] < 0]
-            fold_index[first] = k
+        first = test[fold_index[test] < 0]
+        fold_index[first] = k
     if once:
         mse = press / n
     else:
@@ -360,7 +358,8 @@ def cross_validate_pls(X, Y, max_components: int, cv="interleaved:10", scale: bo
             engine = TallEngine(X, Y2, scale, splits, len(settings), once)
             return _run(splits, Y2, settings, "n_components", engine.fold)
         outputs = WideEngine(X, Y2, scale).fold_all(splits, len(settings))
-        return _run(splits, Y2, settings, "n_components", lambda k, train, test: outputs[k])
+        return _run(splits, Y2, settings, "n_components",
+                    lambda k, train, test: [(rows_of(test), outputs[k])])
 
 
 def cross_validate_estimator(estimator, X, Y, cv="interleaved:10", groups=None) -> CVResult:
@@ -391,6 +390,6 @@ def cross_validate_estimator(estimator, X, Y, cv="interleaved:10", groups=None) 
     def fold(k, train, test):
         model = clone(estimator).fit(X[train], y_fit[train])
         pred = np.asarray(model.predict(X[test]), dtype=np.float64).reshape(test.size, -1)
-        return FoldOutput(pred[None], None, None)
+        return [(rows_of(test), FoldOutput(pred[None], None, None))]
 
     return _run(splits, Y2, (type(estimator).__name__,), "estimator", fold)
