@@ -370,10 +370,15 @@ class PLSRegressor(RecordedState, TransformerMixin, RegressorMixin, BaseEstimato
         """Leverage ``1/n + tᵀ(TᵀT)⁻¹t`` of spectra X (n_new, p) against the training scores."""
         return score_leverage(self.transform(X), self.x_scores_)
 
-    def residuals(self, X) -> np.ndarray:
-        """Spectral residuals ``x_s − P Rᵀ x_s`` in the centred (and scaled) space, (n, p)."""
+    def residuals(self, X, unscaled: bool = False) -> np.ndarray:
+        """Spectral residuals ``x_s − P Rᵀ x_s`` in the centred (and scaled) space, (n, p).
+
+        With ``unscaled=True`` they are multiplied back by the column scales, in the units
+        of X (AU), whether or not the model autoscales.
+        """
         xs = self._centred(X)
-        return xs - (xs @ self.x_rotations_) @ self.x_loadings_.T
+        resid = xs - (xs @ self.x_rotations_) @ self.x_loadings_.T
+        return resid * self.x_scale_ if unscaled else resid
 
     def __sklearn_tags__(self):
         tags = super().__sklearn_tags__()

@@ -111,7 +111,7 @@ def build(kind: str, rng, m: int, day: dict[str, float]):
     mode = "pls1" if kind.startswith("pls1") else "pls2"
     cal = build_pls(S, T, mode=mode, cv="interleaved:5")
     if kind.endswith("+1"):
-        counts = [ev["n_components"] for ev in cal.selection["models"]]
+        counts = [ev.n_components for ev in cal.selection.models]
         comps = max(counts) + 1
         cal = build_pls(S, T, mode=mode, cv="interleaved:5", components=comps)
     return cal

@@ -28,6 +28,7 @@ from bandsolve.diagnostics import (
     t2_limit,
 )
 from bandsolve.errors import ModelError
+from bandsolve.merit.statistics import noise_by_differences
 from bandsolve.pls import PLSRegressor
 from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.progress import ProgressCallback, step
@@ -96,7 +97,8 @@ def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str =
         residual_parameters=dict(q.parameters),
         t2=float(t2_limit(a, n, alpha=limit_alpha, kind="new")),
         leverage=float(leverage_limit(a, n, factor=leverage_factor)),
-        msec=tuple(msec.tolist()), rmsecv=tuple(cv_result.rmsecv[a - 1].tolist()))
+        msec=tuple(msec.tolist()), rmsecv=tuple(cv_result.rmsecv[a - 1].tolist()),
+        **_noise_floor(model, Z))
     evidence = dict(chosen.evidence)
     evidence.update(rule=select if components == "auto" else f"fixed ({select} suggests "
                     f"{chosen.n_components})", alpha=alpha, n_components=a, cv=str(cv))
@@ -104,6 +106,28 @@ def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str =
     studentized = (cv_result.errors[a - 1] * np.sqrt(1.0 - model.leverage(Z))[:, None]
                    / np.where(sigma > 0, sigma, 1.0))
     return model, limits, ComponentChoice.from_dict(evidence), studentized
+
+
+def _noise_floor(model: PLSRegressor, Z: np.ndarray) -> dict[str, Any]:
+    """Prediction variance from spectral noise alone: ``Σ_j b_j² σ²_j`` per analyte.
+
+    Faber & Kowalski (1997) propagate measurement noise through PLS as
+    ``σ²(ŷ) ≈ (1 + h)(σ²_Δy + ‖b‖²σ²_Δx)`` for white noise; the ``‖b‖²σ²_Δx`` part is
+    measured here with σ²_j from second differences of the calibration residuals
+    (:func:`bandsolve.merit.statistics.noise_by_differences`), which smooth structure left in
+    the residuals does not inflate. It is a floor: whatever else a prediction suffers
+    (reference error, model error) only adds to it, while an RMSECV from n samples can fall
+    well below it by chance and then makes that calibration's intervals too narrow.
+    """
+    n, p = Z.shape
+    a = model.n_parameters - 1
+    dof = max((n - a - 1) * (p - a), 1)
+    if p < 3:
+        return {}
+    E = model.residuals(Z, unscaled=True)
+    sigma2 = noise_by_differences(E, n * p / dof)
+    b = model.regression_vectors()
+    return {"noise_floor": tuple((b**2 @ sigma2).tolist()), "noise_floor_dof": int(dof)}
 
 
 def _q_limit(model: PLSRegressor, Z: np.ndarray, q_cv: np.ndarray, alpha: float,

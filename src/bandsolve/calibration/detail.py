@@ -130,10 +130,14 @@ def pls_detail(models: Sequence[PLSRegressor], limits: Sequence[EstimatorLimits]
         error_var = np.asarray(lim.rmsecv, dtype=float) ** 2 / (1.0 + model.n_parameters / n_cal)
         s2_ref = (np.asarray(lim.reference_variance, dtype=float) if lim.reference_variance
                   else np.zeros_like(error_var))
-        var = (1 + d.leverage)[:, None] * error_var[None, :] - s2_ref[None, :]
+        floor = (np.asarray(lim.noise_floor, dtype=float) if lim.noise_floor
+                 else np.zeros_like(error_var))
+        grow = (1 + d.leverage)[:, None]
+        var = np.maximum(grow * error_var[None, :] - s2_ref[None, :], grow * floor[None, :])
         concs.append(d.concentrations)
         ses.append(np.sqrt(np.maximum(var, 0.0)))
-        dofs.extend([d.dof] * d.concentrations.shape[1])
+        dofs.extend(np.where((floor > 0) & (floor >= error_var - s2_ref), lim.noise_floor_dof,
+                             d.dof).tolist())
         q_ratio = np.maximum(q_ratio, d.q / lim.residual)
         t2_ratio = np.maximum(t2_ratio, d.t2 / lim.t2)
         lev_ratio = np.maximum(lev_ratio, d.leverage / lim.leverage)

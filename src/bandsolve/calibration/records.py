@@ -73,6 +73,14 @@ class EstimatorLimits:
     error_scale_dof : int
         Calibration samples behind ``error_scale`` (degrees of freedom of the t quantile
         where the scale exceeds 1).
+    noise_floor : tuple of float
+        PLS: variance per analyte of a prediction caused by the spectral noise alone,
+        ``Σ_j b_j² σ²_j`` with σ²_j from second differences of the calibration residuals
+        (concentration units²; empty: none). The error variance behind the SE is never
+        taken below it.
+    noise_floor_dof : int
+        Degrees of freedom of ``noise_floor`` (the residual matrix's), used by the t quantile
+        where the floor sets the SE.
     """
 
     alpha: float
@@ -86,6 +94,8 @@ class EstimatorLimits:
     reference_variance: tuple[float, ...] = ()
     error_scale: tuple[float, ...] = ()
     error_scale_dof: int = 0
+    noise_floor: tuple[float, ...] = ()
+    noise_floor_dof: int = 0
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary (inverse of :meth:`from_dict`)."""
@@ -95,7 +105,8 @@ class EstimatorLimits:
                 "leverage": self.leverage, "msec": list(self.msec),
                 "rmsecv": list(self.rmsecv),
                 "reference_variance": list(self.reference_variance),
-                "error_scale": list(self.error_scale), "error_scale_dof": self.error_scale_dof}
+                "error_scale": list(self.error_scale), "error_scale_dof": self.error_scale_dof,
+                "noise_floor": list(self.noise_floor), "noise_floor_dof": self.noise_floor_dof}
 
     @classmethod
     def from_dict(cls, data: Mapping[str, Any]) -> EstimatorLimits:
@@ -109,7 +120,9 @@ class EstimatorLimits:
             msec=_floats(data["msec"]), rmsecv=_floats(data["rmsecv"]),
             reference_variance=_floats(data.get("reference_variance") or ()),
             error_scale=_floats(data.get("error_scale") or ()),
-            error_scale_dof=int(data.get("error_scale_dof") or 0)))
+            error_scale_dof=int(data.get("error_scale_dof") or 0),
+            noise_floor=_floats(data.get("noise_floor") or ()),
+            noise_floor_dof=int(data.get("noise_floor_dof") or 0)))
 
 
 @dataclass(frozen=True)

@@ -21,6 +21,7 @@ __all__ = [
     "as_float_array",
     "check_alpha",
     "noise_from_blanks",
+    "noise_by_differences",
     "noise_from_residuals",
     "regression_statistics",
     "univariate_calibration",
@@ -118,6 +119,35 @@ def noise_from_residuals(residuals: object, dof: int) -> NoiseEstimate:
     if dof < 1:
         raise DataError(f"dof = {dof} must be a positive number of degrees of freedom.")
     return NoiseEstimate(float(np.sqrt(np.sum(e**2) / dof)), "residuals", int(dof))
+
+
+def noise_by_differences(residuals: object, dof_factor: float = 1.0) -> np.ndarray:
+    """White-noise variance at each wavelength from second differences along the axis.
+
+    A second difference ``e[j−1] − 2e[j] + e[j+1]`` of independent noise of variance σ²_j has
+    variance ``σ²_{j−1} + 4σ²_j + σ²_{j+1} ≈ 6σ²_j``, while smooth structure left in the
+    residuals (a broad band, a baseline) nearly cancels, so the estimate is not inflated by
+    systematic variation that a residual norm would count as noise (von Neumann et al. 1941,
+    the mean square successive difference; the second-difference form is common practice).
+
+    Parameters
+    ----------
+    residuals : array_like, shape (n, p)
+        Spectral residuals of n samples on p ordered wavelengths (AU), p ≥ 3.
+    dof_factor : float
+        ``n/(residual degrees of freedom per wavelength)`` correction, e.g.
+        ``n p / ((n − A − 1)(p − A))`` for an A-component model with a mean.
+
+    Returns
+    -------
+    ndarray, shape (p,)
+        σ²_j in AU² (the end points take their neighbours' values).
+    """
+    e = as_float_array(residuals, "residuals", 2)
+    if e.shape[1] < 3:
+        raise DataError("at least 3 wavelengths are needed to estimate noise by differences")
+    inner = np.mean((e[:, :-2] - 2.0 * e[:, 1:-1] + e[:, 2:]) ** 2, axis=0) / 6.0
+    return np.concatenate([inner[:1], inner, inner[-1:]]) * float(dof_factor)
 
 
 @dataclass(frozen=True)
