@@ -16,7 +16,7 @@ from bandsolve.cli import main
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.errors import DataError
 from bandsolve.evaluate.assess import assess, validated_model
-from bandsolve.evaluate.validated import additive_model_error, coverage_interval
+from bandsolve.evaluate.validated import additive_model_error, coverage_interval, effective_dof
 from bandsolve.io import write_concentrations_csv, write_spectra_csv
 from bandsolve.spectra import SpectralSet
 from tests.conftest import gaussian_bands
@@ -164,3 +164,50 @@ def test_validation_restores_coverage_under_day_to_day_effects():
         total += conc.size
     assert before / total < 0.8
     assert 0.90 <= after / total <= 0.98, after / total
+
+
+def test_effective_dof_balanced_runs_match_the_anova_intra_class_correlation():
+    # Balanced one-way ANOVA: ρ = (MSB − MSW)/(MSB + (k − 1)MSW) (Searle, Casella & McCulloch
+    # 1992, Variance Components, §3.5), design effect 1 + (k − 1)ρ (Kish 1965, §5.4).
+    rng = np.random.default_rng(5)
+    g, k = 6, 5
+    z = (rng.normal(0, 1, g)[:, None] + rng.normal(0, 0.5, (g, k))).ravel()
+    runs = np.repeat(np.arange(g), k)
+    means = z.reshape(g, k).mean(axis=1)
+    msb = k * np.sum((means - z.mean()) ** 2) / (g - 1)
+    msw = np.sum((z.reshape(g, k) - means[:, None]) ** 2) / (g * (k - 1))
+    rho = (msb - msw) / (msb + (k - 1) * msw)
+    expected = max(g - 1, (g * k - 1) / (1 + (k - 1) * rho))
+    assert effective_dof(z, runs) == pytest.approx(expected, rel=1e-12)
+    # Errors identical within a run: ρ = 1, deff = k, so (n − 1)/k — about one value per run.
+    same = np.repeat(rng.normal(0, 1, g), k)
+    assert effective_dof(same, runs) == pytest.approx((g * k - 1) / k)
+    # No runs given, or one sample per run: n − 1.
+    assert effective_dof(z, None) == g * k - 1
+    assert effective_dof(z, np.arange(g * k)) == g * k - 1
+
+
+def test_run_aware_dof_keeps_coverage_when_errors_are_shared_within_days():
+    # Validation errors = day effect (SD 1) + sample noise (SD 0.3), 30 samples from 5 days;
+    # new samples come from new days. A prediction interval ±t_ν·√(s² + τ̂²) covers a new
+    # error 95 % of the time when ν matches the information in τ̂² (Student 1908). Counting
+    # the 30 samples as independent (ν = 29) undercovers, since τ̂² rests on 5 day effects.
+    rng = np.random.default_rng(21)
+    runs = np.repeat(np.arange(5), 6)
+    hit_runs = hit_plain = total = 0
+    for _ in range(2000):
+        e = rng.normal(0, 1, 5)[runs] + rng.normal(0, 0.3, 30)
+        s = np.full(30, 0.3)
+        tau2 = additive_model_error(e, s)
+        sd = np.sqrt(0.09 + tau2)
+        new = rng.normal(0, 1, 20) + rng.normal(0, 0.3, 20)
+        z = e / sd
+        for dof, _label in ((effective_dof(z, runs), "runs"), (29, "plain")):
+            inside = int(np.sum(np.abs(new) <= stats.t.ppf(0.975, dof) * sd))
+            if _label == "runs":
+                hit_runs += inside
+            else:
+                hit_plain += inside
+        total += 20
+    assert hit_runs / total >= 0.925, hit_runs / total
+    assert hit_plain / total < hit_runs / total - 0.02

@@ -47,6 +47,7 @@ from bandsolve.spectra import SpectralSet
 AXIS = np.linspace(400.0, 700.0, 151)
 SIGMA = 0.003
 N_NEW = 200
+RUNS = True  # tell assess the day of each validation sample (--runs)
 FINE = np.linspace(380.0, 720.0, 3401)
 Z = (AXIS - AXIS.mean()) / ((AXIS.max() - AXIS.min()) / 2)
 BAND = np.exp(-0.5 * ((AXIS - 630.0) / 18.0) ** 2)
@@ -149,7 +150,9 @@ def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng) -> dict[str, flo
         Cv = np.vstack([Cv[i::5] for i in range(5)])
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            val = validated_model(cal, assess(cal, spectra(Av, "v"), table(Cv, "v")), [])
+            runs = {f"v{i}": str(i // 6) for i in range(30)}  # the 5 validation days
+            val = validated_model(cal, assess(cal, spectra(Av, "v"), table(Cv, "v")), [],
+                                  runs if RUNS else None)
         cov2 = covered(val.predict(spectra(At, "t")), Ct)
         after.append(cov2.mean())
         bad_after += int((cov2.mean(axis=0) < 0.90).any())
@@ -194,7 +197,11 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--calibrations", type=int, default=200)
     parser.add_argument("--only", nargs="*", help=f"kinds among {', '.join(KINDS)}")
     parser.add_argument("--real", action="store_true", help="real datasets only")
+    parser.add_argument("--no-runs", action="store_true",
+                        help="validate without telling assess the days (each sample its own run)")
     args = parser.parse_args(argv)
+    global RUNS
+    RUNS = not args.no_runs
     if not args.real:
         simulated(args.calibrations, args.only)
     folder = next((p / "shared" / "datasets" for p in Path(__file__).resolve().parents

@@ -428,13 +428,14 @@ class Calibration:
     def _with_model_error(self, d: Detail) -> Detail:
         """Add the validated model-error variance τ² to every SE (``√(s² + τ²)``).
 
-        The t quantile then uses the smaller of the calibration degrees of freedom and
-        ``n_validation − 1`` where τ > 0 (τ² is estimated from the validation samples).
+        The t quantile then uses the smaller of the calibration degrees of freedom and the
+        validation's effective degrees of freedom where τ > 0 (τ² is estimated from the
+        validation samples; ``IntervalBasis.t_dof``).
         """
         if self.interval is None:
             return d
         tau = np.asarray(self.interval.model_error_sd, dtype=float)
-        dof = np.minimum(d.dof, self.interval.n_validation - 1)
+        dof = np.minimum(d.dof, self.interval.t_dof)
         return dataclasses.replace(d, standard_errors=np.sqrt(d.standard_errors**2 + tau**2),
                                    dof=np.where(tau > 0, dof, d.dof))
 

@@ -327,8 +327,12 @@ class IntervalBasis:
     model_error_sd : tuple of float
         τ per analyte (concentration units), added in quadrature to every SE.
     n_validation : int
-        Independent validation samples τ was estimated from; the t quantile then uses
-        ``n_validation − 1`` degrees of freedom where τ > 0.
+        Independent validation samples τ was estimated from.
+    n_runs : int
+        Runs (days) the validation samples came from; 0 when not given.
+    dof : float
+        Effective degrees of freedom of τ (``evaluate.validated.effective_dof``); the t
+        quantile uses them where τ > 0. 0 in older files: ``n_validation − 1``.
     validation_files : tuple of dict
         Name and SHA-256 of each validation file.
     created : str
@@ -340,17 +344,26 @@ class IntervalBasis:
     n_validation: int
     validation_files: tuple[dict[str, str], ...] = ()
     created: str = ""
+    n_runs: int = 0
+    dof: float = 0.0
+
+    @property
+    def t_dof(self) -> float:
+        """Degrees of freedom of the t quantile where τ > 0."""
+        return self.dof if self.dof > 0 else float(self.n_validation - 1)
 
     @property
     def label(self) -> str:
         """The basis in words, for every result row."""
-        return (f"validated on {self.n_validation} independent samples (calibration SE plus "
-                "model error)")
+        runs = f" from {self.n_runs} runs" if self.n_runs else ""
+        return (f"validated on {self.n_validation} independent samples{runs} (calibration SE "
+                "plus model error)")
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary (inverse of :meth:`from_dict`)."""
         return {"basis": "validated", "method": self.method,
                 "model_error_sd": list(self.model_error_sd), "n_validation": self.n_validation,
+                "n_runs": self.n_runs, "dof": self.dof,
                 "validation_files": [dict(f) for f in self.validation_files],
                 "created": self.created}
 
@@ -362,4 +375,5 @@ class IntervalBasis:
             n_validation=int(data["n_validation"]),
             validation_files=tuple({str(k): str(v) for k, v in dict(f).items()}
                                    for f in data.get("validation_files") or ()),
-            created=str(data.get("created") or "")))
+            created=str(data.get("created") or ""), n_runs=int(data.get("n_runs") or 0),
+            dof=float(data.get("dof") or 0.0)))

@@ -22,7 +22,7 @@ import pandas as pd
 from scipy import stats
 
 from bandsolve.calibration.model import Calibration, result_columns
-from bandsolve.concentrations import ConcentrationTable, split_unit
+from bandsolve.concentrations import ConcentrationTable, groups_in_order, split_unit
 from bandsolve.errors import BandsolveWarning, DataError
 from bandsolve.flags import FLAG_COLUMN, split_flags
 from bandsolve.merit import RegressionStatistics, regression_statistics
@@ -359,8 +359,8 @@ def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
     return result
 
 
-def validated_model(cal: Calibration, result: Assessment,
-                    files: Sequence[str]) -> Calibration:
+def validated_model(cal: Calibration, result: Assessment, files: Sequence[str],
+                    runs: Any = None) -> Calibration:
     """A new model whose intervals carry the model error ``result`` revealed.
 
     Parameters
@@ -372,6 +372,10 @@ def validated_model(cal: Calibration, result: Assessment,
         calibration's own samples cannot reveal errors calibration cannot see).
     files : sequence of str
         The test files, fingerprinted (name, SHA-256) into the new model.
+    runs : mapping or pandas.Series, optional
+        Run (day) of each test sample keyed by sample id
+        (:func:`bandsolve.concentrations.group_labels`): errors shared within a run count
+        as fewer degrees of freedom.
 
     Returns
     -------
@@ -388,4 +392,6 @@ def validated_model(cal: Calibration, result: Assessment,
     ses = np.column_stack([frame[f"{a} SE (calibration)"] for a in cal.analytes])
     prints = [{"name": os.path.basename(f), "sha256": sha256_file(f)} for f in files
               if os.path.isfile(f)]
-    return validated_calibration(cal, errors, ses, prints)
+    labels = (None if runs is None
+              else groups_in_order(runs, [str(s) for s in frame["sample"]]))
+    return validated_calibration(cal, errors, ses, prints, labels)
