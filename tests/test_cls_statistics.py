@@ -15,6 +15,7 @@ from scipy import stats
 
 from bandsolve.calibration.build import build_cls, build_cls_from_absorptivities
 from bandsolve.cls import CLSRegressor
+from bandsolve.cls_loo import error_model
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.spectra import SpectralSet
 from tests.conftest import gaussian_bands
@@ -57,10 +58,30 @@ def test_closed_form_leave_one_out_equals_refits(m, rs, intercept, baseline):
         h = ctil @ np.linalg.inv(D[keep].T @ D[keep]) @ ctil
         expected = (r @ r / dof) / (model.s2_cal_ * (1 + h))  # METHODS §1 F ratio
         assert model.cv_f_ratios_[i] == pytest.approx(expected, rel=1e-6)
-    # Error scale: RMS of the studentized leave-one-out errors, at least 1 (Birge 1932).
-    scale, dof_scale = model.error_scale()
-    np.testing.assert_allclose(scale, np.maximum(1, np.sqrt(np.mean(z**2, axis=0))), rtol=1e-6)
+    # Error model: without a concentration term it is the RMS of the studentized
+    # leave-one-out errors, at least 1 (Birge 1932).
+    scale, relative, dof_scale = model.error_scale()
+    birge = np.maximum(1, np.sqrt(np.mean(z**2, axis=0)))
+    for k in range(z.shape[1]):
+        se_k = np.ones(n)
+        assert error_model(z[:, k], se_k, np.zeros(n))[0] == pytest.approx(birge[k], rel=1e-9)
+    assert np.all(scale >= 1) and np.all(relative >= 0)
     assert dof_scale == n
+
+
+@pytest.mark.parametrize(("kappa", "gamma"), [(1.0, 0.0), (1.5, 0.0), (1.0, 0.04),
+                                              (1.3, 0.03)])
+def test_error_model_recovers_a_known_variance_function(kappa, gamma):
+    # Errors drawn from N(0, κ²SE² + γ²c²) (the model's definition); with 20,000 samples the
+    # moment estimates must land near the truth (Carroll & Ruppert 1988, ch. 3: consistent).
+    rng = np.random.default_rng(11)
+    n = 20_000
+    se = rng.uniform(0.5, 2.0, n)
+    c = rng.uniform(0.0, 100.0, n)
+    e = rng.normal(0, 1, n) * np.sqrt(kappa**2 * se**2 + gamma**2 * c**2)
+    k_hat, g_hat = error_model(e, se, c)
+    assert k_hat == pytest.approx(kappa, abs=0.04)
+    assert g_hat == pytest.approx(gamma, abs=0.004)
 
 
 def test_box_leverage_is_the_largest_inside_the_ranges():
@@ -141,3 +162,13 @@ def test_model_with_nothing_to_check_against_flags_every_result():
     res = cal.predict(SpectralSet(AXIS, np.array([[0.2, 0.3, 0.4]]) @ _bands(3) + strong,
                                   ["x"]))
     assert res["flag_codes"][0].split(";") == ["unchecked"]
+
+
+def test_error_model_keeps_no_concentration_term_for_white_noise():
+    # Under the white-noise model γ = 0; the likelihood-ratio gate keeps a chance γ > 0 in
+    # about RELATIVE_ERROR_ALPHA = 5 % of 15-standard calibrations (Self & Liang 1987
+    # boundary reference). 400 draws: at most 10 % (binomial 5 % + 3.4 SD).
+    rng = np.random.default_rng(12)
+    c = np.tile([0.0, 50.0, 100.0, 200.0, 300.0], 3)
+    kept = sum(error_model(rng.normal(0, 1, 15), np.ones(15), c)[1] > 0 for _ in range(400))
+    assert kept / 400 <= 0.10, kept

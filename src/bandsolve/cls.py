@@ -19,7 +19,7 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 
 from bandsolve._scan import ScanParts, scan
 from bandsolve._state import RecordedState
-from bandsolve.cls_loo import LeaveOneOut, cls_leave_one_out
+from bandsolve.cls_loo import LeaveOneOut, cls_leave_one_out, error_model
 from bandsolve.diagnostics import cls_calibration_variance, f_limit_from_values
 from bandsolve.errors import ModelError
 from bandsolve.merit.signal import cls_net_analyte_signal
@@ -319,24 +319,36 @@ class CLSRegressor(RecordedState, RegressorMixin, BaseEstimator):
         None for a model loaded from a file or built from absorptivities (not kept)."""
         return getattr(self, "_loo", None)
 
-    def error_scale(self) -> tuple[np.ndarray, int]:
-        """Ratio of leave-one-out errors to their reported SEs, per analyte, and its df.
+    def error_scale(self) -> tuple[np.ndarray, np.ndarray, int]:
+        """Error model from the leave-one-out errors, per analyte, and its df.
 
-        ``κ_k = max(1, √(mean_i[(ĉ₍₋ᵢ₎k − c_ik)²/SE₍₋ᵢ₎k²]))`` over the calibration samples
-        that can be left out (all analytes of each, present or absent), with the number of
-        those samples as degrees of freedom. Under the white-noise model the studentized
-        errors have unit mean square and κ = 1; errors shared across channels (baseline or
-        gain changes between measurements) make it larger. Ones and 0 df when fewer than 3
-        samples can be left out. See the class Notes.
+        ``Var(e) = κ²·SE² + (γ·c)²`` (:func:`bandsolve.cls_loo.error_model`) over the
+        calibration samples that can be left out (all analytes of each, present or absent),
+        with the number of those samples as degrees of freedom. Under the white-noise model
+        the studentized errors have unit mean square, κ = 1 and γ = 0; errors shared across
+        channels (baseline changes) make κ larger, errors proportional to the concentration
+        (gain, path length, a standard's preparation) make γ larger. Ones, zeros and 0 df
+        when fewer than 3 samples can be left out. See the class Notes.
+
+        Returns
+        -------
+        kappa : ndarray, shape (m,)
+            Factor ≥ 1 on the white-noise SE.
+        gamma : ndarray, shape (m,)
+            Relative error SD (fraction of the concentration), added in quadrature.
+        dof : int
         """
         m = self.pure_spectra_.shape[0]
         if getattr(self, "_loo", None) is None:
-            return np.ones(m), 0
-        z = (self._loo.concentrations - self._training_y) / self._loo.standard_errors
-        ok = np.isfinite(z).all(axis=1)
+            return np.ones(m), np.zeros(m), 0
+        err = self._loo.concentrations - self._training_y
+        se = self._loo.standard_errors
+        ok = np.isfinite(err / se).all(axis=1) & (se > 0).all(axis=1)
         if ok.sum() < 3:
-            return np.ones(m), 0
-        return np.maximum(1.0, np.sqrt(np.mean(z[ok] ** 2, axis=0))), int(ok.sum())
+            return np.ones(m), np.zeros(m), 0
+        fits = [error_model(err[ok, k], se[ok, k], self._training_y[ok, k]) for k in range(m)]
+        return (np.array([f[0] for f in fits]), np.array([f[1] for f in fits]),
+                int(ok.sum()))
 
     # ------------------------------------------------------------------ prediction
     def predict(self, X):

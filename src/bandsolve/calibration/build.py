@@ -174,12 +174,13 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
                 "alpha": alpha, "blank_subtracted": blank is not None,
                 "non_negative": non_negative}
     calibrated_range = np.column_stack([C.min(axis=0), C.max(axis=0)])
-    scale, scale_dof = est.error_scale()
+    scale, relative, scale_dof = est.error_scale()
     limits = Limits(float(leverage_factor), (EstimatorLimits(
         alpha=alpha, residual=est.residual_limit,
         residual_method="Box scaled chi-squared fitted to leave-one-out calibration F ratios",
         leverage=est.leverage_limit(leverage_factor, calibrated_range),
-        error_scale=tuple(scale.tolist()), error_scale_dof=scale_dof),))
+        error_scale=tuple(scale.tolist()), relative_error=tuple(relative.tolist()),
+        error_scale_dof=scale_dof),))
     cal = Calibration(
         method="cls", analytes=table.analytes, axis=spectra.axis, axis_unit=spectra.axis_unit,
         preprocessor=pre, estimators=[est], calibrated_range=calibrated_range,

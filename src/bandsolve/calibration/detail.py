@@ -61,14 +61,17 @@ def cls_detail(model: CLSRegressor, limits: EstimatorLimits, H: np.ndarray,
     """Detail for a CLS model from its scan products (:meth:`CLSRegressor.scan_parts`).
 
     SE from each sample's own residual (:meth:`CLSRegressor.predict_detail`) times the
-    calibration's error scale κ ≥ 1 (``limits.error_scale``: the leave-one-out errors over
-    their SEs); where κ > 1 the t quantile takes the number of calibration samples behind it
-    as degrees of freedom. F ratio and leverage ratio against the stored limits.
+    calibration's error scale κ ≥ 1, with the relative error ``γ·|ĉ|`` added in quadrature
+    (``limits.error_scale``, ``limits.relative_error``: the error model fitted to the
+    leave-one-out errors, :func:`bandsolve.cls_loo.error_model`); where the model departs
+    from white noise the t quantile takes the number of calibration samples behind it as
+    degrees of freedom. F ratio and leverage ratio against the stored limits.
     """
     d = model.detail_from_scan(H, ss)
     n, m = d.concentrations.shape
     scale = np.asarray(limits.error_scale or np.ones(m), dtype=float)
-    dof = np.where(scale > 1.0, limits.error_scale_dof, d.dof)
+    relative = np.asarray(limits.relative_error or np.zeros(m), dtype=float)
+    dof = np.where((scale > 1.0) | (relative > 0), limits.error_scale_dof, d.dof)
     notes = [d.note] if d.note else []
     if model.from_standards:
         lev_ratio = d.leverage / limits.leverage
@@ -84,7 +87,8 @@ def cls_detail(model: CLSRegressor, limits: EstimatorLimits, H: np.ndarray,
             "replicate blank spectra (--blanks)")
     return Detail(
         concentrations=d.concentrations,
-        standard_errors=d.standard_errors * scale,
+        standard_errors=np.sqrt((d.standard_errors * scale) ** 2
+                                + (relative * d.concentrations) ** 2),
         dof=dof,
         residual_ratio=d.residual_ratio,
         t2_ratio=np.full(n, np.nan),

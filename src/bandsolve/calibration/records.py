@@ -70,9 +70,12 @@ class EstimatorLimits:
     error_scale : tuple of float
         CLS: factor ≥ 1 per analyte applied to the white-noise SE, the ratio of the
         leave-one-out errors to their reported SEs (``CLSRegressor.error_scale``; empty: 1).
+    relative_error : tuple of float
+        CLS: relative error SD γ per analyte (fraction of the concentration), added in
+        quadrature to the SE as ``γ·|ĉ|`` (``CLSRegressor.error_scale``; empty: 0).
     error_scale_dof : int
-        Calibration samples behind ``error_scale`` (degrees of freedom of the t quantile
-        where the scale exceeds 1).
+        Calibration samples behind ``error_scale`` and ``relative_error`` (degrees of
+        freedom of the t quantile where either departs from the white-noise model).
     noise_floor : tuple of float
         PLS: variance per analyte of a prediction caused by the spectral noise alone,
         ``Σ_j b_j² σ²_j`` with σ²_j from second differences of the calibration residuals
@@ -94,6 +97,7 @@ class EstimatorLimits:
     reference_variance: tuple[float, ...] = ()
     error_scale: tuple[float, ...] = ()
     error_scale_dof: int = 0
+    relative_error: tuple[float, ...] = ()
     noise_floor: tuple[float, ...] = ()
     noise_floor_dof: int = 0
 
@@ -106,6 +110,7 @@ class EstimatorLimits:
                 "rmsecv": list(self.rmsecv),
                 "reference_variance": list(self.reference_variance),
                 "error_scale": list(self.error_scale), "error_scale_dof": self.error_scale_dof,
+                "relative_error": list(self.relative_error),
                 "noise_floor": list(self.noise_floor), "noise_floor_dof": self.noise_floor_dof}
 
     @classmethod
@@ -121,6 +126,7 @@ class EstimatorLimits:
             reference_variance=_floats(data.get("reference_variance") or ()),
             error_scale=_floats(data.get("error_scale") or ()),
             error_scale_dof=int(data.get("error_scale_dof") or 0),
+            relative_error=_floats(data.get("relative_error") or ()),
             noise_floor=_floats(data.get("noise_floor") or ()),
             noise_floor_dof=int(data.get("noise_floor_dof") or 0)))
 
