@@ -21,10 +21,9 @@ from bandsolve.design.points import (
 )
 from bandsolve.errors import BandsolveWarning, DataError
 from bandsolve.progress import ProgressCallback
+from bandsolve.spectra import DEFAULT_CEILING_AU
 
 __all__ = ["AbsorbanceCheck", "CalibrationPlan", "DesignQuality", "calibration_plan"]
-
-DEFAULT_CEILING_AU = 2.0  # photometric ceiling, common practice
 
 
 @dataclass(frozen=True)
