@@ -1,17 +1,19 @@
 """Per-fold computations of the one-pass PLS cross-validation engine.
 
-Each engine is built once from all the data and then answers ``fold(train, test, A)`` with the
-held-out predictions, Q residuals and Hotelling T² for every component count 1..A, from one
-PLS fit on the training part.  Validation samples never enter the training means, scales or
-cross-products.
+Each engine is built once from all the data, fits every fold together (one numpy call per
+component for all folds), and then gives each fold's held-out predictions, Q residuals and
+Hotelling T² for every component count 1..A.  Validation samples never enter the training
+means, scales or cross-products.
 
 * :class:`TallEngine` (n ≥ p): cross-products of globally pre-centred X are computed once; a
-  fold subtracts its own cross-products and applies a rank-1 mean correction, then runs the
-  improved kernel algorithm (Engstrøm & Jensen 2024; Dayal & MacGregor 1997).
-* :class:`WideEngine` (p > n): the Gram matrix ``XXᵀ`` is computed once; a fold takes its
-  training block, double-centres it with the training mean and runs the Gram-matrix kernel
-  (Liland, Stefansson & Indahl 2020).  With column scaling the Gram matrix depends on the fold's
-  scale and is recomputed per fold.
+  fold subtracts its own cross-products and applies a rank-1 mean correction; the improved
+  kernel algorithm then runs on the stacked p×p products of all folds (Engstrøm & Jensen 2024;
+  Dayal & MacGregor 1997).  Held-out rows are evaluated in 1 MB blocks.
+* :class:`WideEngine` (p > n): the Gram matrix ``XXᵀ`` is computed once; every fold works on
+  n-vectors that are zero on its held-out rows, so one product with the whole-set Gram matrix
+  serves all folds at each component and the training mean enters as a rank-one correction
+  (the Gram-matrix kernel of Liland, Stefansson & Indahl 2020, without per-fold blocks).  With
+  column scaling the Gram matrix depends on the fold's scale and is recomputed per fold.
 
 Pre-centring X with the overall mean keeps the downdate accurate when spectra carry a large
 absorbance offset (measured for this package: 2e-11 instead of 1e-7 relative error at a
