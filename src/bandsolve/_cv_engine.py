@@ -115,9 +115,13 @@ def _centre(engine: TallEngine | WideEngine, X: np.ndarray, Y: np.ndarray,
 
 
 def rows_of(test: np.ndarray) -> slice | np.ndarray:
-    """``test`` as a slice when it is a run of consecutive rows (views instead of copies)."""
-    if test.size and test[-1] - test[0] + 1 == test.size and (np.diff(test) == 1).all():
-        return slice(int(test[0]), int(test[-1]) + 1)
+    """``test`` as a slice when its rows are evenly spaced (consecutive, or interleaved folds):
+    views and strided writes instead of gathered copies and scattered writes."""
+    if test.size < 2:
+        return slice(int(test[0]), int(test[0]) + 1) if test.size else test
+    gap = int(test[1] - test[0])
+    if gap >= 1 and test[-1] - test[0] == gap * (test.size - 1) and (np.diff(test) == gap).all():
+        return slice(int(test[0]), int(test[-1]) + 1, gap)
     return test
 
 
@@ -192,8 +196,9 @@ class TallEngine:
     def _blocks(self, rows: slice | np.ndarray):
         """Row blocks (≈ 1 MB of X each) of ``rows``, as slices or index arrays."""
         if isinstance(rows, slice):
-            return [slice(i, min(i + self.step, rows.stop))
-                    for i in range(rows.start, rows.stop, self.step)]
+            gap = rows.step or 1
+            return [slice(i, min(i + self.step * gap, rows.stop), gap)
+                    for i in range(rows.start, rows.stop, self.step * gap)]
         return [rows[i:i + self.step] for i in range(0, rows.size, self.step)]
 
     def _products(self, rows, out=None) -> tuple[np.ndarray, np.ndarray, np.ndarray,
