@@ -99,7 +99,10 @@ def format_summary(description: dict[str, Any], limits: Limits, selection: Selec
               for f in prov.get("training_files") or []]
     interval = d.get("interval") or {}
     if interval.get("basis") == "validated":
-        notes.append(f"Intervals validated on {interval['n_validation']} independent samples: "
+        runs = f" from {interval['n_runs']} runs" if interval.get("n_runs") else ""
+        dof = interval.get("dof") or interval["n_validation"] - 1
+        notes.append(f"Intervals validated on {interval['n_validation']} independent samples"
+                     f"{runs} (t quantile on {dof:.3g} effective degrees of freedom): "
                      "model error SD added to every SE: " + ", ".join(
                          f"{a['label']} {t:.4g}" for a, t in zip(
                              d["analytes"], interval["model_error_sd"], strict=True)))

@@ -190,6 +190,8 @@ def model_section(cal: Calibration) -> str:
         rows.append(("model error SD added (validation)", ", ".join(
             f"{a}: {t:.3g}" for a, t in zip(cal.analytes, cal.interval.model_error_sd,
                                               strict=True))))
+        rows.append(("validation degrees of freedom", f"{cal.interval.t_dof:.3g}" + (
+            f" ({cal.interval.n_runs} runs)" if cal.interval.n_runs else "")))
     rows += [(f"setting: {k}", v) for k, v in cal.settings.items()]
     return f"<h3>Definition</h3>{kv_table(rows)}" + _limits_html(cal)
 
