@@ -14,8 +14,8 @@ spectra.  Each spectrum starts from its unconstrained estimate with the negative
 concentrations set to zero, which is usually within one or two steps of the answer; at each
 round every spectrum not yet solved takes one Lawson-Hanson step (free one concentration, or
 hold one at zero).  The minimizer on a passive set P needs ``(G_PP)⁻¹``: it is formed once
-per distinct set met (a few dozen to a few hundred of the 2^m possible; the reuse of Van
-Benthem & Keenan 2004) and applied to all the spectra that share it.  Every answer is then
+per distinct set met (the reuse of Van Benthem & Keenan 2004), in one batched inversion per
+round, and applied to all the spectra that share it.  Every answer is then
 checked against the optimality conditions, and a spectrum that fails (nearly degenerate
 problems only) is solved again on its own.
 
@@ -68,7 +68,7 @@ class _PassiveInverses:
         # One bit per constrained coefficient (free ones are always passive): a set's number.
         self.bits = np.where(bound, 2.0 ** (np.cumsum(bound) - 1), 0.0)
         m = int(bound.sum())
-        # Up to 2^16 sets a table from set number to stored inverse (no sorting per round).
+        # Up to 2^16 possible sets, a table from set number to stored inverse: no sorting.
         self.slot = np.full(2**m, -1) if m <= 16 else None
         self.stack = np.empty((0, *gram.shape))
 
@@ -82,10 +82,10 @@ class _PassiveInverses:
 
     def __call__(self, passive: np.ndarray) -> np.ndarray:
         """The inverse for each row's passive set, shape (n, k, k)."""
+        if self.slot is None:  # more than 16 constrained coefficients: sort the sets instead
+            sets, which = np.unique(passive, axis=0, return_inverse=True)
+            return self._invert(sets)[which.reshape(-1)]
         numbers = (passive @ self.bits).astype(np.intp)
-        if self.slot is None:
-            _, first, which = np.unique(numbers, return_index=True, return_inverse=True)
-            return self._invert(passive[first])[which.reshape(-1)]
         which = self.slot[numbers]
         new = which < 0
         if new.any():
