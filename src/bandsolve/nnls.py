@@ -146,6 +146,49 @@ def _exact_rows(gram: np.ndarray, h: np.ndarray, bound: np.ndarray) -> np.ndarra
     return coef
 
 
+def _lawson_hanson(gram: np.ndarray, h: np.ndarray, bound: np.ndarray,
+                   inverses: _PassiveInverses, limit: int) -> tuple[np.ndarray, np.ndarray]:
+    """The active-set iteration for all rows at once: coefficients and passive sets (rows not
+    solved within ``limit`` rounds come back as zero with only the free coefficients passive).
+    """
+    n = len(h)
+    # Start from the unconstrained minimizer with its negative concentrations set to zero:
+    # feasible, and for most spectra one or two steps from the optimum.
+    c = h @ np.linalg.inv(gram)
+    np.maximum(c, 0.0, out=c, where=bound)
+    free = (c > 0.0) | ~bound
+    tol = _gradient_tolerance(gram, h, c)
+    coef, passive = np.zeros_like(h), np.broadcast_to(~bound, h.shape).copy()
+    rows, hh = np.arange(n), h  # the rows not yet solved, and their products
+    for _ in range(limit):
+        z = np.einsum("nij,nj->ni", inverses(free), hh)
+        # Lawson-Hanson: if the minimizer on the passive set is not feasible, move from c
+        # towards it until the first concentration reaches zero, and hold that one at zero.
+        bad = (z <= 0.0) & free & bound
+        ratio = np.full(z.shape, np.inf)
+        np.divide(c, np.maximum(c - z, np.finfo(float).tiny), out=ratio, where=bad)
+        step = _row_min(ratio)
+        feasible = step > 1.0
+        c += np.minimum(step, 1.0)[:, None] * (z - c)
+        np.copyto(c, z, where=feasible[:, None])
+        held = bad & ((ratio <= step[:, None]) | (c <= 0.0))
+        c[held] = 0.0
+        free &= ~held
+        # At a feasible minimizer, free the held concentration whose gradient most wants it
+        # positive; if none does, the spectrum is solved.
+        w = np.where(free | ~feasible[:, None], -np.inf, hh - c @ gram)
+        best = np.argmax(w, axis=1)
+        more = np.take_along_axis(w, best[:, None], axis=1)[:, 0] > tol
+        free[more, best[more]] = True
+        done = np.flatnonzero(feasible & ~more)
+        coef[rows[done]], passive[rows[done]] = c[done], free[done]
+        keep = np.flatnonzero(~feasible | more)
+        rows, c, free, hh, tol = rows[keep], c[keep], free[keep], hh[keep], tol[keep]
+        if rows.size == 0:
+            break
+    return coef, passive
+
+
 def nnls_gram(gram, h, constrained=None, max_iter: int | None = None) -> NNLSResult:
     """Minimize ``cᵀGc − 2cᵀh`` for every row of h, with ``c_j ≥ 0`` where constrained.
 
@@ -189,46 +232,12 @@ def nnls_gram(gram, h, constrained=None, max_iter: int | None = None) -> NNLSRes
     """
     gram = np.asarray(gram, dtype=float)
     h = np.atleast_2d(np.asarray(h, dtype=float))
-    n, k = h.shape
+    k = h.shape[1]
     finite = functools.reduce(np.logical_and, np.isfinite(h).T)
     bound = np.ones(k, bool) if constrained is None else np.asarray(constrained, bool)
     limit = 5 * k if max_iter is None else int(max_iter)
     inverses = _PassiveInverses(gram, bound)
-    # Start from the unconstrained minimizer with its negative concentrations set to zero:
-    # feasible, and for most spectra one or two steps from the optimum.
-    c = h @ np.linalg.inv(gram)
-    np.maximum(c, 0.0, out=c, where=bound)
-    free = (c > 0.0) | ~bound
-    tol = _gradient_tolerance(gram, h, c)
-    coef, passive = np.zeros_like(h), free.copy()
-    rows, hh = np.arange(n), h  # the spectra not yet solved, and their products
-    for _ in range(limit):
-        z = np.einsum("nij,nj->ni", inverses(free), hh)
-        # Lawson-Hanson: if the minimizer on the passive set is not feasible, move from c
-        # towards it until the first concentration reaches zero, and hold that one at zero.
-        bad = (z <= 0.0) & free & bound
-        ratio = np.full(z.shape, np.inf)
-        np.divide(c, np.maximum(c - z, np.finfo(float).tiny), out=ratio, where=bad)
-        step = _row_min(ratio)
-        feasible = step > 1.0
-        c += np.minimum(step, 1.0)[:, None] * (z - c)
-        np.copyto(c, z, where=feasible[:, None])
-        held = bad & ((ratio <= step[:, None]) | (c <= 0.0))
-        c[held] = 0.0
-        free &= ~held
-        # At a feasible minimizer, free the held concentration whose gradient most wants it
-        # positive; if none does, the spectrum is solved.
-        w = np.where(free | ~feasible[:, None], -np.inf, hh - c @ gram)
-        best = np.argmax(w, axis=1)
-        more = np.take_along_axis(w, best[:, None], axis=1)[:, 0] > tol
-        free[more, best[more]] = True
-        done = np.flatnonzero(feasible & ~more)
-        coef[rows[done]], passive[rows[done]] = c[done], free[done]
-        keep = np.flatnonzero(~feasible | more)
-        rows, c, free, hh, tol = rows[keep], c[keep], free[keep], hh[keep], tol[keep]
-        if rows.size == 0:
-            break
-    passive[rows] = ~bound  # not solved within the limit: left to the check below
+    coef, passive = _lawson_hanson(gram, h, bound, inverses, limit)
     # Check every spectrum; where rounding in the inverse leaves too large a gradient on the
     # passive set, one step of iterative refinement; what still fails is solved one by one.
     retry = np.flatnonzero(finite & ~_optimal(gram, h, coef, passive, bound))
