@@ -215,7 +215,10 @@ def nnls_gram(gram, h, constrained=None, max_iter: int | None = None) -> NNLSRes
     Because G is positive definite the problem is strictly convex, so its minimizer is
     unique: any correct solver, scipy's per-spectrum ``nnls`` on ``(Kᵀ, x − bg)`` included,
     returns the same coefficients up to rounding.  The normal-equation form squares the
-    condition number of K, which costs digits only for nearly collinear pure spectra.
+    condition number of K, which costs digits only for nearly collinear pure spectra: for ten
+    Gaussian bands overlapping so much that cond(K) = 5.6e3, answers differ from scipy's
+    QR-based ``nnls`` by about 1e-8, and so does an exact solution of the same rounded
+    products; for cond(K) ≤ 300, by less than 1e-10.
 
     Every row's answer is checked against the optimality (Karush-Kuhn-Tucker) conditions
     before it is returned: the gradient ``Gc − h`` vanishes on the free and positive
@@ -228,7 +231,7 @@ def nnls_gram(gram, h, constrained=None, max_iter: int | None = None) -> NNLSRes
     >>> K = np.array([[1.0, 0.0, 1.0], [0.0, 1.0, 1.0]])
     >>> x = np.array([[2.0, -1.0, 1.0]])
     >>> nnls_gram(K @ K.T, x @ K.T).coef.round(12)
-    array([[1., 0.]])
+    array([[1.5, 0. ]])
     """
     gram = np.asarray(gram, dtype=float)
     h = np.atleast_2d(np.asarray(h, dtype=float))
