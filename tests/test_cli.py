@@ -9,6 +9,9 @@ import pandas as pd
 import pytest
 
 from bandsolve.cli import main
+from bandsolve.concentrations import ConcentrationTable
+from bandsolve.io import write_concentrations_csv, write_spectra_csv
+from bandsolve.spectra import SpectralSet
 
 
 def _write(path, text):
@@ -129,3 +132,30 @@ def test_compare_with_groups_from_sample_ids(capsys):
     assert code == 0 and out["cv"] == "groups" and out["n_calibration"] == 25
     assert {r["analyte"] for r in out["recommendations"]} == {
         "dye A [mg/L]", "dye B [mg/L]", "dye C [mg/L]"}
+
+
+def test_alpha_sets_the_pls_limits_and_is_stored(tmp_path):
+    # --alpha is the significance level of every flag limit, for PLS too: the T² limit for
+    # new samples at α is the F quantile form of Tracy, Young & Mason (1992), computed here
+    # with scipy.stats.
+    from scipy import stats
+
+    from bandsolve.calibration.modelfile import load_model
+
+    from .conftest import gaussian_bands
+
+    rng = np.random.default_rng(4)
+    axis = np.linspace(400.0, 700.0, 61)
+    C = rng.uniform(0, 1, (30, 2))
+    A = C @ gaussian_bands(axis, (480, 590), (40, 40)) + rng.normal(0, 0.002, (30, 61))
+    ids = [f"s{i}" for i in range(30)]
+    write_spectra_csv(SpectralSet(axis, A, ids), tmp_path / "x.csv")
+    write_concentrations_csv(ConcentrationTable(ids, ["a", "b"], C), tmp_path / "c.csv")
+    assert main(["build", "--method", "pls", "--spectra", str(tmp_path / "x.csv"),
+                 "--concentrations", str(tmp_path / "c.csv"), "--components", "2",
+                 "--alpha", "0.05", "--quiet", "--out", str(tmp_path / "m.bsm")]) == 0
+    lim = load_model(tmp_path / "m.bsm").limits.models[0]
+    n, a = 30, 2
+    expected = a * (n * n - 1) / (n * (n - a)) * stats.f.ppf(0.95, a, n - a)
+    assert lim.alpha == 0.05
+    assert lim.t2 == pytest.approx(expected, rel=1e-9)

@@ -248,7 +248,8 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
                                   | None = None,
                                   blanks: SpectralSet | None = None,
                                   ceiling: float = DEFAULT_CEILING_AU,
-                                  provenance: dict[str, Any] | None = None) -> Calibration:
+                                  provenance: dict[str, Any] | None = None,
+                                  alpha: float = 0.01) -> Calibration:
     """Build a CLS model from an absorptivity table and a path length, with no standards.
 
     ``K = ε·b``: the pure spectrum of each component per unit concentration in a cell of
@@ -265,6 +266,8 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
         upwards (0 to ∞, only negative results are flagged) and a warning says so.
     blanks : SpectralSet, optional
         Replicate blank spectra; with them the figures of merit (σx, LOD, LOQ) are stored.
+    alpha : float
+        Significance level of the residual limit set from the blanks.
     """
     if absorptivities.quantity != "absorptivity":
         raise ModelError(f"{where(absorptivities.source)}expected an absorptivity table")
@@ -282,7 +285,7 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
         blank_x = blanks.on_grid(absorptivities.axis, absorptivities.axis_unit).values
         noise = noise_from_blanks(pre.transform(blank_x))
     est = CLSRegressor.from_pure_spectra(
-        K, baseline=baseline, wavelengths=pre.used_axis,
+        K, baseline=baseline, wavelengths=pre.used_axis, alpha=alpha,
         noise_sd=None if noise is None else noise.sigma,
         noise_dof=None if noise is None else noise.dof)
     ranges = _validated_ranges(absorptivities.sample_ids, validated_range or {})

@@ -71,14 +71,15 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--leverage-factor", type=float, metavar="F",
                    help="leverage flag limit: CLS F × the largest leverage inside the "
                         "calibrated ranges (default 1); PLS F × (A+1)/n (default 3)")
+    p.add_argument("--alpha", type=float, default=0.01,
+                   help="significance level of the flag limits: the residual (CLS F ratio, "
+                        "PLS Q) and PLS Hotelling T² (default 0.01)")
     p.add_argument("--ceiling", type=float, default=2.0, metavar="AU",
                    help="photometric ceiling in absorbance units (default 2.0)")
     c = p.add_argument_group("CLS options")
     c.add_argument("--intercept", action="store_true", help="estimate a background spectrum")
     c.add_argument("--baseline", choices=["none", "offset", "linear", "quadratic"],
                    default="none", help="baseline terms solved at prediction (default none)")
-    c.add_argument("--alpha", type=float, default=0.01,
-                   help="significance level of the residual limit (default 0.01)")
     c.add_argument("--non-negative", action="store_true",
                    help="predict concentrations constrained to be zero or more (analytes "
                         "that are present or absent); one held at zero has no standard error")
@@ -117,7 +118,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 #: Options that belong to one method only; giving them to another is a mistake to report.
 METHOD_OPTIONS = {
-    "cls": ("intercept", "baseline", "alpha", "absorptivity", "validated_range",
+    "cls": ("intercept", "baseline", "absorptivity", "validated_range",
             "non_negative"),
     "pls": ("components", "max_components", "cv", "select", "select_alpha", "mode", "scale",
             "savgol_window", "derivative", "offset", "q_limit"),
@@ -153,6 +154,7 @@ def _build_pls(args: argparse.Namespace, spectra: SpectralSet, **common: Any) ->
                      select=args.select, alpha=args.select_alpha, mode=args.mode,
                      scale=args.scale, savgol_window=args.savgol_window,
                      derivative=args.derivative, offset=args.offset, q_limit=args.q_limit,
+                     limit_alpha=args.alpha,
                      progress=progress_bar(args.quiet), **common)
 
 
@@ -180,7 +182,7 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
         return build_cls_from_absorptivities(eps, args.path_length, baseline=args.baseline,
                                              window=window, blanks=blanks,
                                              validated_range=ranges, ceiling=args.ceiling,
-                                             provenance=prov)
+                                             provenance=prov, alpha=args.alpha)
     if not (args.spectra and args.concentrations):
         raise BandsolveError("give --spectra and --concentrations (or --absorptivity for CLS)")
     spectra = read_spectra(args.spectra, **read_options(args))
