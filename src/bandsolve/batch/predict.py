@@ -7,9 +7,10 @@ lines (:func:`bandsolve.io.csv_spectra.open_spectra_text`) that are parsed insid
 so with several jobs the parsing runs in the worker processes; other files are read whole.
 Rows are regrouped into tasks of whole *evaluation blocks* of :data:`EVAL_ROWS` rows counted
 from the first spectrum of each input (at most ``chunk_size`` spectra and about
-:data:`TASK_BYTES` of text), and tasks are predicted in parallel with joblib (threads,
-processes, or a ``dask.distributed`` cluster). Ids are checked for repeats across all the
-tasks of a file, in input order, as the whole-file reader does. Because every spectrum is
+:data:`TASK_BYTES` of text), and tasks are predicted in parallel by worker processes beside
+this one (:mod:`bandsolve.batch._pool`) or on a ``dask.distributed`` cluster through joblib.
+Ids are checked for repeats across all the tasks of a file, in input order, as the
+whole-file reader does. Because every spectrum is
 always evaluated in the same block, the numbers are bit-identical whatever the chunk size, the
 number of jobs or the engine (matrix products give last-digit differences when the row
 grouping changes).
@@ -34,6 +35,7 @@ from typing import Any, Protocol
 import numpy as np
 import pandas as pd
 
+from bandsolve.batch._pool import shared_work, workers_for
 from bandsolve.calibration.model import EVAL_ROWS, Calibration, result_columns
 from bandsolve.errors import BandsolveError, BandsolveWarning, DataError, FormatError
 from bandsolve.flags import FLAG_COLUMN
@@ -270,7 +272,8 @@ def _task_rows(chunk_size: int) -> int:
 # ---------------------------------------------------------------------- running
 def predict_sets(model: Calibration, sets: Iterable[SpectralSet],
                  n_jobs: int = 1) -> Iterator[pd.DataFrame]:
-    """Results tables of consecutive sets, in order, predicted by ``n_jobs`` joblib workers.
+    """Results tables of consecutive sets, in order, predicted by ``n_jobs`` processes (this one
+    included: ``n_jobs - 1`` workers).
 
     Each set must start an evaluation block (as made by :func:`iter_array_sets`). The first
     error stops the iteration.
@@ -293,13 +296,16 @@ def _payloads(files: Sequence[str], options: dict[str, Any], stdin_text: str | N
             yield position, BatchFailure(item, str(exc))
 
 
-def _results(model: Calibration, payloads, n_jobs: int):
-    if n_jobs == 1:
-        return (_task(model, pos, p) for pos, p in payloads)
+def _results(model: Calibration, payloads, n_jobs: int, cluster: bool = False):
+    """Outcomes of :func:`_task` in input order: on a dask cluster through joblib, else on
+    ``n_jobs`` local processes, this one included (:mod:`bandsolve.batch._pool`)."""
+    calls = ((model, pos, p) for pos, p in payloads)
+    if not cluster:
+        return shared_work(_task, calls, workers_for(n_jobs, os.cpu_count() or 1))
     from joblib import Parallel, delayed
 
     return Parallel(n_jobs=n_jobs, return_as="generator", pre_dispatch="n_jobs")(
-        delayed(_task)(model, pos, p) for pos, p in payloads)
+        delayed(_task)(*args) for args in calls)
 
 
 @contextlib.contextmanager
@@ -343,7 +349,8 @@ def run_batch(model: Calibration, inputs: Sequence[str], sinks: Sequence[Sink], 
         file also holds at most about :data:`TASK_BYTES` of text, so memory is bounded by
         bytes.
     n_jobs : int
-        Parallel joblib workers (-1: all cores). Results do not depend on it.
+        Processes that predict, this one included (``n_jobs - 1`` worker processes; -1: one
+        per core); on a cluster, joblib workers. Results do not depend on it.
     scheduler : str, optional
         Address of a running ``dask.distributed`` scheduler to run the tasks on.
     progress : callable, optional
@@ -372,7 +379,8 @@ def run_batch(model: Calibration, inputs: Sequence[str], sinks: Sequence[Sink], 
     payloads = _payloads(files, read_options or {}, stdin_text, chunk_size, failed)
     with _engine(scheduler):
         n_workers = -1 if scheduler and n_jobs == 1 else n_jobs
-        for position, result in _checked(_results(model, payloads, n_workers), files):
+        results = _results(model, payloads, n_workers, cluster=scheduler is not None)
+        for position, result in _checked(results, files):
             if position in failed:
                 continue
             if position != current:
