@@ -10,6 +10,7 @@ import json
 import subprocess
 import sys
 
+import numpy as np
 import pytest
 
 from bandsolve.cli import COMMANDS, build_parser, main
@@ -63,3 +64,33 @@ def test_unknown_command_is_a_usage_error(capsys):
         main(["bulid"])
     assert exc.value.code == 2  # EXIT_INPUT
     assert "invalid choice" in capsys.readouterr().err
+
+
+@pytest.mark.slow
+def test_building_loads_only_what_building_needs(tmp_path):
+    # A whole `build --method pls` (reading, cross-validation, model file) imports neither
+    # plotting nor the commands' other packages (designs, batches, reports, evaluation, charts).
+    # The statistics library and pandas come with scikit-learn's base class, so they are not
+    # asked about here.
+    rng = np.random.default_rng(12345)
+    axis = np.linspace(400.0, 700.0, 31)
+    conc = rng.uniform(0.1, 1.0, (30, 2))
+    pure = np.vstack([np.exp(-0.5 * ((axis - c) / 40.0) ** 2) for c in (480, 590)])
+    spectra = conc @ pure + 0.002 * rng.standard_normal((30, axis.size))
+    ids = [f"s{i}" for i in range(30)]
+    (tmp_path / "s.csv").write_text("sample," + ",".join(map(str, axis)) + "\n" + "".join(
+        f"{s}," + ",".join(f"{v:.6f}" for v in row) + "\n"
+        for s, row in zip(ids, spectra, strict=True)))
+    (tmp_path / "c.csv").write_text("sample,A [mg/L],B [mg/L]\n" + "".join(
+        f"{s},{a:.4f},{b:.4f}\n" for s, (a, b) in zip(ids, conc, strict=True)))
+    args = ["build", "--method", "pls", "--spectra", str(tmp_path / "s.csv"),
+            "--concentrations", str(tmp_path / "c.csv"), "--out", str(tmp_path / "m.bsm"),
+            "--quiet"]
+    unwanted = ("matplotlib", "bandsolve.report", "bandsolve.design", "bandsolve.batch",
+                "bandsolve.evaluate", "bandsolve.monitor")
+    code = (f"import sys\nfrom bandsolve.cli import main\nassert main({args!r}) == 0\n"
+            f"print([m for m in sys.modules if m.startswith({unwanted!r})])")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True)
+    assert json.loads(out.stdout.strip().splitlines()[-1].replace("'", '"')) == []
+    assert (tmp_path / "m.bsm").is_file()

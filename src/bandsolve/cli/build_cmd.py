@@ -22,7 +22,6 @@ from bandsolve.cli._common import (
     read_options,
     read_with_groups,
 )
-from bandsolve.design.amounts import parse_analyte_range
 from bandsolve.errors import BandsolveError
 from bandsolve.io import read_absorptivities, read_concentrations, read_spectra
 from bandsolve.labkey import load_lab_key
@@ -176,6 +175,8 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
     if args.absorptivity:
         if args.path_length is None:
             raise BandsolveError("--absorptivity needs --path-length CM (the cell path length)")
+        from bandsolve.design.amounts import parse_analyte_range
+
         eps = read_absorptivities(args.absorptivity, axis_unit=args.axis_unit)
         ranges = {r.column: (r.low, r.high)
                   for r in map(parse_analyte_range, args.validated_range or ())}
