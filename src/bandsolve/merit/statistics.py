@@ -363,6 +363,7 @@ def univariate_calibration(
             raise DataError(f"pure_spectra has shape {s.shape}; expected {(c.shape[1], p)}.")
         share = s / np.maximum(s.sum(axis=0), np.finfo(float).tiny)
     a_c = a - a.mean(axis=0)
+    col_ss = np.einsum("ij,ij->j", a_c, a_c)
     out = []
     for k in range(c.shape[1]):
         ck = c[:, k] - c[:, k].mean()
@@ -370,7 +371,8 @@ def univariate_calibration(
         if sxx == 0.0:
             raise DataError(f"concentrations column {k + 1} is constant; cannot fit a line.")
         slopes = ck @ a_c / sxx
-        res_sd = np.sqrt(np.sum((a_c - np.outer(ck, slopes)) ** 2, axis=0) / (n - 2))
+        # Residual sum of squares of each line: Syy − b²Sxx (no n × p residual matrix).
+        res_sd = np.sqrt(np.maximum(col_ss - slopes**2 * sxx, 0.0) / (n - 2))
         if share is not None:
             score = np.abs(slopes) * share[k]
         else:
