@@ -291,38 +291,48 @@ class WideEngine:
     def fold_all(self, splits: list[tuple[np.ndarray, np.ndarray]],
                  n_settings: int) -> list[FoldOutput]:
         """Results of every fold; up to :data:`_BATCH_BYTES` of fold vectors fitted at once."""
-        n, m = self.y0.shape
+        (n, p), m = self.x0.shape, self.y0.shape[1]
         train = np.zeros((len(splits), n), dtype=bool)
         for k, (rows, _) in enumerate(splits):
             train[k, rows] = True
+        tests = [test for _, test in splits]
         if self.scale:
             outputs = []
-            for k, (rows, test) in enumerate(splits):
-                xt = self.x0[rows]
-                sd = _fold_scale(np.var(xt, axis=0) * rows.size, rows.size)
+            for k, rows in enumerate(train):
+                sd = _fold_scale(np.var(self.x0[rows], axis=0) * rows.sum(), rows.sum())
                 xs = self.x0 / sd
-                fit = gram_pls_batch(xs @ xs.T, self.y0, train[k:k + 1], n_settings)[0]
-                outputs.append(self._finish(xs, train[k], test, fit))
+                fits = gram_pls_batch(xs @ xs.T, self.y0, train[k:k + 1], n_settings)
+                outputs += self._finish(xs, train[k:k + 1], tests[k:k + 1], fits)
             return outputs
-        step = max(1, _BATCH_BYTES // (8 * n * (4 * n_settings + 3 * m)))
+        step = max(1, _BATCH_BYTES // (8 * (n * (4 * n_settings + 3 * m) + n_settings * p)))
         outputs = []
         for start in range(0, len(splits), step):
-            fits = gram_pls_batch(self.gram, self.y0, train[start:start + step], n_settings)
-            outputs += [self._finish(self.x0, train[start + i], splits[start + i][1], fit)
-                        for i, fit in enumerate(fits)]
+            batch = slice(start, start + step)
+            fits = gram_pls_batch(self.gram, self.y0, train[batch], n_settings)
+            outputs += self._finish(self.x0, train[batch], tests[batch], fits)
         return outputs
 
-    def _finish(self, xs: np.ndarray, train: np.ndarray, test: np.ndarray,
-                fit: GramFactors) -> FoldOutput:
-        """Held-out results of one fold from its fit; ``xs`` are the (scaled) centred data."""
-        n_train = int(train.sum())
-        weights = train / n_train
-        held = rows_of(test)
-        x_val = xs[held] - weights @ xs
-        # Pᵀ = TᵀX_t/τ; training scores sum to zero, so any centring of the rows gives the same P.
-        coef = fit.scores.T * (train / fit.tau[:, None])
-        return _fold_output(x_val, self.y_offset + weights @ self.y0, fit.scores[held],
-                            (coef @ xs).T, fit.y_loadings, fit.tau, n_train)
+    def _finish(self, xs: np.ndarray, train: np.ndarray, tests: list[np.ndarray],
+                fits: list[GramFactors]) -> list[FoldOutput]:
+        """Held-out results of folds fitted together; ``xs`` are the (scaled) centred data."""
+        n, p = xs.shape
+        n_comp = max(fit.tau.size for fit in fits)
+        # Pᵀ = TᵀX_t/τ; training scores sum to zero, so any centring of the rows gives the same
+        # P.  One product with the data for all folds of the batch.
+        coef = np.zeros((len(fits), n_comp, n))
+        for c, rows, fit in zip(coef, train, fits, strict=True):
+            c[:fit.tau.size] = fit.scores.T * (rows / fit.tau[:, None])
+        loadings = (coef.reshape(-1, n) @ xs).reshape(len(fits), n_comp, p)
+        n_train = train.sum(axis=1)
+        weights = train / n_train[:, None]
+        x_means, y_means = weights @ xs, self.y_offset + weights @ self.y0
+        outputs = []
+        for k, (test, fit) in enumerate(zip(tests, fits, strict=True)):
+            held = rows_of(test)
+            outputs.append(_fold_output(xs[held] - x_means[k], y_means[k], fit.scores[held],
+                                        loadings[k, :fit.tau.size].T, fit.y_loadings,
+                                        fit.tau, int(n_train[k])))
+        return outputs
 
 
 @dataclass
