@@ -291,8 +291,12 @@ def gram_pls_batch(gram: np.ndarray, y: np.ndarray, train: np.ndarray,
         """``X_c X_cᵀ u`` of each problem on all n rows; u (B, n, c) as described above."""
         c = u.shape[2]
         prod = gram @ np.moveaxis(u, 0, 1).reshape(n, n_batch * c)
-        prod = np.moveaxis(prod.reshape(n, n_batch, c), 1, 0)
-        return prod - (mask[:, None, :] @ prod) / n_train[:, None, None]
+        # Training-row means of every column; problem b needs only its own (the diagonal
+        # blocks of one small product).
+        means = (mask @ prod).reshape(n_batch, n_batch, c)[np.arange(n_batch), np.arange(n_batch)]
+        prod = prod.reshape(n, n_batch, c)
+        prod -= means / n_train[:, None]
+        return np.moveaxis(prod, 1, 0)
 
     # trace(X_c X_cᵀ) = Σ_train G_ii − 1ᵀG1/n_t over the training rows.
     total_ss = mask @ np.diagonal(gram) - np.einsum("bi,ib->b", mask, gram @ mask.T) / n_train
