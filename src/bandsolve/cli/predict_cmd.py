@@ -101,7 +101,11 @@ def register(sub: argparse._SubParsersAction) -> None:
                         "and the ledger always does)")
     run = p.add_argument_group("running")
     run.add_argument("--jobs", type=int, default=1, metavar="N",
-                     help="parallel workers (-1: all cores; default 1)")
+                     help="processes that predict, this one included (N-1 worker "
+                          "processes; -1: one per core; default 1; each worker holds its "
+                          "own copy of the numerical libraries (about 175 MB) and pays off "
+                          "only on cores that are otherwise idle; with --scheduler: cluster "
+                          "workers)")
     run.add_argument("--chunk-size", type=_positive, default=DEFAULT_CHUNK, metavar="N",
                      help=f"most spectra per parallel task (default {DEFAULT_CHUNK}; a task "
                           "holds at most about 16 MB of text)")
