@@ -10,14 +10,15 @@ the spectrum again.  :func:`nnls_gram` solves it with some coefficients constrai
 
 The solver is the active-set method of Lawson & Hanson in its normal-equation form
 (Bro & De Jong 1997), run for all spectra together with masks instead of a loop over
-spectra.  Each spectrum starts from its unconstrained estimate with the negative
-concentrations set to zero, which is usually within one or two steps of the answer; at each
-round every spectrum not yet solved takes one Lawson-Hanson step (free one concentration, or
-hold one at zero).  The minimizer on a passive set P needs ``(G_PP)⁻¹``: it is formed once
-per distinct set met (the reuse of Van Benthem & Keenan 2004), in one batched inversion per
-round, and applied to all the spectra that share it.  Every answer is then
-checked against the optimality conditions, and a spectrum that fails (nearly degenerate
-problems only) is solved again on its own.
+spectra.  Each spectrum starts from the sign pattern of its unconstrained estimate; a first
+round exchanges every concentration on the wrong side at once (one step of block principal
+pivoting, Júdice & Pires 1994), which leaves most spectra solved or within a step or two of
+the answer; from there every spectrum not yet solved takes one Lawson-Hanson step per round
+(free one concentration, or hold one at zero), which cannot cycle.  The minimizer on a
+passive set P needs ``(G_PP)⁻¹``: it is formed once per distinct set met (the reuse of Van
+Benthem & Keenan 2004), in one batched inversion per round, and applied to all the spectra
+that share it.  Every answer is then checked against the optimality conditions, and a
+spectrum that fails (nearly degenerate problems only) is solved again on its own.
 
 References
 ----------
@@ -25,7 +26,10 @@ References
    Prentice-Hall.
 .. [2] Bro, R., & De Jong, S. (1997). A fast non-negativity-constrained least squares
    algorithm. *Journal of Chemometrics*, 11(5), 393-401.
-.. [3] Van Benthem, M. H., & Keenan, M. R. (2004). Fast algorithm for the solution of
+.. [3] Júdice, J. J., & Pires, F. M. (1994). A block principal pivoting algorithm for
+   large-scale strictly monotone linear complementarity problems. *Computers & Operations
+   Research*, 21(5), 587-596.
+.. [4] Van Benthem, M. H., & Keenan, M. R. (2004). Fast algorithm for the solution of
    large-scale non-negativity-constrained least squares problems. *Journal of
    Chemometrics*, 18(10), 441-450.
 """
@@ -152,37 +156,45 @@ def _lawson_hanson(gram: np.ndarray, h: np.ndarray, bound: np.ndarray,
     solved within ``limit`` rounds come back as zero with only the free coefficients passive).
     """
     n = len(h)
-    # Start from the unconstrained minimizer with its negative concentrations set to zero:
-    # feasible, and for most spectra one or two steps from the optimum.
-    c = h @ np.linalg.inv(gram)
-    np.maximum(c, 0.0, out=c, where=bound)
-    free = (c > 0.0) | ~bound
-    tol = _gradient_tolerance(gram, h, c)
+    # Start from the sign pattern of the unconstrained minimizer.
+    unconstrained = h @ np.linalg.inv(gram)
+    free = (unconstrained > 0.0) | ~bound
+    tol = _gradient_tolerance(gram, h, unconstrained)
     coef, passive = np.zeros_like(h), np.broadcast_to(~bound, h.shape).copy()
     rows, hh = np.arange(n), h  # the rows not yet solved, and their products
-    for _ in range(limit):
+    for round_ in range(limit):
         z = np.einsum("nij,nj->ni", inverses(free), hh)
-        # Lawson-Hanson: if the minimizer on the passive set is not feasible, move from c
-        # towards it until the first concentration reaches zero, and hold that one at zero.
         bad = (z <= 0.0) & free & bound
-        ratio = np.full(z.shape, np.inf)
-        np.divide(c, np.maximum(c - z, np.finfo(float).tiny), out=ratio, where=bad)
-        step = _row_min(ratio)
-        feasible = step > 1.0
-        c += np.minimum(step, 1.0)[:, None] * (z - c)
-        np.copyto(c, z, where=feasible[:, None])
-        held = bad & ((ratio <= step[:, None]) | (c <= 0.0))
-        c[held] = 0.0
-        free &= ~held
-        # At a feasible minimizer, free the held concentration whose gradient most wants it
-        # positive; if none does, the spectrum is solved.
-        w = np.where(free | ~feasible[:, None], -np.inf, hh - c @ gram)
-        best = np.argmax(w, axis=1)
-        more = np.take_along_axis(w, best[:, None], axis=1)[:, 0] > tol
-        free[more, best[more]] = True
-        done = np.flatnonzero(feasible & ~more)
+        if round_ == 0:
+            # One exchange of block principal pivoting (Júdice & Pires 1994): every negative
+            # concentration is held at zero and every held one whose gradient wants it
+            # positive is freed, from the feasible point z with negatives set to zero.
+            flip = bad | (~free & bound & (hh - z @ gram > tol[:, None]))
+            c = np.where(bound, np.maximum(z, 0.0), z)
+            solved = ~functools.reduce(np.logical_or, flip.T)
+            free ^= flip
+        else:
+            # Lawson-Hanson: if the minimizer on the passive set is not feasible, move from c
+            # towards it until the first concentration reaches zero, and hold that one at zero.
+            ratio = np.full(z.shape, np.inf)
+            np.divide(c, np.maximum(c - z, np.finfo(float).tiny), out=ratio, where=bad)
+            step = _row_min(ratio)
+            feasible = step > 1.0
+            c += np.minimum(step, 1.0)[:, None] * (z - c)
+            np.copyto(c, z, where=feasible[:, None])
+            held = bad & ((ratio <= step[:, None]) | (c <= 0.0))
+            c[held] = 0.0
+            free &= ~held
+            # At a feasible minimizer, free the held concentration whose gradient most wants
+            # it positive; if none does, the spectrum is solved.
+            w = np.where(free | ~feasible[:, None], -np.inf, hh - c @ gram)
+            best = np.argmax(w, axis=1)
+            more = np.take_along_axis(w, best[:, None], axis=1)[:, 0] > tol
+            free[more, best[more]] = True
+            solved = feasible & ~more
+        done = np.flatnonzero(solved)
         coef[rows[done]], passive[rows[done]] = c[done], free[done]
-        keep = np.flatnonzero(~feasible | more)
+        keep = np.flatnonzero(~solved)
         rows, c, free, hh, tol = rows[keep], c[keep], free[keep], hh[keep], tol[keep]
         if rows.size == 0:
             break
