@@ -27,7 +27,6 @@ from sklearn.model_selection import (
 )
 
 from bandsolve._cv_engine import (
-    CVResult,
     FoldOutput,
     TallEngine,
     WideEngine,
@@ -35,6 +34,7 @@ from bandsolve._cv_engine import (
     rows_of,
 )
 from bandsolve._threads import single_blas_thread
+from bandsolve.cv_result import CVResult
 from bandsolve.errors import DataError, ModelError
 from bandsolve.selection import (
     ComponentSelection,

@@ -9,7 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from bandsolve._cv_engine import CVResult
+from bandsolve.cv_result import CVResult
 from bandsolve.errors import ModelError
 
 _EXACT_MAX_N = 20  # enumerate all 2ⁿ sign vectors up to this many samples
