@@ -17,7 +17,8 @@ import pytest
 
 SRC = Path(__file__).resolve().parents[1] / "src"
 #: Modules whose classes are estimators: the only ones that may read fitted attributes.
-ESTIMATOR_MODULES = {"bandsolve.cls", "bandsolve.pls", "bandsolve.preprocess"}
+ESTIMATOR_MODULES = {"bandsolve.cls", "bandsolve.cls_predict", "bandsolve.pls",
+                     "bandsolve.preprocess"}
 DISPATCH = "bandsolve.calibration.methods"
 #: Which packages may import each application package.
 UPWARD = {"bandsolve.cli": {"bandsolve.cli"},
