@@ -6,7 +6,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
-from bandsolve.calibration.model import _flag_column
+from bandsolve.calibration.results import _flag_column
 from bandsolve.flags import FLAG_CODES, join_flags, split_flags
 
 

@@ -18,16 +18,20 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from bandsolve._scan import ScanParts, embed, scan
 from bandsolve._threads import single_blas_thread
 from bandsolve.calibration.detail import Detail
 from bandsolve.calibration.methods import CalibrationMethod, method_named
 from bandsolve.calibration.records import IntervalBasis, Limits, Selection
+from bandsolve.calibration.results import (
+    INTERVAL_LEVEL,
+    TEXT_COLUMNS,
+    result_columns,
+    results_table,
+)
 from bandsolve.concentrations import ConcentrationTable, align, reference_matrix
 from bandsolve.errors import DataError, where
-from bandsolve.flags import FLAG_COLUMN, join_flags
 from bandsolve.merit import FiguresOfMerit
 from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
@@ -35,12 +39,6 @@ from bandsolve.transfer import Transfer
 
 __all__ = ["EVAL_ROWS", "INTERVAL_LEVEL", "TEXT_COLUMNS", "Aligned", "Calibration", "Detail",
            "result_columns"]
-
-#: Coverage of the prediction intervals in every results table.
-INTERVAL_LEVEL = 0.95
-
-#: Columns of a results table that hold text; every other column is a number.
-TEXT_COLUMNS = ("sample", "source", FLAG_COLUMN, "interval_basis", "notes")
 
 #: Threads evaluating blocks at once (each block's numbers do not depend on which thread).
 _CORES = max(1, min(os.cpu_count() or 1, 8))
@@ -73,27 +71,6 @@ def _scan_all(data: np.ndarray, parts: list[ScanParts], mask: np.ndarray | None
     bounds = np.cumsum([0] + [p.matrix.shape[1] for p in parts])
     return [(H[:, a:b], ss if ss.ndim == 1 else ss[:, k])
             for (a, b), k in zip(itertools.pairwise(bounds), which, strict=True)], top
-
-
-def _flag_column(n: int, checks: list[tuple[np.ndarray, str]]) -> np.ndarray:
-    """The ``flags`` text per row: codes of the true checks, in order, joined by ``;``.
-
-    Each distinct combination of raised flags is turned into text once, so the cost does not
-    grow with the number of flagged rows beyond a sort of integer keys.
-    """
-    masks = np.column_stack([np.asarray(m, dtype=bool) for m, _ in checks])
-    packed = np.ascontiguousarray(np.packbits(masks, axis=1))
-    keys = packed.view(np.dtype((np.void, packed.shape[1]))).ravel()  # one key per row
-    _, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
-    texts = np.array([join_flags(code for (_, code), on in zip(checks, masks[i], strict=True)
-                                 if on) for i in first], dtype=object)
-    return texts[inverse.ravel()]
-
-
-def result_columns(analyte: str) -> tuple[str, str, str, str]:
-    """Column names for one analyte: estimate (the exact analyte label), SE, interval ends."""
-    pct = round(INTERVAL_LEVEL * 100)
-    return analyte, f"{analyte} SE", f"{analyte} low{pct}", f"{analyte} high{pct}"
 
 
 @dataclass(frozen=True)
@@ -352,8 +329,9 @@ class Calibration:
             model, scaled = self, None
         X, notes = model.prepare(spectra)
         detail = model.detail(X)
-        return model._table(spectra, detail, detail.max_absorbance > model.ceiling,
-                            notes + ([scaled] if scaled else []) + detail.notes)
+        return results_table(spectra, detail, model.analytes, model.calibrated_range,
+                             model.interval_basis, detail.max_absorbance > model.ceiling,
+                             notes + ([scaled] if scaled else []) + detail.notes)
 
     def detail(self, X: np.ndarray) -> Detail:
         """Per-sample estimates and diagnostics for absorbance on the model grid (n × p).
@@ -438,39 +416,6 @@ class Calibration:
         dof = np.minimum(d.dof, self.interval.t_dof)
         return dataclasses.replace(d, standard_errors=np.sqrt(d.standard_errors**2 + tau**2),
                                    dof=np.where(tau > 0, dof, d.dof))
-
-    def _table(self, spectra: SpectralSet, d: Detail, over_ceiling: np.ndarray,
-               notes: list[str]) -> pd.DataFrame:
-        n = d.concentrations.shape[0]
-        t = stats.t.ppf(0.5 + INTERVAL_LEVEL / 2, np.maximum(d.dof, 1))
-        t = np.where(d.dof > 0, t, np.nan)
-        cols: dict[str, Any] = {"sample": list(spectra.sample_ids),
-                                "source": [spectra.source or ""] * n}
-        checks = [(d.residual_ratio > 1, "residual"),
-                  (d.t2_ratio > 1, "t2"),
-                  (d.leverage_ratio > 1, "leverage"), (over_ceiling, "ceiling")]
-        missing_se = np.zeros(n, dtype=bool)
-        for k, label in enumerate(self.analytes):
-            c, se = d.concentrations[:, k], d.standard_errors[:, k]
-            name, name_se, name_lo, name_hi = result_columns(label)
-            cols[name], cols[name_se] = c, se
-            cols[name_lo], cols[name_hi] = c - t[k] * se, c + t[k] * se
-            lo, hi = self.calibrated_range[k]
-            finite = np.isfinite(se)
-            margin = 2.0 * np.where(finite, se, 0.0)  # significantly outside, not by noise
-            checks += [(c - margin > hi, f"above_range:{label}"),
-                       ((c + margin < lo) & (lo > 0), f"below_range:{label}"),
-                       (c < -margin, f"negative:{label}")]
-            missing_se |= ~finite
-        checks.append((missing_se, "no_se"))
-        checks.append((~np.isfinite(d.residual_ratio), "unchecked"))
-        cols["residual_ratio"] = d.residual_ratio
-        cols["t2_ratio"] = d.t2_ratio
-        cols["leverage_ratio"] = d.leverage_ratio
-        cols[FLAG_COLUMN] = _flag_column(n, checks)
-        cols["interval_basis"] = [self.interval_basis] * n
-        cols["notes"] = ["; ".join(dict.fromkeys(notes))] * n
-        return pd.DataFrame(cols)
 
     # ------------------------------------------------------------------ description
     @property
