@@ -130,6 +130,9 @@ _BLOCK_BYTES = 1 << 20
 #: Working memory of the folds fitted together (bytes): the stacked p×p cross-products of the
 #: tall engine, the n-vectors of the wide engine.  All folds of a usual CV fit in one batch.
 _BATCH_BYTES = 1 << 25
+#: Per-fold Gram matrices (autoscaled wide data) fitted together, at most (bytes): each
+#: component reads all of them again, so they must stay in cache.
+_GRAM_CACHE_BYTES = 1 << 21
 #: Largest number of stored per-fold XᵀX elements (K·p², 128 MB) for the one-pass products.
 _MAX_FOLD_PRODUCTS = 1 << 24
 
@@ -294,20 +297,35 @@ class WideEngine:
         for k, (rows, _) in enumerate(splits):
             train[k, rows] = True
         tests = [test for _, test in splits]
-        if self.scale:
-            outputs = []
-            for k, rows in enumerate(train):
-                sd = _fold_scale(np.var(self.x0[rows], axis=0) * rows.sum(), rows.sum())
-                xs = self.x0 / sd
-                fits = gram_pls_batch(xs @ xs.T, self.y0, train[k:k + 1], n_settings)
-                outputs += self._finish(xs, train[k:k + 1], tests[k:k + 1], fits)
-            return outputs
         step = max(1, _BATCH_BYTES // (8 * (n * (4 * n_settings + 3 * m) + n_settings * p)))
+        if self.scale:
+            step = max(1, min(step, _GRAM_CACHE_BYTES // (8 * n * n)))
         outputs = []
         for start in range(0, len(splits), step):
             batch = slice(start, start + step)
-            fits = gram_pls_batch(self.gram, self.y0, train[batch], n_settings)
-            outputs += self._finish(self.x0, train[batch], tests[batch], fits)
+            if self.scale:
+                outputs += self._scaled_folds(train[batch], tests[batch], n_settings)
+            else:
+                fits = gram_pls_batch(self.gram, self.y0, train[batch], n_settings)
+                outputs += self._finish(self.x0, train[batch], tests[batch], fits)
+        return outputs
+
+    def _scaled_folds(self, train: np.ndarray, tests: list[np.ndarray],
+                      n_settings: int) -> list[FoldOutput]:
+        """Folds of autoscaled data: one Gram matrix per fold, from the spectra scaled with
+        its training SD (one scaled copy of the data at a time)."""
+        n = train.shape[1]
+        sds = [_fold_scale(np.var(self.x0[rows], axis=0) * rows.sum(), rows.sum())
+               for rows in train]
+        xs = np.empty_like(self.x0)
+        grams = np.empty((len(sds), n, n))
+        for gram, sd in zip(grams, sds, strict=True):
+            np.matmul(np.divide(self.x0, sd, out=xs), xs.T, out=gram)
+        fits = gram_pls_batch(grams, self.y0, train, n_settings)
+        outputs = []
+        for k, (sd, fit) in enumerate(zip(sds, fits, strict=True)):
+            np.divide(self.x0, sd, out=xs)
+            outputs += self._finish(xs, train[k:k + 1], tests[k:k + 1], [fit])
         return outputs
 
     def _finish(self, xs: np.ndarray, train: np.ndarray, tests: list[np.ndarray],

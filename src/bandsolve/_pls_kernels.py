@@ -267,8 +267,9 @@ def gram_pls_batch(gram: np.ndarray, y: np.ndarray, train: np.ndarray,
 
     Parameters
     ----------
-    gram : ndarray of shape (n, n)
-        ``X₀X₀ᵀ`` of the (optionally scaled) spectra, centred with any fixed row.
+    gram : ndarray of shape (n, n) or (B, n, n)
+        ``X₀X₀ᵀ`` of the (optionally scaled) spectra, centred with any fixed row; one per
+        problem when each scales the spectra its own way.
     y : ndarray of shape (n, m)
         Concentrations (any offset).
     train : ndarray of bool, shape (B, n)
@@ -287,19 +288,23 @@ def gram_pls_batch(gram: np.ndarray, y: np.ndarray, train: np.ndarray,
     mask = train.astype(np.float64)
     n_train = mask.sum(axis=1)
 
-    def centred_product(u: np.ndarray) -> np.ndarray:
-        """``X_c X_cᵀ u`` of each problem on all n rows; u (B, n, c) as described above."""
+    def product(u: np.ndarray) -> np.ndarray:
+        """``G u`` of each problem, (B, n, c): one matrix product when G is shared."""
+        if gram.ndim == 3:
+            return gram @ u
         c = u.shape[2]
         prod = gram @ np.moveaxis(u, 0, 1).reshape(n, n_batch * c)
-        # Training-row means of every column; problem b needs only its own (the diagonal
-        # blocks of one small product).
-        means = (mask @ prod).reshape(n_batch, n_batch, c)[np.arange(n_batch), np.arange(n_batch)]
-        prod = prod.reshape(n, n_batch, c)
-        prod -= means / n_train[:, None]
-        return np.moveaxis(prod, 1, 0)
+        return np.moveaxis(prod.reshape(n, n_batch, c), 1, 0)
+
+    def centred_product(u: np.ndarray) -> np.ndarray:
+        """``X_c X_cᵀ u`` of each problem on all n rows; u (B, n, c) as described above."""
+        prod = product(u)
+        prod -= (np.einsum("bi,bic->bc", mask, prod) / n_train[:, None])[:, None, :]
+        return prod
 
     # trace(X_c X_cᵀ) = Σ_train G_ii − 1ᵀG1/n_t over the training rows.
-    total_ss = mask @ np.diagonal(gram) - np.einsum("bi,ib->b", mask, gram @ mask.T) / n_train
+    total_ss = ((mask * np.diagonal(gram, axis1=-2, axis2=-1)).sum(axis=1)
+                - np.einsum("bi,bi->b", mask, product(mask[:, :, None])[:, :, 0]) / n_train)
     y_def = (y - (mask @ y / n_train[:, None])[:, None, :]) * mask[:, :, None]
     weight_coords = np.zeros((n_batch, n_components, n))
     rotation_coords = np.zeros((n_batch, n_components, n))
