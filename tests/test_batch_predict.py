@@ -266,3 +266,28 @@ def test_round_option_rounds_the_file_and_fail_on_flags_outranks_skipped_inputs(
         d = int(se_decimals([se])[0])
         # GUM 7.2.6: value rounded to the decimal place of the SE's second digit.
         assert round(value, d) == value
+
+
+def test_flag_count_leaves_out_the_rows_of_an_input_that_failed(model, tmp_path):
+    from bandsolve.batch.predict import run_batch
+
+    rng = np.random.default_rng(12345)
+    # Spectra far outside the calibration (every one flagged), then a cell that is not a number
+    # after the first evaluation block: the input fails after rows were already predicted.
+    alien = SpectralSet(axis=AXIS, values=2.5 + rng.uniform(0, 1, (EVAL_ROWS + 5, AXIS.size)),
+                        sample_ids=[f"a{i}" for i in range(EVAL_ROWS + 5)])
+    write_spectra_csv(alien, tmp_path / "alien.csv")
+    text = (tmp_path / "alien.csv").read_text().splitlines()
+    text[-2] = text[-2].rsplit(",", 1)[0] + ",x"
+    (tmp_path / "alien.csv").write_text("\n".join(text) + "\n")
+    good, _ = _mixtures(4, 7)
+    write_spectra_csv(good, tmp_path / "good.csv")
+    alone = run_batch(model, [str(tmp_path / "good.csv")], [], read_options={"layout": "wide"})
+    for jobs in (1, 2):
+        summary = run_batch(model, [str(tmp_path / "alien.csv"), str(tmp_path / "good.csv")],
+                            [], read_options={"layout": "wide"}, n_jobs=jobs)
+        assert [f.input for f in summary.failures] == [str(tmp_path / "alien.csv")]
+        # Only committed rows count: the 4 routine mixtures, flagged as when read alone (the
+        # failed input's 8,192 predicted and flagged rows are not in the results).
+        assert (summary.n_predicted, summary.n_flagged) == (4, alone.n_flagged)
+        assert alone.n_flagged <= 4

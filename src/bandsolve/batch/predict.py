@@ -366,13 +366,14 @@ def run_batch(model: Calibration, inputs: Sequence[str], sinks: Sequence[Sink], 
         raise FormatError("jobs must be a positive number of workers, or -1 for all cores")
     failed: set[int] = set()
     current: int | None = None
-    pending = 0
+    pending = flagged = 0  # rows of the current input, counted once it is committed
 
     def close_current() -> None:
         if current is not None and current not in failed:
             for sink in sinks:
                 sink.commit_input()
             summary.n_predicted += pending
+            summary.n_flagged += flagged
         if current is not None:
             step(progress, current + 1, len(files), Path(files[current]).name)
 
@@ -385,7 +386,7 @@ def run_batch(model: Calibration, inputs: Sequence[str], sinks: Sequence[Sink], 
                 continue
             if position != current:
                 close_current()
-                current, pending = position, 0
+                current, pending, flagged = position, 0, 0
                 for sink in sinks:
                     sink.begin_input(position, files[position])
             if isinstance(result, BatchFailure):
@@ -395,7 +396,7 @@ def run_batch(model: Calibration, inputs: Sequence[str], sinks: Sequence[Sink], 
                     sink.discard_input()
                 continue
             pending += len(result)
-            summary.n_flagged += int((result[FLAG_COLUMN] != "").sum())
+            flagged += int((result[FLAG_COLUMN] != "").sum())
             for sink in sinks:
                 sink.write(result)
         close_current()
