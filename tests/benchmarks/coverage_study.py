@@ -8,7 +8,8 @@ Run on demand (not collected by pytest)::
 
 For each model kind it builds many independent calibrations on simulated overlapping Gaussian
 bands (151 points, 400–700 nm, white noise σ = 0.003 AU) and measures, on 200 new in-range
-mixtures per calibration:
+mixtures per calibration (``cls-standards-M``: M analytes, 5 pure standards each;
+``cls-standards-Mx2``: each of those standards prepared and measured twice):
 
 * pooled coverage of the 95 % intervals, and the share of calibrations in which some analyte
   covers less than 0.90;
@@ -95,7 +96,9 @@ def table(C: np.ndarray, prefix: str) -> ConcentrationTable:
 
 def design(kind: str, rng, m: int) -> np.ndarray:
     if kind.startswith("cls-standards"):
-        return np.vstack([np.eye(m)[k] * v for k in range(m) for v in (0.2, 0.4, 0.6, 0.8, 1.0)])
+        copies = 2 if kind.endswith("x2") else 1  # each standard prepared twice
+        return np.vstack([np.eye(m)[k] * v for k in range(m) for v in (0.2, 0.4, 0.6, 0.8, 1.0)
+                          for _ in range(copies)])
     return rng.uniform(0.1, 1.0, (25, m))
 
 
@@ -174,7 +177,8 @@ def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng) -> dict[str, flo
 
 KINDS = {
     "cls-mixtures": 3, "cls-standards-2": 2, "cls-standards-3": 3, "cls-standards-4": 4,
-    "cls-standards-6": 6, "cls-absorptivities": 3, "pls1": 3, "pls2": 3,
+    "cls-standards-6": 6, "cls-standards-3x2": 3, "cls-standards-6x2": 6,
+    "cls-absorptivities": 3, "pls1": 3, "pls2": 3,
     "pls1+1": 3, "pls2+1": 3,
 }
 
