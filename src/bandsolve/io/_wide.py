@@ -82,8 +82,8 @@ def row_blocks(blocks: Iterable[Block], src: TextSource, after_line: int
     and comment lines."""
     for block in blocks:
         data, first = block.data, block.first_line
-        if first + data.count(b"\n") <= after_line:
-            continue
+        if first <= after_line and first + data.count(b"\n") <= after_line:
+            continue  # a block that ends before the header (counted only near the header)
         if first <= after_line:  # drop the lines up to the header
             cut = 0
             for _ in range(after_line - first + 1):
