@@ -28,10 +28,11 @@ def workers_for(n_jobs: int, cpu_count: int) -> int:
     return n_jobs if n_jobs > 0 else max(1, cpu_count + 1 + n_jobs)
 
 
-def shared_work(task: Callable[..., Any], calls: Iterable[tuple], n_processes: int
-                ) -> Iterator[Any]:
+def shared_work(task: Callable[..., Any], calls: Iterable[tuple], n_processes: int,
+                for_worker: Callable[[tuple], tuple] | None = None) -> Iterator[Any]:
     """``task(*args)`` for each ``args`` of ``calls``, in order, on ``n_processes`` processes
-    (this one included).
+    (this one included); ``for_worker(args)`` is what a worker is sent instead of ``args``
+    (for example the same rows without their text).
 
     At most ``PER_WORKER`` tasks per worker and ``2 * n_processes`` finished results wait in
     memory, so memory is bounded whatever the number of tasks. An exception raised by a task
@@ -48,7 +49,7 @@ def shared_work(task: Callable[..., Any], calls: Iterable[tuple], n_processes: i
     try:
         for args in calls:
             if sum(not f.done() for f in waiting) < PER_WORKER * workers:
-                waiting.append(executor.submit(task, *args))
+                waiting.append(executor.submit(task, *(for_worker or tuple)(args)))
             else:
                 waiting.append(_done(task, args))
             while waiting and (waiting[0].done() or len(waiting) > 2 * n_processes):

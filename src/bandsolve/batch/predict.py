@@ -301,11 +301,18 @@ def _results(model: Calibration, payloads, n_jobs: int, cluster: bool = False):
     ``n_jobs`` local processes, this one included (:mod:`bandsolve.batch._pool`)."""
     calls = ((model, pos, p) for pos, p in payloads)
     if not cluster:
-        return shared_work(_task, calls, workers_for(n_jobs, os.cpu_count() or 1))
+        return shared_work(_task, calls, workers_for(n_jobs, os.cpu_count() or 1), _light)
     from joblib import Parallel, delayed
 
     return Parallel(n_jobs=n_jobs, return_as="generator", pre_dispatch="n_jobs")(
         delayed(_task)(*args) for args in calls)
+
+
+def _light(args: tuple) -> tuple:
+    """A task for a worker on this machine: rows of a text file travel without their text,
+    which the worker reads from the file itself (the main process holds no text for it)."""
+    model, position, payload = args
+    return model, position, payload.detached() if isinstance(payload, WideRows) else payload
 
 
 @contextlib.contextmanager

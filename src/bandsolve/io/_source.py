@@ -44,11 +44,13 @@ _BOMS = ((codecs.BOM_UTF8, "utf-8-sig"), (codecs.BOM_UTF16_LE, "utf-16-le"),
 @dataclass(frozen=True)
 class Block:
     """Whole lines of a file: ``data`` (bytes in :attr:`TextSource.encoding`), the 1-based
-    number of its first line, and whether the last line lacks a line end (end of file)."""
+    number of its first line, whether the last line lacks a line end (end of file), and where
+    ``data`` starts in the file when it is the file's own bytes (None when transcoded)."""
 
     data: bytes
     first_line: int
     unterminated: bool = False
+    offset: int | None = None
 
 
 class TextSource:
@@ -67,8 +69,10 @@ class TextSource:
 
     def __init__(self, file: str | Path | BinaryIO, source: str | None = None,
                  budget: int = BLOCK_BYTES) -> None:
+        #: The file's path when it was given as one (workers may read byte ranges of it).
+        self.path: str | None = None
         if isinstance(file, str | Path):
-            self.source = source or str(file)
+            self.source, self.path = source or str(file), str(file)
             try:
                 self._raw: BinaryIO = open_hashed(file)  # fingerprints what is read
             except OSError as exc:
@@ -80,6 +84,7 @@ class TextSource:
         self._utf16: codecs.IncrementalDecoder | None = None
         self._first = True
         self._eof = False
+        self._offset = 0  # where the bytes not yet handed out start in the file
 
     def close(self) -> None:
         self._raw.close()
@@ -114,6 +119,7 @@ class TextSource:
     def _start(self, data: bytes) -> bytes:
         for bom, name in _BOMS:
             if data.startswith(bom):
+                self._offset = len(bom)
                 if name != "utf-8-sig":
                     self._utf16 = codecs.getincrementaldecoder(name)(errors="strict")
                     self.encoding = "utf-8"
@@ -155,8 +161,10 @@ class TextSource:
             del data[:cut]
             newline = b"\n" in data
             self._check(block, line)
-            yield Block(block, line, unterminated=not data and not block.endswith(b"\n"))
+            yield Block(block, line, unterminated=not data and not block.endswith(b"\n"),
+                        offset=None if self._utf16 else self._offset)
             line += block.count(b"\n")
+            self._offset += len(block)
 
     def _check(self, block: bytes, line: int) -> None:
         if b"\x00" in block:

@@ -17,8 +17,9 @@ from __future__ import annotations
 
 import io
 import warnings
+import zlib
 from collections.abc import Iterable, Iterator, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -54,15 +55,51 @@ class WideTable:
 @dataclass(frozen=True)
 class RowBlock:
     """Data lines of a wide table: ``data`` (bytes in ``encoding``, one row per line) and the
-    file line number of each row."""
+    file line number of each row.
+
+    ``offset`` is where ``data`` starts in the file when it is the file's own bytes. Such a
+    block can travel to a worker process without its text (:meth:`detached`, ``size`` bytes
+    with checksum ``crc``) and be read back there (:meth:`attached`).
+    """
 
     data: bytes
     lines: np.ndarray
     encoding: str = "utf-8"
     unterminated: bool = field(default=False, compare=False)
+    offset: int | None = field(default=None, compare=False)
+    size: int = field(default=0, compare=False)
+    crc: int = field(default=0, compare=False)
 
     def __len__(self) -> int:
         return int(self.lines.size)
+
+    def detached(self) -> RowBlock:
+        """The block without its text, when the text can be read back from the file."""
+        if self.offset is None or not self.data:
+            return self
+        return replace(self, data=b"", size=len(self.data), crc=zlib.crc32(self.data))
+
+    def attached(self, path: str | None, source: str) -> RowBlock:
+        """The block with its text, read back from ``path`` if it was detached.
+
+        Raises
+        ------
+        FormatError
+            When the bytes read back differ from those read first (the file changed).
+        """
+        if self.data or not self.size or path is None or self.offset is None:
+            return self
+        try:
+            with open(path, "rb") as handle:
+                handle.seek(self.offset)
+                data = handle.read(self.size)
+        except OSError as exc:
+            raise FormatError(f"{source}: cannot read the file ({exc.strerror or exc})"
+                              ) from None
+        if len(data) != self.size or zlib.crc32(data) != self.crc:
+            raise FormatError(f"{where(source, row=int(self.lines[0]))}the file changed while "
+                              "it was read; read it again once it is complete")
+        return replace(self, data=data, size=0, crc=0)
 
 
 def header_of(rows: Sequence[Row], dialect: Dialect, source: str) -> WideTable:
@@ -84,25 +121,28 @@ def row_blocks(blocks: Iterable[Block], src: TextSource, after_line: int
         data, first = block.data, block.first_line
         if first <= after_line and first + data.count(b"\n") <= after_line:
             continue  # a block that ends before the header (counted only near the header)
+        offset = block.offset
         if first <= after_line:  # drop the lines up to the header
             cut = 0
             for _ in range(after_line - first + 1):
                 cut = data.index(b"\n", cut) + 1
             data, first = data[cut:], after_line + 1
+            offset = None if offset is None else offset + cut
         if not data:
             continue
-        rows = _data_rows(data, first, src.encoding or "utf-8", block)
+        rows = _data_rows(data, first, src.encoding or "utf-8", block, offset)
         if len(rows):
             yield rows
 
 
-def _data_rows(data: bytes, first: int, encoding: str, block: Block) -> RowBlock:
+def _data_rows(data: bytes, first: int, encoding: str, block: Block, offset: int | None
+               ) -> RowBlock:
     arr = np.frombuffer(data, dtype=np.uint8)
     starts = np.flatnonzero(arr == 10) + 1
     starts = np.concatenate(([0], starts[starts < arr.size]))
     if not _MAYBE_SKIPPED[arr[starts]].any():
         cut = block.unterminated and not data.endswith(b"\n")
-        return RowBlock(data, first + np.arange(starts.size), encoding, cut)
+        return RowBlock(data, first + np.arange(starts.size), encoding, cut, offset)
     kept: list[str] = []
     numbers: list[int] = []
     for k, raw in enumerate(data.decode(encoding).split("\n")):
@@ -120,8 +160,10 @@ def cut_rows(block: RowBlock, n: int) -> tuple[RowBlock, RowBlock]:
     """The first ``n`` rows of ``block`` and the rest."""
     ends = np.flatnonzero(np.frombuffer(block.data, dtype=np.uint8) == 10)
     cut = int(ends[n - 1]) + 1
-    head = RowBlock(block.data[:cut], block.lines[:n], block.encoding)
-    rest = RowBlock(block.data[cut:], block.lines[n:], block.encoding, block.unterminated)
+    at = block.offset
+    head = RowBlock(block.data[:cut], block.lines[:n], block.encoding, offset=at)
+    rest = RowBlock(block.data[cut:], block.lines[n:], block.encoding, block.unterminated,
+                    None if at is None else at + cut)
     return head, rest
 
 

@@ -34,7 +34,7 @@ import contextlib
 import itertools
 import warnings
 from collections.abc import Iterator
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import BinaryIO
 
@@ -258,6 +258,7 @@ class WideRows:
     blocks: tuple[RowBlock, ...]
     unit_from: str = "file"
     first: bool = False
+    file: str | None = None  # the file's path, when blocks may be read back from it
 
     def __len__(self) -> int:
         return sum(len(b) for b in self.blocks)
@@ -267,12 +268,20 @@ class WideRows:
         """File line number of each row."""
         return np.concatenate([b.lines for b in self.blocks])
 
+    def detached(self) -> WideRows:
+        """The same rows without their text where the file can give it back (a light task for
+        a worker process on this machine, which reads its rows itself)."""
+        if self.file is None:
+            return self
+        return replace(self, blocks=tuple(b.detached() for b in self.blocks))
+
     def spectra(self) -> SpectralSet:
         """The rows as spectra (ids not checked against other blocks: see :class:`IdGuard`);
         the first block of a file also gets the warnings of :func:`final_checks`."""
         values = np.empty((len(self), self.table.axis.size))
         ids: list[str] = []
         for block in self.blocks:  # one block at a time: the parser's memory stays small
+            block = block.attached(self.file, self.table.source)
             part, names = parse_rows(self.table, block)
             values[len(ids):len(ids) + len(names)] = part
             ids.extend(names)
@@ -301,7 +310,8 @@ def open_spectra_text(file: str | Path | BinaryIO, *, layout: str = "auto",
             return
         table = opened.wide_table()
 
-        yield (WideRows(table, opened.options, (block,), opened.unit_from, first=k == 0)
+        yield (WideRows(table, opened.options, (block,), opened.unit_from, first=k == 0,
+                        file=src.path)
                for k, block in enumerate(_row_blocks(opened, table)))
 
 
