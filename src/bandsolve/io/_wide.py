@@ -135,8 +135,8 @@ def row_blocks(blocks: Iterable[Block], src: TextSource, after_line: int
             yield rows
 
 
-def _data_rows(data: bytes, first: int, encoding: str, block: Block, offset: int | None
-               ) -> RowBlock:
+def _data_rows(data: bytes, first: int, encoding: str, block: Block,
+               offset: int | None = None) -> RowBlock:
     arr = np.frombuffer(data, dtype=np.uint8)
     starts = np.flatnonzero(arr == 10) + 1
     starts = np.concatenate(([0], starts[starts < arr.size]))
