@@ -6,6 +6,13 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import settings
+
+# The suite gates every commit, so property tests draw the same examples on every run
+# ("repeatable"); `pytest --hypothesis-profile explore` draws fresh ones while developing.
+settings.register_profile("repeatable", derandomize=True, database=None)
+settings.register_profile("explore")
+settings.load_profile("repeatable")
 
 
 def _datasets() -> Path:
