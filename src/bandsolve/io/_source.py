@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import codecs
 import io
+import os
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -72,7 +73,7 @@ class TextSource:
         #: The file's path when it was given as one (workers may read byte ranges of it).
         self.path: str | None = None
         if isinstance(file, str | Path):
-            self.source, self.path = source or str(file), str(file)
+            self.source, self.path = source or str(file), os.path.abspath(file)
             try:
                 self._raw: BinaryIO = open_hashed(file)  # fingerprints what is read
             except OSError as exc:
