@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
 from scipy import stats
 
 from bandsolve.calibration.build import build_cls, build_cls_from_absorptivities
@@ -172,3 +173,20 @@ def test_error_model_keeps_no_concentration_term_for_white_noise():
     c = np.tile([0.0, 50.0, 100.0, 200.0, 300.0], 3)
     kept = sum(error_model(rng.normal(0, 1, 15), np.ones(15), c)[1] > 0 for _ in range(400))
     assert kept / 400 <= 0.10, kept
+
+
+@settings(max_examples=80)
+@given(arrays(np.float64, (9, 2), elements=st.floats(-10, 10)),
+       arrays(np.float64, 9, elements=st.floats(-10, 10)))
+def test_two_column_nnls_matches_scipy(A, b):
+    # The error model's two-column non-negative least squares (all four active sets) against
+    # scipy.optimize.nnls (Lawson & Hanson 1974): the same minimum of ‖Aθ − b‖.
+    from scipy.optimize import nnls
+
+    from bandsolve.cls_loo import _nnls2
+
+    ours = _nnls2(A, b)
+    ref = nnls(A, b)[0]
+    assert np.all(ours >= 0)
+    scale = 1.0 + np.linalg.norm(b) ** 2 + np.linalg.norm(A) ** 2
+    assert np.linalg.norm(A @ ours - b) ** 2 <= np.linalg.norm(A @ ref - b) ** 2 + 1e-9 * scale

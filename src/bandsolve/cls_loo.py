@@ -129,16 +129,30 @@ def cls_leave_one_out(X: np.ndarray, design: np.ndarray, coef: np.ndarray, gram_
 RELATIVE_ERROR_ALPHA = 0.05
 
 
+def _nnls2(A: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``min ‖Aθ − b‖``, θ ≥ 0, for two columns: the best of the four active sets (exact)."""
+    gram, rhs = A.T @ A, A.T @ b
+    candidates = [np.zeros(2)]
+    for k in (0, 1):
+        if gram[k, k] > 0:
+            one = np.zeros(2)
+            one[k] = max(0.0, rhs[k] / gram[k, k])
+            candidates.append(one)
+    if np.linalg.det(gram) > 1e-12 * gram[0, 0] * gram[1, 1]:
+        both = np.linalg.solve(gram, rhs)
+        if np.all(both >= 0):
+            candidates.append(both)
+    return min(candidates, key=lambda t: float(t @ gram @ t - 2.0 * t @ rhs))
+
+
 def _fit_variance(d: np.ndarray, columns: np.ndarray, iterations: int) -> np.ndarray:
     """``var = s² + columns @ θ``, θ ≥ 0, by reweighted non-negative least squares on d − s²."""
-    from scipy.optimize import nnls
-
     s2 = columns[:, 0]
     var = s2.copy()
     theta = np.zeros(columns.shape[1])
     for _ in range(iterations):
         w = 1.0 / var
-        theta = nnls(columns * w[:, None], (d - s2) * w)[0]
+        theta = _nnls2(columns * w[:, None], (d - s2) * w)
         var = s2 + columns @ theta
     return theta
 
