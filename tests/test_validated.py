@@ -112,6 +112,8 @@ def test_assess_out_model_from_the_command_line(tmp_path, capsys):
             "--concentrations", str(tmp_path / "vc.csv")]
     assert main([*args, "--out-model", str(tmp_path / "m.bsm")]) == 2  # never in place
     assert "never changed in place" in capsys.readouterr().err
+    assert main([*args, "--runs", "~v(\\d)"]) == 2  # runs mean nothing without a new model
+    assert "--runs sets the degrees of freedom" in capsys.readouterr().err
     assert main([*args, "--out-model", str(tmp_path / "new.bsm"),
                  "--samples", str(tmp_path / "s.csv")]) == 0
     out = capsys.readouterr()
@@ -119,6 +121,12 @@ def test_assess_out_model_from_the_command_line(tmp_path, capsys):
     new = load_model(tmp_path / "new.bsm")
     assert [f["name"] for f in new.interval.validation_files] == ["v.csv", "vc.csv"]
     assert "A [mg/L] low95" in open(tmp_path / "s.csv").read()
+    # Runs named by a pattern on the ids (v0…v29 → first digit: 10 runs) are recorded, and the
+    # effective degrees of freedom stay between runs − 1 and n − 1 (Kish design effect).
+    assert main([*args, "--out-model", str(tmp_path / "runs.bsm"), "--runs", "~v(\\d)"]) == 0
+    basis = load_model(tmp_path / "runs.bsm").interval
+    assert basis.n_runs == 10 and 9 <= basis.t_dof <= 29
+    capsys.readouterr()
     assert main(["inspect", str(tmp_path / "new.bsm")]) == 0
     shown = capsys.readouterr().out
     assert "validated on 30 independent samples" in shown and "model error SD" in shown

@@ -77,6 +77,9 @@ def run(args: argparse.Namespace) -> int:
     if args.out_model and Path(args.out_model).resolve() == Path(args.model).resolve():
         raise BandsolveError(f"--out-model {args.out_model} is the assessed model itself; "
                              "give a new file name (a model is never changed in place)")
+    if args.runs and not args.out_model:
+        raise BandsolveError("--runs sets the degrees of freedom of a validated model; give it "
+                             "with --out-model NEW.bsm, or leave it out")
     inputs = ["model", "spectra", "concentrations"]
     guard_outputs(args, {"--samples": "samples"}, inputs)
     guard_outputs(args, {"--out-model": "out_model"}, inputs, kind="model")
