@@ -87,6 +87,26 @@ def _first_vector(stacked: np.ndarray, vectors: np.ndarray) -> np.ndarray:
     return (stacked @ vectors[:, :, None])[:, :, 0]
 
 
+def _exhausted_direction(sv2: np.ndarray, first_sv2: np.ndarray, live: np.ndarray
+                         ) -> np.ndarray:
+    """Problems whose next X–Y direction is rounding noise (below RANK_TOL of the first).
+
+    Their ``sv2`` (and that of retired problems) is set to 1 in place as a placeholder, so the
+    stacked arithmetic of the step stays finite; they take no more components.
+    """
+    stop = live & ((sv2 <= RANK_TOL**2 * first_sv2) | (sv2 <= 0.0))
+    sv2[~live | stop] = 1.0
+    return stop
+
+
+def _retire(stop: np.ndarray, live: np.ndarray, n_used: np.ndarray, a: int) -> bool:
+    """Record ``a`` components for the problems in ``stop`` and drop them from ``live`` (in
+    place); False when no problem is left."""
+    n_used[stop] = a
+    live &= ~stop
+    return bool(live.any())
+
+
 def kernel_pls(cxx: np.ndarray, cxy: np.ndarray, n_components: int) -> KernelFactors:
     """Improved kernel PLS (algorithm 2) from centred cross-products.
 
@@ -152,18 +172,14 @@ def kernel_pls_batch(cxx: np.ndarray, cxy: np.ndarray,
     for a in range(n_components):
         v, sv2 = _dominant_directions(np.swapaxes(s, 1, 2) @ s)
         first_sv2 = sv2.copy() if first_sv2 is None else first_sv2
-        stop = live & ((sv2 <= RANK_TOL**2 * first_sv2) | (sv2 <= 0.0))
-        sv2[~live | stop] = 1.0  # placeholders: these problems take no more components
+        stop = _exhausted_direction(sv2, first_sv2, live)
         w = _first_vector(s, v / np.sqrt(sv2)[:, None])  # ‖S v‖ = σ_max: w has unit length
         # Deflating only XᵀY needs the rotation r (with t = X_c r), not w: r = w − R Pᵀw.
         proj = x_loadings[:, :a] @ w[:, :, None]  # (B, a, 1)
         r = w - (np.swapaxes(proj, 1, 2) @ rotations[:, :a])[:, 0]
         cxx_r = _first_vector(cxx, r)
         tau_a = np.einsum("bi,bi->b", r, cxx_r)
-        stop |= live & (tau_a <= RANK_TOL * total_ss)
-        n_used[stop] = a
-        live &= ~stop
-        if not live.any():
+        if not _retire(stop | (live & (tau_a <= RANK_TOL * total_ss)), live, n_used, a):
             break
         cxx_r[~live] = 0.0
         tau_a[~live] = 1.0
@@ -321,8 +337,7 @@ def gram_pls_batch(gram: np.ndarray, y: np.ndarray, train: np.ndarray,
         gram_y = centred_product(y_def)
         v, sv2 = _dominant_directions(np.swapaxes(y_def, 1, 2) @ gram_y)
         first_sv2 = sv2.copy() if first_sv2 is None else first_sv2
-        stop = live & ((sv2 <= RANK_TOL**2 * first_sv2) | (sv2 <= 0.0))
-        sv2[~live | stop] = 1.0  # placeholders: these problems take no more components
+        stop = _exhausted_direction(sv2, first_sv2, live)
         v /= np.sqrt(sv2)[:, None]
         g = _first_vector(y_def, v)
         gram_g = _first_vector(gram_y, v)
@@ -331,10 +346,7 @@ def gram_pls_batch(gram: np.ndarray, y: np.ndarray, train: np.ndarray,
         t = gram_g - (np.swapaxes(proj, 1, 2) @ scores[:, :a])[:, 0]
         t_train = t * mask
         tau_a = np.einsum("bi,bi->b", t_train, t_train)
-        stop |= live & (tau_a <= RANK_TOL * total_ss)
-        n_used[stop] = a
-        live &= ~stop
-        if not live.any():
+        if not _retire(stop | (live & (tau_a <= RANK_TOL * total_ss)), live, n_used, a):
             break
         t_train[~live] = 0.0
         tau_a[~live] = 1.0

@@ -130,7 +130,14 @@ RELATIVE_ERROR_ALPHA = 0.05
 
 
 def _nnls2(A: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """``min ‖Aθ − b‖``, θ ≥ 0, for two columns: the best of the four active sets (exact)."""
+    """``min ‖Aθ − b‖``, θ ≥ 0, for two columns: the best of the four active sets (exact).
+
+    Each column is first divided by its largest magnitude, so that AᵀA neither underflows
+    nor overflows whatever the units (squared concentrations in mol/L are ~1e-8).
+    """
+    scale = np.max(np.abs(A), axis=0)
+    scale = np.where(scale > 0, scale, 1.0)
+    A = A / scale
     gram, rhs = A.T @ A, A.T @ b
     candidates = [np.zeros(2)]
     for k in (0, 1):
@@ -142,7 +149,7 @@ def _nnls2(A: np.ndarray, b: np.ndarray) -> np.ndarray:
         both = np.linalg.solve(gram, rhs)
         if np.all(both >= 0):
             candidates.append(both)
-    return min(candidates, key=lambda t: float(t @ gram @ t - 2.0 * t @ rhs))
+    return min(candidates, key=lambda t: float(t @ gram @ t - 2.0 * t @ rhs)) / scale
 
 
 def _fit_variance(d: np.ndarray, columns: np.ndarray, iterations: int) -> np.ndarray:

@@ -50,7 +50,6 @@ from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
 AXIS = np.linspace(400.0, 700.0, 151)
 SIGMA = 0.003
 N_NEW = 200
-RUNS = True  # tell assess the day of each validation sample (--runs)
 FINE = np.linspace(380.0, 720.0, 3401)
 Z = (AXIS - AXIS.mean()) / ((AXIS.max() - AXIS.min()) / 2)
 BAND = np.exp(-0.5 * ((AXIS - 630.0) / 18.0) ** 2)
@@ -131,7 +130,9 @@ def covered(res, C: np.ndarray) -> np.ndarray:
     return (low <= C) & (C <= high)
 
 
-def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng) -> dict[str, float]:
+def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng,
+             runs: bool = True) -> dict[str, float]:
+    """Figures of one model kind; ``runs``: tell assess the day of each validation sample."""
     pooled, bad, flags, detect, after, bad_after, over = [], 0, [], [], [], 0, []
     for _ in range(n_cal):
         cal = build(kind, rng, m, new_day(rng, effects))
@@ -159,9 +160,9 @@ def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng) -> dict[str, flo
         Cv = np.vstack([Cv[i::5] for i in range(5)])
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            runs = {f"v{i}": str(i // 6) for i in range(30)}  # the 5 validation days
+            day_of = {f"v{i}": str(i // 6) for i in range(30)}  # the 5 validation days
             val = validated_model(cal, assess(cal, spectra(Av, "v"), table(Cv, "v")), [],
-                                  runs if RUNS else None)
+                                  day_of if runs else None)
         cov2 = covered(val.predict(spectra(At, "t")), Ct)
         after.append(cov2.mean())
         bad_after += int((cov2.mean(axis=0) < 0.90).any())
@@ -183,7 +184,7 @@ KINDS = {
 }
 
 
-def simulated(n_cal: int, only: list[str] | None) -> None:
+def simulated(n_cal: int, only: list[str] | None, runs: bool = True) -> None:
     print(f"Simulated: {n_cal} calibrations per kind, {N_NEW} new samples each")
     print(f"{'kind':<20}{'effects':<9}{'coverage':>9}{'<0.90':>7}{'flag':>7}{'absorber':>9}"
           f"{'cov after':>10}{'<0.90 after':>12}{'>2 AU':>7}{'s':>6}")
@@ -193,7 +194,7 @@ def simulated(n_cal: int, only: list[str] | None) -> None:
         for effects in (False, True):
             t0 = time.perf_counter()
             rng = np.random.default_rng(abs(hash((kind, effects))) % 2**32)
-            r = run_kind(kind, m, n_cal, effects, rng)
+            r = run_kind(kind, m, n_cal, effects, rng, runs)
             print(f"{kind:<20}{'day' if effects else 'clean':<9}{r['coverage']:>9.3f}"
                   f"{r['any_below_090']:>7.2f}{r['any_flag_clean']:>7.3f}"
                   f"{r.get('absorber_flagged', float('nan')):>9.3f}"
@@ -211,10 +212,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--no-runs", action="store_true",
                         help="validate without telling assess the days (each sample its own run)")
     args = parser.parse_args(argv)
-    global RUNS
-    RUNS = not args.no_runs
     if not args.real:
-        simulated(args.calibrations, args.only)
+        simulated(args.calibrations, args.only, runs=not args.no_runs)
     folder = next((p / "shared" / "datasets" for p in Path(__file__).resolve().parents
                    if (p / "shared" / "datasets").is_dir()), None)
     if folder is not None:

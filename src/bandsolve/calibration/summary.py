@@ -11,7 +11,7 @@ import math
 import textwrap
 from typing import Any
 
-from bandsolve.calibration.records import Limits, Selection
+from bandsolve.calibration.records import IntervalBasis, Limits, Selection
 from bandsolve.cautions import SHORT_CAUTION
 from bandsolve.concentrations import range_text
 from bandsolve.merit import FiguresOfMerit
@@ -100,7 +100,7 @@ def format_summary(description: dict[str, Any], limits: Limits, selection: Selec
     interval = d.get("interval") or {}
     if interval.get("basis") == "validated":
         runs = f" from {interval['n_runs']} runs" if interval.get("n_runs") else ""
-        dof = interval.get("dof") or interval["n_validation"] - 1
+        dof = IntervalBasis.from_dict(interval).t_dof
         notes.append(f"Intervals validated on {interval['n_validation']} independent samples"
                      f"{runs} (t quantile on {dof:.3g} effective degrees of freedom): "
                      "model error SD added to every SE: " + ", ".join(

@@ -57,6 +57,11 @@ __all__ = ["additive_model_error", "coverage_interval", "effective_dof",
 VALIDATED_METHOD = "additive model-error variance from validation residuals (moment estimator)"
 
 
+def _usable(errors: np.ndarray, standard_errors: np.ndarray) -> np.ndarray:
+    """Validation samples with a finite error and a positive finite standard error."""
+    return np.isfinite(errors) & np.isfinite(standard_errors) & (standard_errors > 0)
+
+
 def additive_model_error(errors: np.ndarray, standard_errors: np.ndarray) -> float:
     """Moment estimate of the additive model-error variance τ² (module docstring).
 
@@ -74,7 +79,7 @@ def additive_model_error(errors: np.ndarray, standard_errors: np.ndarray) -> flo
     """
     e = np.asarray(errors, dtype=float)
     s = np.asarray(standard_errors, dtype=float)
-    ok = np.isfinite(e) & np.isfinite(s) & (s > 0)
+    ok = _usable(e, s)
     if ok.sum() < 2:
         raise DataError("the model-error variance needs at least 2 validation samples with "
                         "a finite estimate and standard error")
@@ -103,8 +108,10 @@ def effective_dof(standardized: np.ndarray, runs: np.ndarray | None) -> float:
         return float(n - 1)
     labels, index = np.unique(np.asarray(runs), return_inverse=True)
     g = labels.size
-    if g < 2 or g == n:
-        return float(max(g - 1, 1) if g < 2 else n - 1)
+    if g == 1:
+        return 1.0  # one run: its errors say almost nothing about another day's
+    if g == n:
+        return float(n - 1)
     sizes = np.bincount(index).astype(float)
     means = np.bincount(index, weights=z) / sizes
     msb = np.sum(sizes * (means - z.mean()) ** 2) / (g - 1)
@@ -151,7 +158,7 @@ def validated_calibration(cal: Calibration, errors: np.ndarray, standard_errors:
     tau2 = [additive_model_error(e[:, k], s[:, k]) for k in range(e.shape[1])]
     dofs = []
     for k in range(e.shape[1]):
-        ok = np.isfinite(e[:, k]) & np.isfinite(s[:, k]) & (s[:, k] > 0)
+        ok = _usable(e[:, k], s[:, k])
         z = e[ok, k] / np.sqrt(s[ok, k] ** 2 + tau2[k])
         dofs.append(effective_dof(z, None if runs is None else np.asarray(runs)[ok]))
     record = IntervalBasis(
