@@ -12,10 +12,10 @@ import copy
 from typing import ClassVar
 
 import numpy as np
-from scipy import linalg, stats
-from sklearn.base import BaseEstimator, RegressorMixin
-from sklearn.utils.validation import check_is_fitted, validate_data
+from scipy import linalg
 
+from bandsolve._distributions import chi2_quantile, f_quantile
+from bandsolve._estimator import Estimator, Regressor, check_fitted, validated
 from bandsolve._state import RecordedState
 from bandsolve.cls_loo import LeaveOneOut, cls_leave_one_out, error_model
 from bandsolve.cls_predict import CLSPredicting, CLSPrediction
@@ -32,7 +32,7 @@ _BOX_CORNERS_MAX = 16
 BASELINE_TERMS = {"none": 0, "offset": 1, "linear": 2, "quadratic": 3}
 
 
-class CLSRegressor(CLSPredicting, RecordedState, RegressorMixin, BaseEstimator):
+class CLSRegressor(CLSPredicting, RecordedState, Regressor, Estimator):
     """CLS (K-matrix) calibration with optional background and baseline terms.
 
     Parameters
@@ -140,7 +140,7 @@ class CLSRegressor(CLSPredicting, RecordedState, RegressorMixin, BaseEstimator):
     # ------------------------------------------------------------------ fitting
     def fit(self, X, y):
         """Estimate K from spectra X (n × p, AU) and concentrations y (n × m or n,)."""
-        X, y = validate_data(self, X, y, multi_output=True, y_numeric=True)
+        X, y = validated(self, X, y, multi_output=True, y_numeric=True)
         Y = np.asarray(y, dtype=float)
         self._single_output = Y.ndim == 1
         Y = Y.reshape(len(Y), -1)
@@ -215,8 +215,8 @@ class CLSRegressor(CLSPredicting, RecordedState, RegressorMixin, BaseEstimator):
         if noise_sd is not None and noise_sd > 0 and dof > 0:
             model.s2_cal_ = float(noise_sd) ** 2
             model.residual_limit_ = float(
-                stats.f.ppf(1 - alpha, dof, noise_dof) if noise_dof
-                else stats.chi2.ppf(1 - alpha, dof) / dof)
+                f_quantile(1 - alpha, dof, noise_dof) if noise_dof
+                else chi2_quantile(1 - alpha, dof) / dof)
         return model
 
     def _design(self, Y: np.ndarray) -> np.ndarray:
@@ -313,30 +313,30 @@ class CLSRegressor(CLSPredicting, RecordedState, RegressorMixin, BaseEstimator):
     @property
     def from_standards(self) -> bool:
         """True when K was estimated from standards (False: from absorptivities)."""
-        check_is_fitted(self, "pure_spectra_")
+        check_fitted(self, "pure_spectra_")
         return self.gram_inv_ is not None
 
     @property
     def n_parameters(self) -> int:
         """m′: model spectra estimated per channel (analytes, plus one with an intercept)."""
-        check_is_fitted(self, "pure_spectra_")
+        check_fitted(self, "pure_spectra_")
         return self.pure_spectra_.shape[0] + int(bool(self.fit_intercept))
 
     @property
     def residual_limit(self) -> float:
         """Limit of the residual F ratio (NaN when it could not be set)."""
-        check_is_fitted(self, "pure_spectra_")
+        check_fitted(self, "pure_spectra_")
         return float(self.residual_limit_)
 
     @property
     def calibration_variance(self) -> float:
         """Calibration residual variance per channel s²_cal (AU²; NaN without residuals)."""
-        check_is_fitted(self, "pure_spectra_")
+        check_fitted(self, "pure_spectra_")
         return float(self.s2_cal_)
 
     def component_spectra(self) -> np.ndarray:
         """K̂, shape (m, p): absorbance per unit concentration of each analyte."""
-        check_is_fitted(self, "pure_spectra_")
+        check_fitted(self, "pure_spectra_")
         return self.pure_spectra_.copy()
 
     def for_path_factor(self, factor: float) -> CLSRegressor:
@@ -348,7 +348,7 @@ class CLSRegressor(CLSPredicting, RecordedState, RegressorMixin, BaseEstimator):
         (:meth:`from_pure_spectra`): spectra of standards also carry the cell's own
         background, which does not scale.
         """
-        check_is_fitted(self, "pure_spectra_")
+        check_fitted(self, "pure_spectra_")
         if self.from_standards:
             raise ModelError("a CLS model fitted to standards cannot be rescaled to another "
                              "path length")
@@ -358,7 +358,7 @@ class CLSRegressor(CLSPredicting, RecordedState, RegressorMixin, BaseEstimator):
 
     def model_spectra(self) -> np.ndarray:
         """``K_aug``, shape (m + q, p): the pure spectra followed by the q baseline rows."""
-        check_is_fitted(self, "pure_spectra_")
+        check_fitted(self, "pure_spectra_")
         return self.augmented_spectra_.copy()
 
     def leverage_limit(self, factor: float, calibrated_range: np.ndarray) -> float:
@@ -406,7 +406,7 @@ class CLSRegressor(CLSPredicting, RecordedState, RegressorMixin, BaseEstimator):
 
     def calibration_residuals(self, X, Y) -> np.ndarray:
         """Residuals ``A − C K̂ − bg`` of spectra with known concentrations Y (n × m), (n, p)."""
-        check_is_fitted(self, "pure_spectra_")
+        check_fitted(self, "pure_spectra_")
         Y = np.asarray(Y, dtype=float).reshape(len(X), -1)
         return np.asarray(X, dtype=float) - Y @ self.pure_spectra_ - self.background_
 

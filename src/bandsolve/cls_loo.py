@@ -23,6 +23,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from bandsolve._distributions import chi2_sf
+
 __all__ = ["LeaveOneOut", "cls_leave_one_out"]
 
 #: ``1 − h_ii`` below this: the sample alone determines a model term and cannot be left out.
@@ -199,12 +201,10 @@ def error_model(errors: np.ndarray, standard_errors: np.ndarray,
     kappa, gamma : float
         κ ≥ 1 and the relative error SD γ ≥ 0 (a fraction of the concentration).
     """
-    from scipy.stats import chi2
-
     d, s2, c2 = errors**2, standard_errors**2, concentrations**2
     a0 = max(0.0, float(np.mean(d / s2)) - 1.0)
     a, g = _fit_variance(d, np.column_stack([s2, c2]), iterations)
     lr = 2.0 * (_loglik(d, (1.0 + a) * s2 + g * c2) - _loglik(d, (1.0 + a0) * s2))
-    if g > 0 and lr > 0 and 0.5 * chi2.sf(lr, 1) < RELATIVE_ERROR_ALPHA:
+    if g > 0 and lr > 0 and 0.5 * chi2_sf(lr, 1) < RELATIVE_ERROR_ALPHA:
         return float(np.sqrt(1.0 + a)), float(np.sqrt(g))
     return float(np.sqrt(1.0 + a0)), 0.0

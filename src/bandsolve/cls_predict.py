@@ -10,8 +10,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from sklearn.utils.validation import check_is_fitted, validate_data
 
+from bandsolve._estimator import check_fitted, validated
 from bandsolve._scan import ScanParts, scan
 from bandsolve.nnls import nnls_gram
 
@@ -72,8 +72,8 @@ class CLSPredicting:
         residual, which already carries the error in K̂ (class Notes; Haaland & Thomas 1988,
         Anal. Chem. 60, 1193).
         """
-        check_is_fitted(self, "pure_spectra_")
-        return self.detail_checked(validate_data(self, X, reset=False))
+        check_fitted(self, "pure_spectra_")
+        return self.detail_checked(validated(self, X, reset=False))
 
     def detail_checked(self, X: np.ndarray) -> CLSPrediction:
         """:meth:`predict_detail` for a finite float array (n, p) checked by the caller."""

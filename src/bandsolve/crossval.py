@@ -1,7 +1,7 @@
 """Cross-validation: splitters, the one-pass PLS engine, and choosing the number of components.
 
-* Splitters follow the scikit-learn interface (``split``, ``get_n_splits``); build one from a
-  command-line string with :func:`make_splitter`.
+* Splitters (:mod:`bandsolve.splitters`) follow the scikit-learn interface (``split``,
+  ``get_n_splits``); build one from a command-line string with :func:`make_splitter`.
 * :func:`cross_validate_pls` returns the whole RMSECV curve for 1..A components from one PLS fit
   per fold (no refit per component count), with cross-validated Q residuals and Hotelling T².
 * :func:`cross_validate_estimator` cross-validates any scikit-learn regressor (e.g. CLS).
@@ -12,19 +12,8 @@
 from __future__ import annotations
 
 import numbers
-import re
-from collections.abc import Iterator
 
 import numpy as np
-from sklearn.base import clone
-from sklearn.model_selection import (
-    BaseCrossValidator,
-    GroupKFold,
-    KFold,
-    LeaveOneGroupOut,
-    LeaveOneOut,
-    RepeatedKFold,
-)
 
 from bandsolve._cv_engine import (
     FoldOutput,
@@ -33,6 +22,7 @@ from bandsolve._cv_engine import (
     put_path,
     rows_of,
 )
+from bandsolve._estimator import clone
 from bandsolve._threads import single_blas_thread
 from bandsolve.cv_result import CVResult
 from bandsolve.errors import DataError, ModelError
@@ -42,6 +32,7 @@ from bandsolve.selection import (
     randomization_test,
     select_components,
 )
+from bandsolve.splitters import GroupSplitter, InterleavedFolds, make_splitter
 
 __all__ = [
     "CVResult",
@@ -55,146 +46,6 @@ __all__ = [
     "randomization_test",
     "select_components",
 ]
-
-
-class InterleavedFolds(BaseCrossValidator):
-    """Interleaved folds: sample i is held out in fold ``i mod n_splits``.
-
-    Parameters
-    ----------
-    n_splits : int, default=10
-        Number of folds K (2 ≤ K ≤ n).
-    """
-
-    def __init__(self, n_splits: int = 10):
-        self.n_splits = n_splits
-
-    def _iter_test_indices(self, X=None, y=None, groups=None) -> Iterator[np.ndarray]:
-        n = len(X)
-        if not 2 <= self.n_splits <= n:
-            raise ValueError(f"interleaved folds need 2 <= n_splits <= n_samples={n}, got "
-                             f"n_splits={self.n_splits}")
-        for k in range(self.n_splits):
-            yield np.arange(k, n, self.n_splits)
-
-    def get_n_splits(self, X=None, y=None, groups=None) -> int:
-        """Number of folds."""
-        return self.n_splits
-
-
-class GroupSplitter(BaseCrossValidator):
-    """Leave-group-out with the groups fixed at construction.
-
-    Replicate spectra of one physical sample share a group label and are always held out
-    together.  Uses ``LeaveOneGroupOut`` (``n_splits=None``) or ``GroupKFold(n_splits)``.
-
-    Parameters
-    ----------
-    groups : array-like of shape (n,)
-        Group label of each spectrum.
-    n_splits : int, optional
-        Number of folds; ``None`` leaves out one group at a time.
-    """
-
-    def __init__(self, groups, n_splits: int | None = None):
-        self.groups = groups
-        self.n_splits = n_splits
-
-    def _inner(self) -> BaseCrossValidator:
-        return LeaveOneGroupOut() if self.n_splits is None else GroupKFold(self.n_splits)
-
-    def split(self, X, y=None, groups=None) -> Iterator[tuple[np.ndarray, np.ndarray]]:
-        """Yield (train, test) index arrays; the ``groups`` argument is ignored."""
-        return self._inner().split(X, y, np.asarray(self.groups))
-
-    def get_n_splits(self, X=None, y=None, groups=None) -> int:
-        """Number of folds."""
-        return self._inner().get_n_splits(X, y, np.asarray(self.groups))
-
-    def _iter_test_indices(self, X=None, y=None, groups=None) -> Iterator[np.ndarray]:
-        for _, test in self.split(X, y, groups):
-            yield test
-
-
-_SPEC = re.compile(
-    r"^(contiguous|interleaved|random|groups):(\d+)(?:x(\d+))?$|^(loo|groups)$")
-
-#: Spellings of earlier versions, refused with the name that replaced them.
-_RENAMED = {"blocks": "contiguous", "blinds": "interleaved"}
-
-
-def make_splitter(spec: str, groups=None, random_state: int = 0,
-                  n_samples: int | None = None) -> BaseCrossValidator:
-    """Build a splitter from a command-line string.
-
-    Parameters
-    ----------
-    spec : str
-        ``"contiguous:K"`` (K folds of consecutive samples), ``"interleaved:K"`` (sample i in
-        fold i mod K),
-        ``"random:K"`` (shuffled K-fold), ``"random:KxR"`` (K-fold repeated R times with new
-        shuffles), ``"loo"`` (leave one out), ``"groups"`` (leave one group out) or
-        ``"groups:K"`` (K folds of whole groups).
-    groups : array-like of shape (n,), optional
-        Group labels; required by ``"groups"`` specs.
-    random_state : int, default=0
-        Random state of the shuffled splitters.
-    n_samples : int, optional
-        Number of samples, to check K against it now rather than at split time.
-
-    Returns
-    -------
-    splitter
-        A scikit-learn compatible cross-validator.
-
-    Raises
-    ------
-    ModelError
-        For an unknown spec, K < 2, R < 1, K > n_samples, or a ``groups`` spec without groups.
-    """
-    match = _SPEC.match(spec.strip().lower()) if isinstance(spec, str) else None
-    old, colon, _ = spec.strip().lower().partition(":") if isinstance(spec, str) else ("", "", "")
-    if match is None and colon and old in _RENAMED:
-        new = spec.strip().lower().replace(old, _RENAMED[old], 1)
-        raise ModelError(f"cross-validation spec {spec!r} is now written {new!r} ('{old}' was "
-                         f"renamed '{_RENAMED[old]}', which says what the folds are).")
-    if match is None:
-        raise ModelError(f"cross-validation spec {spec!r} is not understood; use one of "
-                         "'contiguous:K', 'interleaved:K', 'random:K', 'random:KxR', 'loo', "
-                         "'groups' or 'groups:K' (for example 'interleaved:10').")
-    kind = match.group(1) or match.group(4)
-    k = int(match.group(2)) if match.group(2) else None
-    repeats = int(match.group(3)) if match.group(3) else None
-    if repeats is not None and kind != "random":
-        raise ModelError(f"cross-validation spec {spec!r}: only 'random:KxR' takes repeats.")
-    if k is not None and k < 2:
-        raise ModelError(f"cross-validation spec {spec!r}: the number of folds must be at "
-                         "least 2.")
-    if repeats is not None and repeats < 1:
-        raise ModelError(f"cross-validation spec {spec!r}: the number of repeats must be at "
-                         "least 1.")
-    if k is not None and n_samples is not None and k > n_samples:
-        raise ModelError(f"cross-validation spec {spec!r} asks for {k} folds but there are "
-                         f"only {n_samples} samples; use at most {n_samples} folds or 'loo'.")
-    if kind == "groups":
-        if groups is None:
-            raise ModelError(f"cross-validation spec {spec!r} needs a group label for every "
-                             "spectrum (e.g. a sample-id column); supply groups or use "
-                             "'interleaved:K'.")
-        n_groups = np.unique(np.asarray(groups)).size
-        if k is not None and k > n_groups:
-            raise ModelError(f"cross-validation spec {spec!r} asks for {k} folds but there "
-                             f"are only {n_groups} groups; use at most {n_groups}.")
-        return GroupSplitter(groups, k)
-    if kind == "loo":
-        return LeaveOneOut()
-    if kind == "contiguous":
-        return KFold(k)
-    if kind == "interleaved":
-        return InterleavedFolds(k)
-    if repeats is not None:
-        return RepeatedKFold(n_splits=k, n_repeats=repeats, random_state=random_state)
-    return KFold(k, shuffle=True, random_state=random_state)
 
 
 def _as_xy(X, Y) -> tuple[np.ndarray, np.ndarray]:

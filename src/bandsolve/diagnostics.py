@@ -11,8 +11,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats
 
+from bandsolve._distributions import beta_quantile, chi2_quantile, f_quantile, normal_quantile
 from bandsolve.errors import DataError, ModelFileError
 from bandsolve.merit.statistics import as_float_array, check_alpha
 
@@ -155,9 +155,9 @@ def t2_limit(
     if not 1 <= a < n - 1:
         raise DataError(f"T² limit needs 1 <= components ({a}) < calibration samples ({n}) - 1.")
     if kind == "new":
-        return float(a * (n * n - 1) / (n * (n - a)) * stats.f.ppf(1 - alpha, a, n - a))
+        return float(a * (n * n - 1) / (n * (n - a)) * f_quantile(1 - alpha, a, n - a))
     if kind == "calibration":
-        return float((n - 1) ** 2 / n * stats.beta.ppf(1 - alpha, a / 2, (n - a - 1) / 2))
+        return float((n - 1) ** 2 / n * beta_quantile(1 - alpha, a / 2, (n - a - 1) / 2))
     raise DataError(f"kind = {kind!r} is not known; use 'new' or 'calibration'.")
 
 
@@ -267,14 +267,14 @@ def q_limit_jackson_mudholkar(residual_eigenvalues: object, alpha: float = 0.05)
     alpha = check_alpha(alpha)
     t1, t2, t3 = _thetas(residual_eigenvalues)
     h0 = 1.0 - 2.0 * t1 * t3 / (3.0 * t2**2)
-    z = stats.norm.ppf(1.0 - alpha)
+    z = normal_quantile(1.0 - alpha)
     base = z * np.sqrt(2.0 * t2 * h0**2) / t1 + 1.0 + t2 * h0 * (h0 - 1.0) / t1**2
     params = {"theta1": t1, "theta2": t2, "theta3": t3, "h0": h0}
     return ResidualLimit("Q", "jackson-mudholkar", alpha, float(t1 * base ** (1.0 / h0)), params)
 
 
 def _scaled_chi2(g: float, h: float, alpha: float) -> float:
-    return float(g * stats.chi2.ppf(1.0 - alpha, h))
+    return float(g * chi2_quantile(1.0 - alpha, h))
 
 
 def q_limit_box(residual_eigenvalues: object, alpha: float = 0.05) -> ResidualLimit:
@@ -392,7 +392,7 @@ def f_limit_nominal(
     d1, d2 = n_wavelengths - n_terms, n_wavelengths * (n_calibration - n_terms)
     if d1 < 1 or d2 < 1:
         raise DataError("nominal F limit needs more wavelengths and samples than CLS terms.")
-    value = float(stats.f.ppf(1.0 - alpha, d1, d2))
+    value = float(f_quantile(1.0 - alpha, d1, d2))
     return ResidualLimit("F", "nominal-F", alpha, value, {"dfn": float(d1), "dfd": float(d2)})
 
 

@@ -12,9 +12,8 @@ from dataclasses import dataclass
 from typing import ClassVar
 
 import numpy as np
-from sklearn.base import BaseEstimator, RegressorMixin, TransformerMixin
-from sklearn.utils.validation import check_is_fitted, validate_data
 
+from bandsolve._estimator import Estimator, Regressor, Transformer, check_fitted, validated
 from bandsolve._pls_kernels import gram_pls, kernel_pls
 from bandsolve._scan import ScanParts
 from bandsolve._state import RecordedState
@@ -70,7 +69,7 @@ class PLSPrediction:
     dof: int
 
 
-class PLSRegressor(RecordedState, TransformerMixin, RegressorMixin, BaseEstimator):
+class PLSRegressor(RecordedState, Transformer, Regressor, Estimator):
     """Partial least squares regression of concentrations on spectra.
 
     X and Y are mean-centred; with ``scale=True`` the columns of X (wavelengths) are also
@@ -188,7 +187,7 @@ class PLSRegressor(RecordedState, TransformerMixin, RegressorMixin, BaseEstimato
         self : PLSRegressor
         """
         self._check_params()
-        X, y = validate_data(self, X, y, multi_output=True, y_numeric=True,
+        X, y = validated(self, X, y, multi_output=True, y_numeric=True,
                              dtype=np.float64, ensure_min_samples=2)
         self._y_1d = y.ndim == 1
         Y = y.reshape(-1, 1) if y.ndim == 1 else y
@@ -239,8 +238,8 @@ class PLSRegressor(RecordedState, TransformerMixin, RegressorMixin, BaseEstimato
         return int(n_components)
 
     def _centred(self, X: np.ndarray) -> np.ndarray:
-        check_is_fitted(self)
-        X = validate_data(self, X, reset=False, dtype=np.float64)
+        check_fitted(self, "coef_path_")
+        X = validated(self, X, reset=False, dtype=np.float64)
         return (X - self.x_mean_) / self.x_scale_
 
     def predict(self, X: np.ndarray, n_components: int | None = None) -> np.ndarray:
@@ -258,8 +257,8 @@ class PLSRegressor(RecordedState, TransformerMixin, RegressorMixin, BaseEstimato
         ndarray of shape (n,) when fitted on 1-D y, else (n, m)
             Predicted concentrations, in the units of the calibration concentrations.
         """
-        check_is_fitted(self)
-        X = validate_data(self, X, reset=False, dtype=np.float64)
+        check_fitted(self, "coef_path_")
+        X = validated(self, X, reset=False, dtype=np.float64)
         a = self._n_used(n_components)
         if a == 0:
             pred = np.tile(self.intercept_, (X.shape[0], 1))
@@ -353,12 +352,12 @@ class PLSRegressor(RecordedState, TransformerMixin, RegressorMixin, BaseEstimato
     @property
     def n_parameters(self) -> int:
         """A + 1: components plus the mean (the degrees of freedom RMSEC uses)."""
-        check_is_fitted(self)
+        check_fitted(self, "coef_path_")
         return int(self.n_components_) + 1
 
     def regression_vectors(self) -> np.ndarray:
         """Regression vectors b, shape (m, p), in concentration units per AU."""
-        check_is_fitted(self)
+        check_fitted(self, "coef_path_")
         return np.atleast_2d(self.coef_).copy()
 
     def net_analyte_signal(self) -> np.ndarray:

@@ -11,9 +11,8 @@ from collections.abc import Sequence
 from typing import ClassVar
 
 import numpy as np
-from sklearn.base import BaseEstimator, TransformerMixin
-from sklearn.utils.validation import check_is_fitted, validate_data
 
+from bandsolve._estimator import Estimator, Transformer, check_fitted, validated
 from bandsolve._state import RecordedState
 from bandsolve.errors import ModelError
 from bandsolve.spectra import describe_window, window_mask
@@ -39,7 +38,7 @@ def parse_window(text: str) -> list[tuple[float, float]]:
     return ranges
 
 
-class SpectralPreprocessor(RecordedState, TransformerMixin, BaseEstimator):
+class SpectralPreprocessor(RecordedState, Transformer, Estimator):
     """Savitzky–Golay smoothing or derivative, wavelength window, per-spectrum offset.
 
     Steps run in that order: the filter sees the full measured range (so the window edges
@@ -89,7 +88,7 @@ class SpectralPreprocessor(RecordedState, TransformerMixin, BaseEstimator):
 
     def fit(self, X, y=None):
         """Check the settings against the input width; learns nothing from the values."""
-        X = validate_data(self, X)
+        X = validated(self, X)
         p = X.shape[1]
         axis = None if self.axis is None else np.asarray(self.axis, dtype=float)
         if axis is not None and axis.shape != (p,):
@@ -126,19 +125,19 @@ class SpectralPreprocessor(RecordedState, TransformerMixin, BaseEstimator):
     @property
     def used_mask(self) -> np.ndarray:
         """Input points kept by the window, bool of shape (p,)."""
-        check_is_fitted(self, "mask_")
+        check_fitted(self, "mask_")
         return self.mask_
 
     @property
     def used_axis(self) -> np.ndarray | None:
         """Axis of the output columns (None when no axis was given)."""
-        check_is_fitted(self, "mask_")
+        check_fitted(self, "mask_")
         return self.axis_out_
 
     def transform(self, X):
         """Apply filter, window and offset; returns shape (n, p_out)."""
-        check_is_fitted(self, "mask_")
-        return self.apply(validate_data(self, X, reset=False))
+        check_fitted(self, "mask_")
+        return self.apply(validated(self, X, reset=False))
 
     def apply(self, X: np.ndarray) -> np.ndarray:
         """:meth:`transform` for a finite float array already checked by the caller.

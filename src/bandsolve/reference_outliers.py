@@ -23,7 +23,8 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+
+from bandsolve._distributions import normal_isf
 
 __all__ = ["ReferenceOutlier", "reference_outliers"]
 
@@ -84,7 +85,7 @@ def reference_outliers(errors: np.ndarray, standard_errors: np.ndarray,
         if ok[:, k].any():
             scale[k] = max(1.0, 1.4826 * float(np.median(np.abs(z[ok[:, k], k]))))
     t = z / scale
-    limit = max(OUTLIER_FLOOR, float(stats.norm.isf(alpha / (2 * ok.sum()))))
+    limit = max(OUTLIER_FLOOR, float(normal_isf(alpha / (2 * ok.sum()))))
     found = [ReferenceOutlier(str(sample_ids[i]), str(analytes[k]), float(e[i, k]),
                               float(t[i, k]))
              for i, k in zip(*np.nonzero(ok & (np.abs(np.where(ok, t, 0.0)) > limit)),

@@ -31,8 +31,8 @@ from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
-from sklearn.base import clone
 
+from bandsolve._estimator import clone
 from bandsolve.calibration.model import Calibration
 from bandsolve.concentrations import ConcentrationTable, split_unit
 from bandsolve.crossval import cross_validate_estimator

@@ -11,8 +11,8 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
+from bandsolve._distributions import t_quantile
 from bandsolve.calibration.detail import Detail
 from bandsolve.flags import FLAG_COLUMN, join_flags
 from bandsolve.spectra import SpectralSet
@@ -70,7 +70,7 @@ def results_table(spectra: SpectralSet, d: Detail, analytes: Sequence[str],
         Model-level remarks for the ``notes`` column.
     """
     n = d.concentrations.shape[0]
-    t = stats.t.ppf(0.5 + INTERVAL_LEVEL / 2, np.maximum(d.dof, 1))
+    t = t_quantile(0.5 + INTERVAL_LEVEL / 2, np.maximum(d.dof, 1))
     t = np.where(d.dof > 0, t, np.nan)
     cols: dict[str, Any] = {"sample": list(spectra.sample_ids),
                             "source": [spectra.source or ""] * n}

@@ -20,9 +20,8 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from sklearn.base import clone
-from sklearn.model_selection import check_cv
 
+from bandsolve._estimator import clone
 from bandsolve.calibration.build import training_arrays
 from bandsolve.cls import BASELINE_TERMS, CLSRegressor
 from bandsolve.concentrations import (
@@ -34,7 +33,6 @@ from bandsolve.concentrations import (
 from bandsolve.crossval import (
     cross_validate_estimator,
     cross_validate_pls,
-    make_splitter,
     select_components,
 )
 from bandsolve.errors import DataError, ModelError
@@ -52,6 +50,7 @@ from bandsolve.pls import PLSRegressor
 from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.progress import ProgressCallback, step
 from bandsolve.spectra import SpectralSet
+from bandsolve.splitters import FixedFolds, make_splitter
 
 __all__ = ["AbsorberEvidence", "Comparison", "Curvature", "MethodResult", "PairedComparison",
            "Recommendation", "ResidualStructure", "compare_methods", "holm", "paired_pvalues",
@@ -349,7 +348,7 @@ def compare_methods(spectra: SpectralSet, table: ConcentrationTable,
     splitter = make_splitter(cv, groups, random_state, n_samples=n) if isinstance(cv, str) \
         else cv
     folds = list(splitter.split(Z, C, groups))
-    fixed = check_cv(folds)
+    fixed = FixedFolds(folds)
     variants = {"CLS": CLSRegressor(fit_intercept=intercept, wavelengths=pre.used_axis)}
     if baseline != "none":
         variants[f"CLS+{baseline}"] = CLSRegressor(fit_intercept=intercept, baseline=baseline,

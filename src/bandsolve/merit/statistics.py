@@ -10,8 +10,8 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass
 
 import numpy as np
-from scipy import stats
 
+from bandsolve._distributions import f_sf, t_quantile, t_sf
 from bandsolve.errors import DataError
 
 __all__ = [
@@ -250,10 +250,15 @@ def regression_statistics(
     bias = float(e.mean())
     sep = float(np.sqrt(np.sum((e - bias) ** 2) / (n - 1)))
     bias_t = abs(bias) * np.sqrt(n) / sep if sep > 0 else np.inf
-    fit = stats.linregress(y, yhat)
-    t_crit = stats.t.ppf(1.0 - alpha / 2.0, n - 2)
+    # Least-squares line of predicted on reference values (as scipy.stats.linregress).
+    sxx = float(np.sum((y - y.mean()) ** 2))
+    slope = float(np.sum((y - y.mean()) * (yhat - yhat.mean())) / sxx)
+    intercept = float(yhat.mean() - slope * y.mean())
+    rss_line = float(np.sum((yhat - intercept - slope * y) ** 2))
+    slope_se = np.sqrt(rss_line / (n - 2) / sxx)
+    intercept_se = slope_se * np.sqrt(sxx / n + y.mean() ** 2)
+    t_crit = t_quantile(1.0 - alpha / 2.0, n - 2)
     # Joint test of the ideal line: restricted RSS is sum e^2 (slope 1, intercept 0).
-    rss_line = float(np.sum((yhat - fit.intercept - fit.slope * y) ** 2))
     line_f = ((sse - rss_line) / 2.0) / (rss_line / (n - 2)) if rss_line > 0 else np.inf
     sd_y = float(np.std(y, ddof=1))
     return RegressionStatistics(
@@ -263,19 +268,19 @@ def regression_statistics(
         n_parameters=None if n_parameters is None else int(n_parameters),
         bias=bias,
         bias_t=float(bias_t),
-        bias_p=float(2.0 * stats.t.sf(bias_t, n - 1)),
+        bias_p=float(2.0 * t_sf(bias_t, n - 1)),
         sep=sep,
         r2=float(1.0 - sse / np.sum((y - y.mean()) ** 2)),
         rpd=sd_y / sep if sep > 0 else float("inf"),
-        slope=float(fit.slope),
-        slope_ci=(float(fit.slope - t_crit * fit.stderr), float(fit.slope + t_crit * fit.stderr)),
-        intercept=float(fit.intercept),
+        slope=slope,
+        slope_ci=(float(slope - t_crit * slope_se), float(slope + t_crit * slope_se)),
+        intercept=intercept,
         intercept_ci=(
-            float(fit.intercept - t_crit * fit.intercept_stderr),
-            float(fit.intercept + t_crit * fit.intercept_stderr),
+            float(intercept - t_crit * intercept_se),
+            float(intercept + t_crit * intercept_se),
         ),
         line_f=float(line_f),
-        line_p=float(stats.f.sf(line_f, 2, n - 2)),
+        line_p=float(f_sf(line_f, 2, n - 2)),
         alpha=alpha,
     )
 
