@@ -94,3 +94,30 @@ def test_building_loads_only_what_building_needs(tmp_path):
                          check=True)
     assert json.loads(out.stdout.strip().splitlines()[-1].replace("'", '"')) == []
     assert (tmp_path / "m.bsm").is_file()
+
+
+@pytest.mark.parametrize("method", ["pls", "cls"])
+def test_a_build_loads_neither_scikit_learn_nor_scipy_stats(tmp_path, method):
+    # The whole build (reading, cross-validation, limits, figures of merit, model file) runs
+    # on bandsolve's estimator base, folds and distribution functions; scikit-learn and
+    # scipy.stats are imported only when a user's own objects need them.
+    rng = np.random.default_rng(12)
+    axis = np.linspace(400.0, 600.0, 41)
+    pure = np.vstack([np.exp(-0.5 * ((axis - c) / 30.0) ** 2) for c in (460, 540)])
+    conc = rng.uniform(0.1, 1.0, (24, 2))
+    spectra = conc @ pure + 0.002 * rng.standard_normal((24, axis.size))  # invented data
+    ids = [f"s{i}" for i in range(24)]
+    (tmp_path / "spectra.csv").write_text(
+        "sample," + ",".join(f"{a:g}" for a in axis) + "\n"
+        + "".join(f"{s}," + ",".join(f"{v:.6f}" for v in row) + "\n"
+                  for s, row in zip(ids, spectra, strict=True)))
+    (tmp_path / "conc.csv").write_text(
+        "sample,a [mg/L],b [mg/L]\n"
+        + "".join(f"{s},{c[0]:.4f},{c[1]:.4f}\n" for s, c in zip(ids, conc, strict=True)))
+    args = ["build", "--method", method, "--spectra", str(tmp_path / "spectra.csv"),
+            "--concentrations", str(tmp_path / "conc.csv"), "--out",
+            str(tmp_path / "model.bsm"), "--quiet"]
+    code = (f"from bandsolve.cli import main\ntry:\n    main({args!r})\n"
+            "except SystemExit as exc:\n    assert not exc.code, exc.code")
+    assert _loaded_after(code) == ["pandas"]
+    assert (tmp_path / "model.bsm").is_file()

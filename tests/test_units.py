@@ -8,9 +8,17 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import constants
 
+from bandsolve import units
 from bandsolve.errors import DataError
 from bandsolve.spectra import SpectralSet
 from bandsolve.units import convert_axis_values, guess_axis_unit, normalise_unit
+
+
+def test_the_exact_si_constants_are_scipys():
+    # h, c and e are exact by the SI definition of 2019; scipy.constants is the reference.
+    assert units._PLANCK == constants.h
+    assert units._LIGHT == constants.c
+    assert units._ELECTRON_VOLT == constants.electron_volt
 
 
 def test_photon_energy_at_500_nm():
