@@ -177,3 +177,31 @@ def test_pls1_models_share_one_pass_over_the_spectra(calibration, scale):
     apart = cal.kind.detail(cal.estimators, cal.limits.models, scans)
     np.testing.assert_allclose(detail.residual_ratio, apart.residual_ratio, rtol=1e-9)
     np.testing.assert_allclose(detail.t2_ratio, apart.t2_ratio, rtol=1e-9)
+
+
+def test_q_limit_catches_a_band_at_the_noise_level_in_every_calibration():
+    # Theory (Box 1954; Haaland & Thomas 1988 for the 1 + h factor): a band whose part
+    # outside the model's span has an RMS equal to the noise σ adds p·σ² to a Q of about
+    # (p − A)(1 + h)σ², about doubling it, far above a 99 % limit; clean samples exceed that
+    # limit about 1 % of the time. Each of 4 calibrations of 25 random mixtures.
+    from .conftest import gaussian_bands
+
+    axis = np.linspace(400.0, 700.0, 151)
+    K = gaussian_bands(axis, (450, 545, 640), (38, 38, 38))
+    band = np.exp(-0.5 * ((axis - 630.0) / 18.0) ** 2)
+    seen = band - K.T @ np.linalg.lstsq(K.T, band, rcond=None)[0]
+    band *= 0.003 / np.sqrt(np.mean(seen**2))
+    caught, false = [], []
+    for rs in range(4):
+        rng = np.random.default_rng(300 + rs)
+        C, A = _simulate(rng, K, 25, low=0.1)
+        ids = [f"c{i}" for i in range(25)]
+        cal = build_pls(SpectralSet(axis, A, ids), ConcentrationTable(ids, LABELS, C),
+                        components=3, cv="interleaved:5")
+        _, At = _simulate(rng, K, 400, low=0.1)
+        new = [f"u{i}" for i in range(400)]
+        false.append((cal.predict(SpectralSet(axis, At, new))["residual_ratio"] > 1).mean())
+        caught.append((cal.predict(SpectralSet(axis, At + band, new))["residual_ratio"]
+                       > 1).mean())
+    assert min(caught) >= 0.95, caught
+    assert np.mean(false) <= 0.025, false

@@ -369,3 +369,21 @@ def test_cv_chosen_pls_reaches_the_noise_limited_bound():
         assert chosen >= 3
         # METHODS §9 measured ≈1.10× for CV-chosen PLS; the task allows 1.2×.
         assert rmsep <= 1.2 * bound[j]
+
+
+@pytest.mark.parametrize("spec", ["contiguous:5", "interleaved:4", "loo"])
+def test_held_out_leverage_matches_scikit_learn_refits(spec):
+    # Reference: scikit-learn's PLSRegression refitted on each training fold; the leverage of
+    # a held-out sample is 1/n_t + t(TᵀT)⁻¹tᵀ against that fold's training scores (Martens &
+    # Næs 1989, from memory), which does not depend on the scores' sign or algorithm.
+    rng = np.random.default_rng(8)
+    X, Y = _data(rng, 23, 40)
+    res = cross_validate_pls(X, Y, 4, cv=make_splitter(spec))
+    expected = np.empty(len(X))
+    for train, test in KFold(len(X)).split(X) if spec == "loo" else make_splitter(spec).split(X):
+        ref = PLSRegression(n_components=3, scale=False, tol=1e-14, max_iter=5000).fit(
+            X[train], Y[train])
+        T, t = ref.x_scores_, ref.transform(X[test])
+        expected[test] = 1.0 / train.size + np.einsum(
+            "ij,jk,ik->i", t, np.linalg.inv(T.T @ T), t)
+    np.testing.assert_allclose(res.leverage(2), expected, rtol=1e-8)

@@ -222,3 +222,16 @@ def test_input_errors_name_the_problem():
         dg.q_residuals(np.array([[1.0, np.nan]]))
     with pytest.raises(DataError, match="probability"):
         dg.q_limit_box(np.ones(3), alpha=5)
+
+
+def test_q_limit_from_values_keeps_h_within_the_spectrum():
+    # Values from 0.01 χ²_300 moment-fit to h ≈ 300; a spectrum that leaves only 120 residual
+    # degrees of freedom caps h at 120, and the limit is then (mean/120) χ²_120 at 1 − α
+    # (reference quantile: scipy.stats.chi2).
+    values = 0.01 * np.random.default_rng(9).chisquare(300, size=4000)
+    free = dg.q_limit_from_values(values, 0.01)
+    capped = dg.q_limit_from_values(values, 0.01, max_dof=120)
+    assert free.parameters["h"] > 200 and capped.parameters["h"] == 120
+    assert capped.value == pytest.approx(values.mean() / 120 * stats.chi2.ppf(0.99, 120),
+                                         rel=1e-12)
+    assert capped.value > free.value  # fewer degrees of freedom, heavier tail

@@ -70,6 +70,19 @@ class CVResult:
     hotelling_t2: np.ndarray | None
     repeat_squared_errors: np.ndarray | None = None
 
+    def leverage(self, setting: int) -> np.ndarray:
+        """Held-out leverage ``h_i = 1/n_t + T²_i/(n_t − 1)`` of each sample, shape (n,).
+
+        ``setting`` indexes :attr:`settings` (component count − 1 for PLS); ``n_t`` is the size
+        of the training set the sample was held out from (``n`` minus its split's size). Raises
+        ModelError for generic estimators, which record no T².
+        """
+        if self.hotelling_t2 is None:
+            raise ModelError("this cross-validation recorded no Hotelling T², so no leverage.")
+        n = self.fold_index.size
+        n_train = n - np.bincount(self.fold_index)[self.fold_index]
+        return 1.0 / n_train + self.hotelling_t2[setting] / (n_train - 1)
+
     @property
     def errors(self) -> np.ndarray:
         """``predictions − reference``, shape (n_settings, n, m)."""

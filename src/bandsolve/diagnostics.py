@@ -293,28 +293,39 @@ def q_limit_box(residual_eigenvalues: object, alpha: float = 0.05) -> ResidualLi
     return ResidualLimit("Q", "box", alpha, _scaled_chi2(g, h, alpha), {"g": g, "h": h})
 
 
-def _moment_fit(values: object, name: str, alpha: float) -> tuple[float, float, float, float]:
+def _moment_fit(values: object, name: str, alpha: float,
+                max_dof: float | None = None) -> tuple[float, float, float, float]:
     v = as_float_array(values, name, 1)
     if v.size < 3 or np.any(v < 0):
         raise DataError(f"{name}: need at least 3 non-negative calibration values.")
     mean, var = float(v.mean()), float(v.var(ddof=1))
     if var == 0.0:
         raise DataError(f"{name}: all values are equal; a χ² fit needs spread.")
-    g, h = var / (2.0 * mean), 2.0 * mean**2 / var
+    h = 2.0 * mean**2 / var
+    if max_dof is not None:
+        h = min(h, float(max_dof))
+    g = mean / h
     return g, h, _scaled_chi2(g, h, alpha), float(v.size)
 
 
-def q_limit_from_values(q_values: object, alpha: float = 0.05) -> ResidualLimit:
+def q_limit_from_values(q_values: object, alpha: float = 0.05,
+                        max_dof: float | None = None) -> ResidualLimit:
     """Q limit by moment-matching ``g χ²_h`` to calibration Q values.
 
-    ``g = v / (2 m)``, ``h = 2 m² / v`` with m, v the mean and variance (ddof=1) of the values.
-    Pass cross-validated Q values: fitted calibration residuals are shrunk.
+    ``h = 2 m² / v``, ``g = m / h`` with m, v the mean and variance (ddof=1) of the values
+    (Nomikos & MacGregor 1995). Pass cross-validated Q values: fitted calibration residuals
+    are shrunk.
 
     Parameters
     ----------
     q_values : array_like, shape (n,)
-        Cross-validated Q of the calibration samples (AU²).
+        Cross-validated Q of the calibration samples (AU², or any common scale).
     alpha : float
+    max_dof : float, optional
+        Upper bound on h. The Q of a p-point spectrum after A components has at most
+        ``p − A`` degrees of freedom; from a few dozen values the variance is often
+        under-estimated by chance, and an h above that bound would set too low a limit
+        (common practice: an estimate is kept inside what the model allows).
 
     References
     ----------
@@ -322,7 +333,7 @@ def q_limit_from_values(q_values: object, alpha: float = 0.05) -> ResidualLimit:
     processes. Technometrics 37, 41-59.
     """
     alpha = check_alpha(alpha)
-    g, h, value, n = _moment_fit(q_values, "q_values", alpha)
+    g, h, value, n = _moment_fit(q_values, "q_values", alpha, max_dof)
     return ResidualLimit("Q", "moment-chi2", alpha, value, {"g": g, "h": h, "n_values": n})
 
 

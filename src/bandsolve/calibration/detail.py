@@ -20,6 +20,10 @@ __all__ = ["CLS_LEVERAGE_FACTOR", "Detail", "LEVERAGE_FACTOR", "cls_detail", "pl
 #: PLS leverage warning limit is LEVERAGE_FACTOR × (A + 1) / n (Hoaglin & Welsch 1978).
 LEVERAGE_FACTOR = 3.0
 
+#: How a PLS Q limit set on ``Q/(1 + h)`` is named in the model (files before it hold limits
+#: on Q itself, under other names, and are read as they were written).
+Q_PER_LEVERAGE = "moment-chi2 of Q/(1 + h)"
+
 #: CLS leverage warning limit is CLS_LEVERAGE_FACTOR × the largest leverage of a composition
 #: inside the calibrated ranges (:meth:`CLSRegressor.leverage_limit`).
 CLS_LEVERAGE_FACTOR = 1.0
@@ -110,7 +114,9 @@ def pls_detail(models: Sequence[PLSRegressor], limits: Sequence[EstimatorLimits]
     for PLS1 with one component too many; Faber & Bro 2002, Chemom. Intell. Lab. Syst. 61,
     133, on the MSEC form); RMSECV rises with over-fitting, so the interval follows the
     real error on either side of the right count. Ratios of T², Q and leverage to their
-    limits are the largest over the per-analyte models for PLS1. ``scans`` holds each
+    limits are the largest over the per-analyte models for PLS1. The Q ratio is
+    ``[Q/(1 + h)]/limit`` for limits set that way (``Q_PER_LEVERAGE``): a new residual carries
+    the loadings' estimation error in proportion to ``1 + h``. ``scans`` holds each
     model's scan products ``(H, ss)`` (:meth:`PLSRegressor.scan_parts`).
 
     References
@@ -142,7 +148,8 @@ def pls_detail(models: Sequence[PLSRegressor], limits: Sequence[EstimatorLimits]
         ses.append(np.sqrt(np.maximum(var, 0.0)))
         dofs.extend(np.where((floor > 0) & (floor >= error_var - s2_ref), lim.noise_floor_dof,
                              d.dof).tolist())
-        q_ratio = np.maximum(q_ratio, d.q / lim.residual)
+        q = d.q / (1.0 + d.leverage) if lim.residual_method == Q_PER_LEVERAGE else d.q
+        q_ratio = np.maximum(q_ratio, q / lim.residual)
         t2_ratio = np.maximum(t2_ratio, d.t2 / lim.t2)
         lev_ratio = np.maximum(lev_ratio, d.leverage / lim.leverage)
     return Detail(
