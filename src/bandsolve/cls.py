@@ -379,14 +379,21 @@ class CLSRegressor(CLSPredicting, RecordedState, Regressor, Estimator):
         m = low.size
         if m <= _BOX_CORNERS_MAX:
             bits = (np.arange(2**m)[:, None] >> np.arange(m)) & 1
-            corners = np.where(bits == 1, high, low)
-            if self.fit_intercept:
-                corners = np.column_stack([corners, np.ones(len(corners))])
-            box = np.max(np.einsum("ij,jk,ik->i", corners, self.gram_inv_, corners))
+            box = np.max(self.composition_leverage(np.where(bits == 1, high, low)))
         else:
             far = np.maximum(np.abs(low), np.abs(high))
             box = np.linalg.eigvalsh(self.gram_inv_)[-1] * (far @ far + int(self.fit_intercept))
         return float(factor * box)
+
+    def composition_leverage(self, compositions: np.ndarray) -> np.ndarray:
+        """``h = c̃ᵀ(CᵀC)⁻¹c̃`` of compositions (n, m), with the intercept's 1 appended when
+        fitted (Haaland & Thomas 1988); NaN for a model without standards."""
+        c = np.atleast_2d(np.asarray(compositions, dtype=float))
+        if not self.from_standards:
+            return np.full(len(c), np.nan)
+        if self.fit_intercept:
+            c = np.column_stack([c, np.ones(len(c))])
+        return np.einsum("ij,jk,ik->i", c, self.gram_inv_, c)
 
     def blank_leverage(self) -> float:
         """h0 of the blank composition ``c0 = 0`` (1 for the intercept column), ``c0ᵀ(CᵀC)⁻¹c0``.

@@ -102,11 +102,7 @@ class CLSPredicting:
         n = len(H)
         dof = K.shape[1] - m - q
         conc = coef[:, :m]
-        if self.gram_inv_ is None:
-            lev = np.zeros(n)
-        else:
-            ctil = np.column_stack([conc, np.ones(n)]) if self.fit_intercept else conc
-            lev = np.einsum("ij,ij->i", ctil @ self.gram_inv_, ctil)
+        lev = np.zeros(n) if self.gram_inv_ is None else self.composition_leverage(conc)
         note = ""
         if dof > 0:
             s2 = rss / dof

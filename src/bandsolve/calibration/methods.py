@@ -97,6 +97,13 @@ class CalibrationMethod(ABC):
         figures of merit (PLS: the pure spectra are unknown)."""
         return np.full(m, np.nan)
 
+    def mid_range_leverage(self, estimators: Sequence[Any],
+                           calibrated_range: np.ndarray) -> float | None:
+        """Leverage h of a composition at the centre of every calibrated range, where the
+        model's own estimation error is a share ``h/(1 + h)`` of a result's noise variance,
+        common to every result of the calibration; None where the method does not state it."""
+        return None
+
 
 # The two subclasses below set the same class attributes in the same order on purpose: they
 # are the table of what differs between the methods, read side by side.
@@ -152,6 +159,14 @@ class _CLS(CalibrationMethod):
     def selectivity(self, estimators, m):
         # SEL = ‖NAS‖/‖s_k‖ (Lorber 1986); the noise level does not enter it.
         return cls_figures(estimators[0].model_spectra(), m, 1.0).selectivity
+
+    def mid_range_leverage(self, estimators, calibrated_range):
+        # Cov(ĉ) ∝ (1 + h)(K̂K̂ᵀ)⁻¹ with h = c̃ᵀ(CᵀC)⁻¹c̃ (Haaland & Thomas 1988): the 1 is the
+        # sample's own noise, h the error of K̂, which every result of the model carries.
+        est = estimators[0]
+        if not est.from_standards:
+            return None
+        return float(est.composition_leverage(np.mean(calibrated_range, axis=1))[0])
 
 
 class _PLS(CalibrationMethod):

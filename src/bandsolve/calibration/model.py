@@ -431,6 +431,14 @@ class Calibration:
         return format_summary(self.describe(), self.limits, self.selection, self.merit,
                               f"Calibration: {self.kind.title}")
 
+    @property
+    def shared_error(self) -> dict[str, float] | None:
+        """Leverage h at the centre of the calibrated ranges and the share ``h/(1 + h)`` of a
+        result's noise variance that comes from the model's own estimation (CLS from
+        standards), or None."""
+        h = self.kind.mid_range_leverage(self.estimators, self.calibrated_range)
+        return None if h is None else {"mid_range_leverage": h, "share": h / (1.0 + h)}
+
     def describe(self) -> dict[str, Any]:
         """JSON-friendly summary: method, analytes and ranges, axis, preprocessing, limits."""
         return {
@@ -451,4 +459,5 @@ class Calibration:
             "provenance": dict(self.provenance),
             "interval": ({"basis": "calibration only"} if self.interval is None
                          else self.interval.to_dict()),
+            "shared_error": self.shared_error,
         } | ({"transfer": self.transfer.describe()} if self.transfer is not None else {})

@@ -13,6 +13,7 @@ import pandas as pd
 from matplotlib.figure import Figure
 
 from bandsolve.calibration.model import Calibration
+from bandsolve.calibration.summary import shared_error_note
 from bandsolve.cautions import CAUTIONS
 from bandsolve.concentrations import range_text
 from bandsolve.flags import FLAG_CODES
@@ -192,6 +193,8 @@ def model_section(cal: Calibration) -> str:
                                               strict=True))))
         rows.append(("validation degrees of freedom", f"{cal.interval.t_dof:.3g}" + (
             f" ({cal.interval.n_runs} runs)" if cal.interval.n_runs else "")))
+    if cal.shared_error:
+        rows.append(("error shared by all results", shared_error_note(cal.shared_error)))
     rows += [(f"setting: {k}", v) for k, v in cal.settings.items()]
     return f"<h3>Definition</h3>{kv_table(rows)}" + _limits_html(cal)
 
