@@ -12,7 +12,6 @@ import copy
 from typing import ClassVar
 
 import numpy as np
-from scipy import linalg
 
 from bandsolve._distributions import chi2_quantile, f_quantile
 from bandsolve._estimator import Estimator, Regressor, check_fitted, validated
@@ -158,7 +157,7 @@ class CLSRegressor(CLSPredicting, RecordedState, Regressor, Estimator):
                 "with another or with the intercept); use a design where each analyte varies "
                 "independently"
             )
-        self.gram_inv_ = linalg.inv(gram)
+        self.gram_inv_ = _inverse(gram)
         self.n_calibration_ = n
         coef = self.gram_inv_ @ (C.T @ X)
         self._set_spectra(coef)
@@ -239,7 +238,7 @@ class CLSRegressor(CLSPredicting, RecordedState, Regressor, Estimator):
                 "the pure spectra (with baseline terms) are linearly dependent over this "
                 "wavelength range; widen the range or drop baseline terms"
             )
-        self.aug_gram_inv_ = linalg.inv(aug @ aug.T)
+        self.aug_gram_inv_ = _inverse(aug @ aug.T)
 
     def _baseline_rows(self, p: int) -> np.ndarray:
         q = BASELINE_TERMS[self.baseline]
@@ -433,6 +432,14 @@ class CLSRegressor(CLSPredicting, RecordedState, Regressor, Estimator):
         tags.target_tags.multi_output = True
         return tags
 
+
+
+def _inverse(matrix: np.ndarray) -> np.ndarray:
+    """``scipy.linalg.inv``, imported on first use: scipy.linalg adds ~0.05 s to the start-up
+    of every command that imports this module, most of which never fit a CLS model."""
+    from scipy import linalg
+
+    return linalg.inv(matrix)
 
 
 def _residual_limit(f_ratios: np.ndarray, alpha: float) -> float:

@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 
 from bandsolve import __version__
+from bandsolve._threads import one_blas_thread
 from bandsolve.calibration.detail import CLS_LEVERAGE_FACTOR
 from bandsolve.calibration.merit import blank_arrays, merit_from_arrays
 from bandsolve.calibration.model import Calibration
@@ -127,6 +128,7 @@ def check_ceiling(spectra: SpectralSet, mask: np.ndarray, ceiling: float) -> Non
         )
 
 
+@one_blas_thread
 def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: bool = False,
               baseline: str = "none", window: list[tuple[float, float]] | None = None,
               blank: SpectralSet | None = None, blanks: SpectralSet | None = None,

@@ -7,6 +7,7 @@ from typing import Any
 
 import numpy as np
 
+from bandsolve._threads import one_blas_thread
 from bandsolve.calibration.build import (
     check_ceiling,
     outlier_record,
@@ -162,6 +163,7 @@ def _q_limit(model: PLSRegressor, Z: np.ndarray, cv_result: CVResult, a: int, al
     return q_limit_jackson_mudholkar(eig * (np.mean(q_cv) / fitted_mean), alpha)
 
 
+@one_blas_thread
 def build_pls(spectra: SpectralSet, table: ConcentrationTable, *,
               components: int | str = "auto", max_components: int = 15,
               cv: Any = "interleaved:10", groups=None, select: str = "randomization",
