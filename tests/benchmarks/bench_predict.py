@@ -31,9 +31,9 @@ from pathlib import Path
 import numpy as np
 
 from bandsolve.batch.predict import predict_inputs
+from bandsolve.calibration.blocks import EVAL_ROWS
 from bandsolve.calibration.build import build_cls
 from bandsolve.calibration.build_pls import build_pls
-from bandsolve.calibration.model import EVAL_ROWS
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.spectra import SpectralSet
 

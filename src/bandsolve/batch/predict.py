@@ -36,7 +36,8 @@ import numpy as np
 import pandas as pd
 
 from bandsolve.batch._pool import shared_work, workers_for
-from bandsolve.calibration.model import EVAL_ROWS, Calibration, result_columns
+from bandsolve.calibration.blocks import EVAL_ROWS
+from bandsolve.calibration.model import Calibration, result_columns
 from bandsolve.errors import BandsolveError, BandsolveWarning, DataError, FormatError
 from bandsolve.flags import FLAG_COLUMN
 from bandsolve.io._wide import RowBlock, cut_rows

@@ -2,6 +2,8 @@
 
 * :mod:`~bandsolve.calibration.model` — :class:`Calibration`, the frozen model that checks new
   spectra and returns results with standard errors, intervals, diagnostics and flags.
+* :mod:`~bandsolve.calibration.blocks` — how it reads spectra: fixed blocks of rows, one scan
+  pass each, on all cores.
 * :mod:`~bandsolve.calibration.build` and :mod:`~bandsolve.calibration.build_pls` — building
   CLS and PLS calibrations from spectra and concentrations.
 * :mod:`~bandsolve.calibration.records` — the typed limits and component-selection records.

@@ -8,10 +8,7 @@ standard errors, prediction intervals, diagnostics and flags.
 from __future__ import annotations
 
 import dataclasses
-import itertools
-import os
 from collections.abc import Mapping
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from types import MappingProxyType
 from typing import Any
@@ -19,8 +16,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from bandsolve._scan import ScanParts, embed, scan
-from bandsolve._threads import single_blas_thread
+from bandsolve.calibration.blocks import EVAL_ROWS, in_blocks, scan_block
 from bandsolve.calibration.detail import Detail
 from bandsolve.calibration.methods import CalibrationMethod, method_named
 from bandsolve.calibration.records import IntervalBasis, Limits, Selection
@@ -39,38 +35,6 @@ from bandsolve.transfer import Transfer
 
 __all__ = ["EVAL_ROWS", "INTERVAL_LEVEL", "TEXT_COLUMNS", "Aligned", "Calibration", "Detail",
            "result_columns"]
-
-#: Threads evaluating blocks at once (each block's numbers do not depend on which thread).
-_CORES = max(1, min(os.cpu_count() or 1, 8))
-
-#: Rows per evaluation block: spectra are always evaluated in these fixed blocks (counted from
-#: the first row given) so results do not depend on how a batch is chunked. Blocks are
-#: evaluated on all cores at once; inside a block, spectra are read in cache-sized slices
-#: (:mod:`bandsolve._scan`). Measured on 2 cores, 2×10⁵ × 300: 4096 rows 6.7× the
-#: memory-read floor, 8192 rows 5.4× (CLS).
-EVAL_ROWS = 8192
-
-
-def _scan_all(data: np.ndarray, parts: list[ScanParts], mask: np.ndarray | None
-              ) -> tuple[list[tuple[np.ndarray, np.ndarray]], np.ndarray]:
-    """Scan products of every estimator in one pass over the spectra (PLS1: one per analyte).
-
-    Estimators with different column scales need different weighted sums of squares: each
-    distinct set of weights becomes one column of the scan's weight matrix.
-    """
-    weights: list[np.ndarray] = []
-    which = []
-    for p in parts:
-        found = next((k for k, w in enumerate(weights) if np.array_equal(w, p.weights)), None)
-        if found is None:
-            weights.append(p.weights)
-            found = len(weights) - 1
-        which.append(found)
-    shared = weights[0] if len(weights) == 1 else np.column_stack(weights)
-    H, ss, top = scan(data, ScanParts(np.hstack([p.matrix for p in parts]), shared), mask)
-    bounds = np.cumsum([0] + [p.matrix.shape[1] for p in parts])
-    return [(H[:, a:b], ss if ss.ndim == 1 else ss[:, k])
-            for (a, b), k in zip(itertools.pairwise(bounds), which, strict=True)], top
 
 
 @dataclass(frozen=True)
@@ -336,9 +300,10 @@ class Calibration:
     def detail(self, X: np.ndarray) -> Detail:
         """Per-sample estimates and diagnostics for absorbance on the model grid (n × p).
 
-        Rows are evaluated in fixed blocks of :data:`EVAL_ROWS` (counted from the first row),
-        so a spectrum's numbers never depend on how a batch was chunked. A transferred model
-        maps the spectra first and corrects the estimates last (:attr:`transfer`).
+        Rows are evaluated in fixed blocks of :data:`~bandsolve.calibration.blocks.EVAL_ROWS`
+        (counted from the first row), so a spectrum's numbers never depend on how a batch was
+        chunked. A transferred model maps the spectra first and corrects the estimates last
+        (:attr:`transfer`).
         """
         # Row-major layout always: products of column-major data (for example from a pandas
         # frame) round differently in the last bit, and results must not depend on layout.
@@ -348,27 +313,7 @@ class Calibration:
                             f"got an array of shape {X.shape}")
         if self.transfer is not None:
             return self._transferred_detail(X)
-        starts = range(0, len(X), EVAL_ROWS)
-        with single_blas_thread():
-            if len(starts) < 2 * _CORES:
-                blocks = [self._detail_block(X[i:i + EVAL_ROWS]) for i in starts]
-            else:  # numpy releases the GIL in BLAS and ufunc loops: one block per core at once
-                with ThreadPoolExecutor(_CORES) as pool:
-                    blocks = list(pool.map(lambda i: self._detail_block(X[i:i + EVAL_ROWS]),
-                                           starts))
-        if len(blocks) == 1:
-            return blocks[0]
-        first = blocks[0]
-        return Detail(
-            concentrations=np.vstack([b.concentrations for b in blocks]),
-            standard_errors=np.vstack([b.standard_errors for b in blocks]),
-            dof=first.dof,
-            residual_ratio=np.concatenate([b.residual_ratio for b in blocks]),
-            t2_ratio=np.concatenate([b.t2_ratio for b in blocks]),
-            leverage_ratio=np.concatenate([b.leverage_ratio for b in blocks]),
-            notes=first.notes,
-            max_absorbance=np.concatenate([b.max_absorbance for b in blocks]),
-        )
+        return in_blocks(X, self._detail_block)
 
     def _transferred_detail(self, X: np.ndarray) -> Detail:
         """Detail of spectra from the instrument the model was transferred to."""
@@ -383,23 +328,7 @@ class Calibration:
                                    notes=[*d.notes, note], max_absorbance=top)
 
     def _detail_block(self, X: np.ndarray) -> Detail:
-        pre, mask = self.preprocessor, self.used_mask
-        parts = [est.scan_parts() for est in self.estimators]
-        if pre.savgol_window is None and not pre.offset:
-            # A window only selects points: fold it into the scan (zero rows outside it),
-            # so each spectrum is read once for products, sums of squares and its maximum.
-            data = X
-            if not mask.all():
-                parts = [embed(p, mask) for p in parts]
-        else:
-            data = pre.apply(X)
-        scans, top = _scan_all(data, parts, mask if data is X else None)
-        if data is not X:
-            top = X.max(axis=1, where=mask, initial=-np.inf)
-        # A NaN or infinity anywhere in a used point reaches the sums of squares; checking
-        # them is cheaper than another pass over the spectra.
-        if not (all(np.isfinite(ss).all() for _, ss in scans) and np.isfinite(top).all()):
-            raise DataError("spectra contain NaN or infinite values; fix or remove them")
+        scans, top = scan_block(X, self.preprocessor, self.estimators)
         detail = self.kind.detail(self.estimators, self.limits.models, scans)
         return self._with_model_error(dataclasses.replace(detail, max_absorbance=top))
 
