@@ -12,7 +12,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from bandsolve.batch.predict import EVAL_ROWS, _tasks
+from bandsolve.batch.tasks import cut_tasks
+from bandsolve.calibration.blocks import EVAL_ROWS
 from bandsolve.errors import BandsolveError, BandsolveWarning, FormatError
 from bandsolve.io.csv_spectra import WideRows, open_spectra_text
 
@@ -30,7 +31,7 @@ def _tasks_of(path):
     # Blocks of about 5 kB, regrouped into tasks of one evaluation block: the block at the
     # boundary is cut in two, and both halves must know where they are in the file.
     with open_spectra_text(path, axis_unit="nm", budget=5000) as opened:
-        return list(_tasks(iter(opened), 1))
+        return list(cut_tasks(iter(opened), 1))
 
 
 @pytest.mark.parametrize("variant", ["plain", "bom", "comments", "utf16", "crlf"])

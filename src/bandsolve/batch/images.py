@@ -22,7 +22,8 @@ from pathlib import Path
 
 import numpy as np
 
-from bandsolve.batch.predict import DEFAULT_CHUNK, iter_array_sets, predict_sets
+from bandsolve.batch.predict import predict_sets
+from bandsolve.batch.tasks import DEFAULT_CHUNK, iter_array_sets
 from bandsolve.calibration.model import Calibration
 from bandsolve.errors import DataError, FormatError
 from bandsolve.flags import FLAG_COLUMN, flag_bits

@@ -3,8 +3,8 @@
 :func:`predict_dask` maps the model over row blocks of a Dask array (``map_blocks``) or the
 partitions of a Dask DataFrame (``map_partitions``); nothing is computed until you ask, so it
 runs on whatever scheduler is active (threads, processes, a ``dask.distributed`` cluster).
-Rows are always evaluated in the fixed blocks of :data:`bandsolve.batch.predict.EVAL_ROWS` counted
-from row 0 (arrays are rechunked to whole blocks), so the numbers are bit-identical to
+Rows are always evaluated in the fixed blocks of :data:`bandsolve.calibration.blocks.EVAL_ROWS`
+counted from row 0 (arrays are rechunked to whole blocks), so the numbers are bit-identical to
 :func:`bandsolve.batch.predict.predict_inputs` on the same spectra. DataFrame partitions whose
 lengths are not whole blocks give results equal to rounding (about 1e-15 relative).
 
@@ -19,7 +19,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from bandsolve.batch.predict import EVAL_ROWS, evaluate_set, result_table_columns
+from bandsolve.batch.predict import evaluate_set, result_table_columns
+from bandsolve.calibration.blocks import EVAL_ROWS
 from bandsolve.calibration.model import TEXT_COLUMNS, Calibration
 from bandsolve.errors import BandsolveError, DataError
 from bandsolve.flags import FLAG_COLUMN, flag_bits

@@ -12,7 +12,8 @@ from bandsolve.batch.checks import CheckSink, CheckStandards
 from bandsolve.batch.ledger import LedgerRecorder, check_free_space, check_ledger
 from bandsolve.batch.ledger_recovery import RunIntent, recover_results
 from bandsolve.batch.overview import RoundingSink
-from bandsolve.batch.predict import DEFAULT_CHUNK, expand_inputs, result_table_columns, run_batch
+from bandsolve.batch.predict import expand_inputs, result_table_columns, run_batch
+from bandsolve.batch.tasks import DEFAULT_CHUNK
 from bandsolve.batch.writers import FORMATS, format_for, open_writer
 from bandsolve.cli._codes import EXIT_FLAGGED, EXIT_PARTIAL
 from bandsolve.cli._common import (
