@@ -18,8 +18,8 @@ import pytest
 SRC = Path(__file__).resolve().parents[1] / "src"
 #: Modules whose classes are estimators (and their base): the only ones that may read fitted
 #: attributes.
-ESTIMATOR_MODULES = {"bandsolve._estimator", "bandsolve.cls", "bandsolve.cls_predict",
-                     "bandsolve.pls", "bandsolve.preprocess"}
+ESTIMATOR_MODULES = {"bandsolve._estimator", "bandsolve.cls", "bandsolve.cls_leverage",
+                     "bandsolve.cls_predict", "bandsolve.pls", "bandsolve.preprocess"}
 DISPATCH = "bandsolve.calibration.methods"
 #: Which packages may import each application package.
 UPWARD = {"bandsolve.cli": {"bandsolve.cli"},
