@@ -17,8 +17,8 @@ from bandsolve._estimator import Estimator, Regressor, Transformer, check_fitted
 from bandsolve._pls_kernels import gram_pls, kernel_pls
 from bandsolve._scan import ScanParts
 from bandsolve._state import RecordedState
-from bandsolve.diagnostics import leverage as score_leverage
 from bandsolve.errors import ModelError
+from bandsolve.score_diagnostics import leverage as score_leverage
 
 __all__ = ["PLSPrediction", "PLSRegressor"]
 

@@ -24,17 +24,16 @@ from bandsolve.crossval import cross_validate_pls, select_components
 from bandsolve.cv_result import CVResult
 from bandsolve.diagnostics import (
     ResidualLimit,
-    leverage_limit,
     q_limit_from_values,
     q_limit_jackson_mudholkar,
     residual_eigenvalues,
-    t2_limit,
 )
 from bandsolve.errors import ModelError
 from bandsolve.merit.statistics import noise_by_differences
 from bandsolve.pls import PLSRegressor
 from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.progress import ProgressCallback, step
+from bandsolve.score_diagnostics import leverage_limit, t2_limit
 from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
 
 __all__ = ["build_pls", "fit_pls_with_limits"]
