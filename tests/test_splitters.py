@@ -81,7 +81,7 @@ def test_leave_one_out_and_interleaved_folds_follow_their_definitions():
 
 @pytest.mark.parametrize("splitter", [ContiguousFolds(8), InterleavedFolds(8),
                                       ShuffledFolds(8), GroupSplitter([1, 1, 2], 3),
-                                      GroupSplitter([1, 1]), LeaveOneOutFolds()])
+                                      GroupSplitter([1, 1, 1]), LeaveOneOutFolds()])
 def test_impossible_splits_raise_value_error(splitter):
     X = np.zeros((1 if isinstance(splitter, LeaveOneOutFolds) else 3, 1))
     with pytest.raises(ValueError, match=r"n_splits|groups|LeaveOneOut"):
@@ -96,3 +96,27 @@ def test_fixed_folds_and_scikit_learn_use_the_splitters():
     grid = GridSearchCV(PLSRegressor(), {"n_components": [1, 2]}, cv=ContiguousFolds(3))
     assert grid.fit(X, y).n_splits_ == 3  # scikit-learn accepts the splitter as it is
     assert repr(ShuffledFolds(5)) == "ShuffledFolds(n_repeats=1, n_splits=5, random_state=0)"
+
+
+def test_every_splitter_has_scikit_learns_representation():
+    # Reference library: scikit-learn's splitters print as Name(param=value, ...), sorted, and
+    # LeaveOneOut, which takes no parameter, as "LeaveOneOut()".
+    assert repr(LeaveOneOut()) == "LeaveOneOut()"
+    assert repr(LeaveOneOutFolds()) == "LeaveOneOutFolds()"
+    assert repr(make_splitter("loo")) == "LeaveOneOutFolds()"
+    assert repr(ContiguousFolds(4)) == "ContiguousFolds(n_splits=4)"
+    assert repr(GroupSplitter([1, 2], 2)) == "GroupSplitter(groups=[1, 2], n_splits=2)"
+
+
+@pytest.mark.parametrize("k", [None, 2])
+def test_group_labels_of_another_length_are_refused_as_scikit_learn_does(k):
+    # Reference library: LeaveOneGroupOut and GroupKFold raise ValueError when there are not
+    # as many group labels as samples (an index past the end, or samples silently never held
+    # out, otherwise).
+    X = np.zeros((5, 1))
+    for labels in (["a", "a", "b", "b", "c", "c"], ["a", "a", "b"]):
+        theirs = LeaveOneGroupOut() if k is None else GroupKFold(k)
+        with pytest.raises(ValueError, match="inconsistent numbers of samples"):
+            list(theirs.split(X, groups=labels))
+        with pytest.raises(ValueError, match="inconsistent numbers of samples"):
+            list(GroupSplitter(labels, k).split(X))

@@ -39,7 +39,9 @@ class _Splitter:
             yield np.flatnonzero(~held), np.flatnonzero(held)
 
     def __repr__(self) -> str:
-        names = [p for p in inspect.signature(type(self).__init__).parameters if p != "self"]
+        init = type(self).__init__
+        names = ([] if init is object.__init__ else
+                 [p for p in inspect.signature(init).parameters if p != "self"])
         shown = ", ".join(f"{k}={getattr(self, k)!r}" for k in sorted(names))
         return f"{type(self).__name__}({shown})"
 
@@ -169,6 +171,10 @@ class GroupSplitter(_Splitter):
     def _tests(self, n: int, groups) -> Iterator[np.ndarray]:
         labels, index = np.unique(np.asarray(self.groups), return_inverse=True)
         index = index.ravel()
+        if index.size != n:
+            raise ValueError(f"Found input variables with inconsistent numbers of samples: "
+                             f"[{n}, {index.size}] (spectra, group labels); give one group "
+                             "label per spectrum.")
         if self.n_splits is None:
             if labels.size < 2:
                 raise ValueError(f"The groups parameter contains fewer than 2 unique groups "
