@@ -387,3 +387,25 @@ def test_held_out_leverage_matches_scikit_learn_refits(spec):
         expected[test] = 1.0 / train.size + np.einsum(
             "ij,jk,ik->i", t, np.linalg.inv(T.T @ T), t)
     np.testing.assert_allclose(res.leverage(2), expected, rtol=1e-8)
+
+
+def test_held_out_leverage_of_overlapping_folds_uses_each_folds_training_set():
+    # Reference: scikit-learn's PLSRegression refitted on each training set (as above); folds
+    # whose test sets overlap and whose training sets are not the rest of the samples (as
+    # ShuffleSplit with a train_size gives), so a sample's leverage is the mean over the
+    # splits that held it out of 1/n_t + t(TᵀT)⁻¹tᵀ on that split's n_t training samples.
+    from bandsolve.splitters import FixedFolds
+
+    rng = np.random.default_rng(11)
+    X, Y = _data(rng, 18, 30)
+    folds = [(np.arange(8, 18), np.arange(0, 8)), (np.arange(0, 5), np.arange(5, 12)),
+             (np.arange(0, 11), np.arange(11, 18)), (np.arange(9, 18), np.arange(3, 9))]
+    res = cross_validate_pls(X, Y, 3, cv=FixedFolds(folds))
+    total, count = np.zeros(len(X)), np.zeros(len(X))
+    for train, test in folds:
+        ref = PLSRegression(n_components=2, scale=False, tol=1e-14, max_iter=5000).fit(
+            X[train], Y[train])
+        T, t = ref.x_scores_, ref.transform(X[test])
+        total[test] += 1.0 / train.size + np.einsum("ij,jk,ik->i", t, np.linalg.inv(T.T @ T), t)
+        count[test] += 1
+    np.testing.assert_allclose(res.leverage(1), total / count, rtol=1e-8)

@@ -117,11 +117,14 @@ def _run(splits, Y: np.ndarray, settings: tuple, setting_name: str, fold_fn) -> 
             np.square(sq, out=sq)
             put_path(fold_sq, slice(None), sq.sum(axis=1), add=True)
             if diag is None and out.q_residuals is not None:
-                diag = [new((n_set, n)), new((n_set, n))]
+                diag = [new((n_set, n)) for _ in range(3)]
             put_path(predictions, rows, out.predictions, add=not once)
             if diag is not None:
                 put_path(diag[0], rows, out.q_residuals, add=not once)
                 put_path(diag[1], rows, out.hotelling_t2, add=not once)
+                # Leverage on this fold's own training set, 1/n_t + T²/(n_t − 1).
+                put_path(diag[2], rows, 1.0 / train.size
+                         + out.hotelling_t2 / (train.size - 1), add=not once)
             if not once:
                 put_path(sum_sq, rows, sq, add=True)
         press += fold_sq
@@ -135,14 +138,15 @@ def _run(splits, Y: np.ndarray, settings: tuple, setting_name: str, fold_fn) -> 
         sum_sq /= count[:, None]
         mse = sum_sq.mean(axis=1)
         if diag is not None:
-            diag[0] /= count
-            diag[1] /= count
+            for values in diag:
+                values /= count
     return CVResult(
         settings=settings, setting_name=setting_name, reference=Y, predictions=predictions,
         rmsecv=np.sqrt(mse), rmsecv_total=np.sqrt(mse.mean(axis=1)), fold_mse=fold_mse,
         fold_index=fold_index, n_held_out=count,
         q_residuals=None if diag is None else diag[0],
-        hotelling_t2=None if diag is None else diag[1], repeat_squared_errors=sum_sq)
+        hotelling_t2=None if diag is None else diag[1], repeat_squared_errors=sum_sq,
+        held_out_leverage=None if diag is None else diag[2])
 
 
 def cross_validate_pls(X, Y, max_components: int, cv="interleaved:10", scale: bool = False,

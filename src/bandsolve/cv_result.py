@@ -50,6 +50,9 @@ class CVResult:
     repeat_squared_errors : ndarray of shape (n_settings, n, m) or None
         Mean over repeats of each sample's squared error, kept only when some sample was held
         out more than once (otherwise it is ``errors²``); read it as :attr:`squared_errors`.
+    held_out_leverage : ndarray of shape (n_settings, n) or None
+        Leverage of each held-out sample on its training fold; read it with :meth:`leverage`.
+        None for generic estimators.
 
     Notes
     -----
@@ -69,19 +72,19 @@ class CVResult:
     q_residuals: np.ndarray | None
     hotelling_t2: np.ndarray | None
     repeat_squared_errors: np.ndarray | None = None
+    held_out_leverage: np.ndarray | None = None
 
     def leverage(self, setting: int) -> np.ndarray:
         """Held-out leverage ``h_i = 1/n_t + T²_i/(n_t − 1)`` of each sample, shape (n,).
 
         ``setting`` indexes :attr:`settings` (component count − 1 for PLS); ``n_t`` is the size
-        of the training set the sample was held out from (``n`` minus its split's size). Raises
+        of the training set of the split that held the sample out, and a sample held out
+        several times (repeats) gets the mean over its splits, as Q and T² do. Raises
         ModelError for generic estimators, which record no T².
         """
-        if self.hotelling_t2 is None:
+        if self.held_out_leverage is None:
             raise ModelError("this cross-validation recorded no Hotelling T², so no leverage.")
-        n = self.fold_index.size
-        n_train = n - np.bincount(self.fold_index)[self.fold_index]
-        return 1.0 / n_train + self.hotelling_t2[setting] / (n_train - 1)
+        return self.held_out_leverage[setting]
 
     @property
     def errors(self) -> np.ndarray:
