@@ -39,7 +39,8 @@ class Detail:
     dof : ndarray, shape (m,)
         Degrees of freedom of the Student t quantile for each analyte's interval.
     residual_ratio : ndarray, shape (n,)
-        Spectral residual (CLS F ratio, or PLS Q) divided by its limit.
+        Spectral residual (CLS F ratio, or PLS Q; ``Q/(1 + h)`` for limits set that way,
+        :data:`Q_PER_LEVERAGE`) divided by its limit.
     t2_ratio : ndarray, shape (n,)
         Hotelling T² divided by its limit (NaN for CLS).
     leverage_ratio : ndarray, shape (n,)

@@ -102,8 +102,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     s.add_argument("--scale", action="store_true", help="autoscale wavelengths")
     s.add_argument("--q-limit", choices=["box", "jackson-mudholkar"], default="box",
                    help="Q residual limit: box (scaled chi-squared fitted to cross-validated "
-                        "Q, default) or jackson-mudholkar (needs more samples than "
-                        "wavelengths)")
+                        "Q/(1 + leverage), default) or jackson-mudholkar (on Q itself; needs "
+                        "more samples than wavelengths)")
     s.add_argument("--savgol-window", type=int, metavar="POINTS",
                    help="Savitzky–Golay window (odd number of points)")
     s.add_argument("--derivative", type=int, choices=[0, 1, 2], default=0,

@@ -45,7 +45,8 @@ def outlier_map_figure(x_ratio: np.ndarray, residual_ratio: np.ndarray, *,
     x_ratio : ndarray, shape (n,)
         Hotelling T² (PLS) or leverage (CLS) divided by its limit.
     residual_ratio : ndarray, shape (n,)
-        Q residual (PLS) or residual F ratio (CLS) divided by its limit.
+        Q residual (PLS; ``Q/(1 + h)`` where the limit is set on it) or residual F ratio (CLS)
+        divided by its limit.
     groups : sequence of str, length n, optional
         Set of each point (calibration, validation, batch): one marker per set.
     """
