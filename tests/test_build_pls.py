@@ -205,3 +205,29 @@ def test_q_limit_catches_a_band_at_the_noise_level_in_every_calibration():
                        > 1).mean())
     assert min(caught) >= 0.95, caught
     assert np.mean(false) <= 0.025, false
+
+
+def test_as_many_components_as_points_leaves_no_q_to_check():
+    # Theory: with A = p components the loadings span every spectral point, so a spectrum's
+    # residual, and Q, are zero up to rounding; no limit can be set on it (an χ² with p − A = 0
+    # degrees of freedom does not exist), so results say "unchecked" rather than compare
+    # rounding noise with rounding noise.
+    from bandsolve.calibration.build_pls import NO_Q_LEFT, fit_pls_with_limits
+    from bandsolve.diagnostics import q_limit_from_values
+    from bandsolve.errors import DataError
+
+    rng = np.random.default_rng(5)
+    Z = rng.uniform(0.0, 1.0, size=(20, 4))  # absorbances below the 2 AU ceiling
+    Y = Z[:, :2] + 0.01 * rng.normal(size=(20, 2))
+    _, lim, _, _ = fit_pls_with_limits(Z, Y, components=4, max_components=4,
+                                       cv="interleaved:5")
+    assert np.isnan(lim.residual) and lim.residual_method == NO_Q_LEFT
+    with pytest.raises(DataError, match="max_dof"):
+        q_limit_from_values(rng.chisquare(3, 30), 0.01, max_dof=0)
+    axis = np.linspace(400.0, 700.0, 4)
+    ids = [f"s{i}" for i in range(20)]
+    cal = build_pls(SpectralSet(axis, Z, ids), ConcentrationTable(ids, LABELS[:2], Y),
+                    components=4, max_components=4, cv="interleaved:5")
+    out = cal.predict(SpectralSet(axis, Z[:3], ids[:3]))
+    assert out["residual_ratio"].isna().all()
+    assert out["flag_codes"].str.contains("unchecked").all()

@@ -201,6 +201,9 @@ def _moment_fit(values: object, name: str, alpha: float,
     if var == 0.0:
         raise DataError(f"{name}: all values are equal; a χ² fit needs spread.")
     h = 2.0 * mean**2 / var
+    if max_dof is not None and not max_dof > 0:
+        raise DataError(f"{name}: max_dof = {max_dof} leaves no residual degrees of freedom; "
+                        "the bound must be positive.")
     if max_dof is not None:
         h = min(h, float(max_dof))
     g = mean / h

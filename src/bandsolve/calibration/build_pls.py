@@ -36,7 +36,11 @@ from bandsolve.progress import ProgressCallback, step
 from bandsolve.score_diagnostics import leverage_limit, t2_limit
 from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
 
-__all__ = ["build_pls", "fit_pls_with_limits"]
+__all__ = ["NO_Q_LEFT", "build_pls", "fit_pls_with_limits"]
+
+#: How the missing Q limit of a model with as many components as spectral points is named;
+#: its residual ratio is NaN and its results are flagged ``unchecked``.
+NO_Q_LEFT = "not set: as many components as spectral points, no residual left to check"
 
 
 def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str = "auto",
@@ -149,6 +153,9 @@ def _q_limit(model: PLSRegressor, Z: np.ndarray, cv_result: CVResult, a: int, al
              method: str) -> ResidualLimit:
     """The Q limit of one fitted model (see :func:`fit_pls_with_limits`)."""
     q_cv = cv_result.q_residuals[a - 1]
+    if method == "box" and Z.shape[1] <= a:
+        # The components span every used point: Q is zero up to rounding, nothing to check.
+        return ResidualLimit("Q", NO_Q_LEFT, alpha, float("nan"))
     if method == "box":
         # A residual carries the loadings' estimation error in proportion to 1 + h, as a CLS
         # residual carries K̂'s (Haaland & Thomas 1988): the limit is set on Q/(1 + h).
