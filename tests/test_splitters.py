@@ -120,3 +120,17 @@ def test_group_labels_of_another_length_are_refused_as_scikit_learn_does(k):
             list(theirs.split(X, groups=labels))
         with pytest.raises(ValueError, match="inconsistent numbers of samples"):
             list(GroupSplitter(labels, k).split(X))
+
+
+@pytest.mark.parametrize("ours, theirs", [
+    (ContiguousFolds(3.5), lambda: KFold(3.5)),
+    (ShuffledFolds(3, 0), lambda: RepeatedKFold(n_splits=3, n_repeats=0)),
+    (ShuffledFolds(3, 1.5), lambda: RepeatedKFold(n_splits=3, n_repeats=1.5)),
+    (InterleavedFolds("4"), lambda: KFold("4"))])
+def test_fold_and_repeat_counts_must_be_whole_positive_numbers(ours, theirs):
+    # Reference library: scikit-learn refuses these counts with ValueError (at construction;
+    # ours when splitting), rather than a TypeError deep inside or no folds at all.
+    with pytest.raises(ValueError):
+        theirs()
+    with pytest.raises(ValueError, match=r"whole number|at least 1"):
+        list(ours.split(np.zeros((9, 1))))

@@ -13,6 +13,7 @@ Build one from a command-line string with :func:`make_splitter`.
 from __future__ import annotations
 
 import inspect
+import numbers
 import re
 from collections.abc import Iterator, Sequence
 
@@ -53,6 +54,13 @@ class _Folds(_Splitter):
         self.n_splits = n_splits
 
     def _check(self, n: int) -> None:
+        counts = {"n_splits": self.n_splits, "n_repeats": getattr(self, "n_repeats", 1)}
+        for name, value in counts.items():
+            if isinstance(value, bool) or not isinstance(value, numbers.Integral):
+                raise ValueError(f"{name} must be a whole number, got {value!r} of type "
+                                 f"{type(value).__name__}.")
+        if counts["n_repeats"] < 1:
+            raise ValueError(f"n_repeats must be at least 1, got {counts['n_repeats']}.")
         if self.n_splits < 2:
             raise ValueError(f"cross-validation needs at least 2 folds, got "
                              f"n_splits={self.n_splits}.")
