@@ -238,6 +238,15 @@ def test_bad_inputs_raise_clear_errors():
         cross_validate_pls(X_nan, Y, 2, cv="loo")
     with pytest.raises(ModelError, match="max_components"):
         cross_validate_pls(X, Y, 0)
+    # A split holding out nothing has an error of 0/0 (definition of a mean): refused, for
+    # PLS and for any estimator, instead of a NaN fold error and a RuntimeWarning.
+    from bandsolve.splitters import FixedFolds
+
+    empty = FixedFolds([*make_splitter("interleaved:2").split(X), (np.arange(10), np.arange(0))])
+    with pytest.raises(ModelError, match="holds out no sample"):
+        cross_validate_pls(X, Y, 2, cv=empty)
+    with pytest.raises(ModelError, match="holds out no sample"):
+        cross_validate_estimator(LinearRegression(), X, Y, cv=empty)
 
 
 def test_estimator_cv_and_result_fields_match_sklearn():

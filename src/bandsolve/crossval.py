@@ -78,6 +78,10 @@ def _splits(cv, X, Y, groups) -> list[tuple[np.ndarray, np.ndarray]]:
         if train.size < 2:
             raise ModelError(f"cross-validation {splitter!r} leaves fewer than 2 training "
                              "samples in a fold; use fewer folds.")
+        if test.size == 0:
+            raise ModelError(f"cross-validation {splitter!r} has a split that holds out no "
+                             "sample (its error would be 0/0); remove empty splits or use "
+                             "fewer folds.")
         held_out[test] += 1
     never = np.flatnonzero(held_out == 0)
     if never.size:
