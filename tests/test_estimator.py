@@ -188,3 +188,19 @@ def test_feature_names_are_kept_and_forgotten_as_scikit_learn_does():
         model.predict(X.to_numpy())  # scikit-learn's warning: the ndarray is not fast-pathed
     model.fit(X.to_numpy(), y)
     assert not hasattr(model, "feature_names_in_")
+
+
+@pytest.mark.parametrize("display", ["diagram", "text"])
+def test_notebooks_show_the_estimators_as_scikit_learns(display):
+    # Reference library: a BaseEstimator has _repr_html_ only under display="diagram", and its
+    # mime bundle holds the plain repr, plus the HTML diagram under "diagram".
+    from sklearn import config_context
+
+    ours, theirs = _pair(bases_theirs=())
+    with config_context(display=display):
+        assert hasattr(ours(), "_repr_html_") == hasattr(theirs(), "_repr_html_")
+        mine, ref = ours(width=5)._repr_mimebundle_(), theirs(width=5)._repr_mimebundle_()
+        assert sorted(mine) == sorted(ref) and mine["text/plain"] == ref["text/plain"]
+        if display == "diagram":
+            html = PLSRegressor(n_components=3)._repr_html_()
+            assert "PLSRegressor" in html and "n_components" in html

@@ -82,6 +82,31 @@ class Estimator:
             shown.append(f"{key}={text}")
         return f"{type(self).__name__}({', '.join(shown)})"
 
+    @property
+    def _repr_html_(self):
+        """The diagram a notebook shows, as ``BaseEstimator`` gives it: defined only while
+        scikit-learn's ``display`` option is ``"diagram"`` (its default)."""
+        from sklearn import get_config
+
+        if get_config()["display"] != "diagram":
+            raise AttributeError("_repr_html_ is only defined when the 'display' configuration "
+                                 "option is set to 'diagram'")
+        return self._html
+
+    def _repr_mimebundle_(self, **kwargs) -> dict[str, str]:
+        """Plain text, and the diagram under ``display="diagram"``, for notebooks."""
+        from sklearn import get_config
+
+        output = {"text/plain": repr(self)}
+        if get_config()["display"] == "diagram":
+            output["text/html"] = self._html()
+        return output
+
+    def _html(self) -> str:
+        from sklearn.utils import estimator_html_repr
+
+        return estimator_html_repr(self)
+
     def __sklearn_tags__(self):
         """scikit-learn's default tags (only scikit-learn calls this, so it is imported)."""
         from sklearn.utils import InputTags, Tags, TargetTags
