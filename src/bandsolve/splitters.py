@@ -15,6 +15,7 @@ from __future__ import annotations
 import inspect
 import numbers
 import re
+from abc import ABC, abstractmethod
 from collections.abc import Iterator, Sequence
 
 import numpy as np
@@ -25,11 +26,23 @@ __all__ = ["ContiguousFolds", "FixedFolds", "GroupSplitter", "InterleavedFolds",
            "LeaveOneOutFolds", "ShuffledFolds", "make_splitter"]
 
 
-class _Splitter:
-    """``split`` and ``__repr__`` from the test indices of each fold (``_tests``)."""
+class _Described:
+    """``__repr__`` from the ``__init__`` parameters, as scikit-learn's splitters print."""
 
+    def __repr__(self) -> str:
+        init = type(self).__init__
+        names = ([] if init is object.__init__ else
+                 [p for p in inspect.signature(init).parameters if p != "self"])
+        shown = ", ".join(f"{k}={getattr(self, k)!r}" for k in sorted(names))
+        return f"{type(self).__name__}({shown})"
+
+
+class _Splitter(_Described, ABC):
+    """``split`` from the test indices of each fold (``_tests``)."""
+
+    @abstractmethod
     def _tests(self, n: int, groups) -> Iterator[np.ndarray]:
-        raise NotImplementedError
+        """Test indices of each fold, for n samples (and their ``groups``)."""
 
     def split(self, X, y=None, groups=None) -> Iterator[tuple[np.ndarray, np.ndarray]]:
         """Yield ``(train, test)`` index arrays, both sorted, for the n samples of X."""
@@ -38,13 +51,6 @@ class _Splitter:
             held = np.zeros(n, dtype=bool)
             held[test] = True
             yield np.flatnonzero(~held), np.flatnonzero(held)
-
-    def __repr__(self) -> str:
-        init = type(self).__init__
-        names = ([] if init is object.__init__ else
-                 [p for p in inspect.signature(init).parameters if p != "self"])
-        shown = ", ".join(f"{k}={getattr(self, k)!r}" for k in sorted(names))
-        return f"{type(self).__name__}({shown})"
 
 
 class _Folds(_Splitter):
@@ -216,7 +222,7 @@ class GroupSplitter(_Splitter):
         return int(np.unique(np.asarray(self.groups)).size)
 
 
-class FixedFolds(_Splitter):
+class FixedFolds(_Described):
     """Folds given as a list of ``(train, test)`` index arrays, used as they are."""
 
     def __init__(self, folds: Sequence[tuple[np.ndarray, np.ndarray]]):
