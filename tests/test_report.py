@@ -315,8 +315,8 @@ def test_wide_assessment_table_is_shown_one_row_per_statistic(printed_report):
     assert heads == ["statistic", "dye A", "dye B", "dye C"]
     rows = re.findall(r"<tr>\s*<td>(.*?)</td>", table)
     # The last columns of the wide layout were the ones cut off at the page edge.
-    assert rows[0] == "unit" and rows[-4:] == ["coverage", "coverage low", "coverage high",
-                                               "model error SD"]
+    assert rows[0] == "unit" and rows[-5:] == ["coverage", "coverage low", "coverage high",
+                                               "model error SD", "model error relative"]
 
 
 def test_skipped_batch_inputs_are_listed_with_their_reason(printed_report):

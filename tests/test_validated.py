@@ -1,14 +1,15 @@
-"""Validated intervals: the additive model-error variance, coverage in ``assess``, --out-model.
+"""Validated intervals: the two-component model error, coverage in ``assess``, --out-model.
 
-Expected values come from theory (the moment identity ``E[Σwe²] = n + τ²Σw``; DerSimonian &
-Laird 1986), scipy's beta quantiles (Clopper & Pearson 1934) and numpy.
+Expected values come from theory (the normal likelihood of the two-component error model,
+Rocke & Lorenzato 1995, maximised independently with scipy), scipy's beta quantiles (Clopper &
+Pearson 1934) and numpy.
 """
 
 from __future__ import annotations
 
 import numpy as np
 import pytest
-from scipy import stats
+from scipy import optimize, stats
 
 from bandsolve.calibration.build import build_cls
 from bandsolve.calibration.modelfile import load_model, save_model
@@ -16,7 +17,7 @@ from bandsolve.cli import main
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.errors import DataError
 from bandsolve.evaluate.assess import assess, validated_model
-from bandsolve.evaluate.validated import additive_model_error, coverage_interval, effective_dof
+from bandsolve.evaluate.validated import coverage_interval, effective_dof, model_error
 from bandsolve.io import write_concentrations_csv, write_spectra_csv
 from bandsolve.spectra import SpectralSet
 from tests.conftest import gaussian_bands
@@ -27,21 +28,56 @@ LABELS = ("A [mg/L]", "B [mg/L]", "C [mg/L]")
 
 
 def test_model_error_equal_weights_is_mean_square_minus_variance():
-    # With equal s the moment estimator is mean(e²) − s² (theory; DerSimonian & Laird 1986).
+    # With equal s and no levels, the likelihood of e ~ N(0, s² + τ²) peaks at
+    # τ² = mean(e²) − s² (theory), truncated at zero; κ is not estimated.
     rng = np.random.default_rng(3)
     e = rng.normal(0, 0.5, 40)
     s = np.full(40, 0.2)
-    assert additive_model_error(e, s) == pytest.approx(max(np.mean(e**2) - 0.04, 0.0))
-    assert additive_model_error(np.zeros(5), np.ones(5)) == 0.0  # truncated at zero
+    tau2, kappa2 = model_error(e, s)
+    assert tau2 == pytest.approx(max(np.mean(e**2) - 0.04, 0.0), rel=1e-6)
+    assert kappa2 == 0.0
+    assert model_error(np.zeros(5), np.ones(5)) == (0.0, 0.0)  # truncated at zero
+    # Two distinct levels cannot separate τ from κ (MIN_LEVELS = 3): τ alone, as without levels.
+    two = np.where(np.arange(40) % 2, 0.2, 0.8)
+    assert model_error(e, s, two) == pytest.approx(model_error(e, s), rel=1e-9)
+
+
+def test_model_error_is_the_maximum_of_the_normal_likelihood():
+    # Rocke & Lorenzato (1995): e ~ N(0, s² + τ² + κ²c²). The same likelihood written with
+    # scipy.stats.norm and maximised by Nelder–Mead on log-parameters gives the same optimum.
+    rng = np.random.default_rng(11)
+    c = rng.uniform(0.05, 1.0, 60)
+    s = rng.uniform(0.004, 0.008, 60)
+    e = rng.normal(0, np.sqrt(s**2 + 0.006**2 + (0.03 * c) ** 2))
+
+    def nll(x):
+        sd = np.sqrt(s**2 + np.exp(x[0]) + np.exp(x[1]) * c**2)
+        return -np.sum(stats.norm.logpdf(e, 0.0, sd))
+
+    ref = optimize.minimize(nll, np.log([1e-5, 1e-3]), method="Nelder-Mead",
+                            options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 4000})
+    tau2, kappa2 = model_error(e, s, c)
+    assert (tau2, kappa2) == pytest.approx(tuple(np.exp(ref.x)), rel=2e-3)
+
+
+def test_model_error_recovers_both_parts():
+    # Consistency of maximum likelihood (theory): 4000 samples with τ = 0.01, κ = 4 %.
+    rng = np.random.default_rng(12)
+    c = rng.uniform(0.1, 1.0, 4000)
+    s = rng.uniform(0.002, 0.006, 4000)
+    e = rng.normal(0, np.sqrt(s**2 + 0.01**2 + (0.04 * c) ** 2))
+    tau2, kappa2 = model_error(e, s, c)
+    assert np.sqrt(tau2) == pytest.approx(0.01, rel=0.1)
+    assert np.sqrt(kappa2) == pytest.approx(0.04, rel=0.05)
 
 
 def test_model_error_is_unbiased_for_large_tau():
-    # E[τ̂²] = τ² when truncation never bites (theory): heterogeneous s, 4000 repetitions.
+    # E[τ̂²] ≈ τ² when truncation never bites (theory): heterogeneous s, 2000 repetitions.
     rng = np.random.default_rng(5)
     s = rng.uniform(0.05, 0.2, 30)
     tau = 0.3
-    est = [additive_model_error(rng.normal(0, np.sqrt(s**2 + tau**2)), s) for _ in range(4000)]
-    assert np.mean(est) == pytest.approx(tau**2, rel=0.03)
+    est = [model_error(rng.normal(0, np.sqrt(s**2 + tau**2)), s)[0] for _ in range(2000)]
+    assert np.mean(est) == pytest.approx(tau**2, rel=0.04)
 
 
 def test_coverage_interval_is_clopper_pearson():
@@ -73,12 +109,14 @@ def test_assess_reports_coverage_and_writes_a_validated_model(tmp_path):
     new = validated_model(cal, result, [])
     assert new.interval.n_validation == 30 and cal.interval is None
     tau = np.asarray(new.interval.model_error_sd)
-    assert np.all(tau > 0)
+    kappa = np.asarray(new.interval.relative_error)
+    # A gain is an error proportional to the level: it shows as κ near the 4 % of the gain.
+    assert np.all((kappa > 0.025) & (kappa < 0.055)), kappa
     later, _ = _day(rng, rng.uniform(0.1, 1, (5, 3)), "u", gain=0.04)
     base, val = cal.predict(later), new.predict(later)
-    for k, label in enumerate(LABELS):  # √(s² + τ²), numpy
-        np.testing.assert_allclose(val[f"{label} SE"],
-                                   np.hypot(base[f"{label} SE"], tau[k]), rtol=1e-12)
+    for k, label in enumerate(LABELS):  # √(s² + τ² + κ²ĉ²), numpy
+        np.testing.assert_allclose(val[f"{label} SE"], np.sqrt(
+            base[f"{label} SE"] ** 2 + tau[k] ** 2 + (kappa[k] * val[label]) ** 2), rtol=1e-12)
         lim = cal.limits.models[0]  # calibration df: samples behind κ > 1, else p − m
         cal_dof = lim.error_scale_dof if lim.error_scale[k] > 1 else AXIS.size - 3
         t = stats.t.ppf(0.975, min(cal_dof, 29))  # and ν = n_validation − 1
@@ -129,7 +167,7 @@ def test_assess_out_model_from_the_command_line(tmp_path, capsys):
     capsys.readouterr()
     assert main(["inspect", str(tmp_path / "new.bsm")]) == 0
     shown = capsys.readouterr().out
-    assert "validated on 30 independent samples" in shown and "model error SD" in shown
+    assert "validated on 30 independent samples" in shown and "model error added" in shown
     from bandsolve.report._sections import model_section
 
     assert "validated on 30" in model_section(new) and "calibration only" in model_section(
@@ -140,8 +178,8 @@ def test_assess_out_model_from_the_command_line(tmp_path, capsys):
 def test_validation_restores_coverage_under_day_to_day_effects():
     # Each day its own gain (SD 2 %) and baseline offset (SD 0.002 AU): calibration-only
     # intervals miss those errors; after validation on 30 mixtures over 10 days, new samples
-    # on other days are covered about 95 % of the time (coverage definition; the additive
-    # model-error variance of DerSimonian & Laird 1986), pooled over 25 calibrations.
+    # on other days are covered about 95 % of the time (coverage definition; the two-component
+    # model error of Rocke & Lorenzato 1995), pooled over 25 calibrations.
     rng = np.random.default_rng(40)
 
     def days(k):
@@ -154,7 +192,7 @@ def test_validation_restores_coverage_under_day_to_day_effects():
         ids = [f"{prefix}{i}" for i in range(len(conc))]
         return SpectralSet(AXIS, np.vstack(parts), ids), ConcentrationTable(ids, LABELS, conc)
 
-    before = after = total = 0
+    before = after = total = top_hit = top_total = 0
     for _ in range(25):
         cal = build_cls(*measure(rng.uniform(0.1, 1, (20, 3)), days(1), "c"))
         val = validated_model(cal, assess(cal, *measure(rng.uniform(0.1, 1, (30, 3)), days(10),
@@ -163,15 +201,21 @@ def test_validation_restores_coverage_under_day_to_day_effects():
         spectra, _ = measure(conc, days(10), "u")
         for model, count in ((cal, "before"), (val, "after")):
             res = model.predict(spectra)
-            hit = sum(int(((res[f"{a} low95"] <= conc[:, k]) & (conc[:, k] <= res[f"{a} high95"])
-                           ).sum()) for k, a in enumerate(LABELS))
+            inside = np.column_stack([(res[f"{a} low95"] <= conc[:, k])
+                                      & (conc[:, k] <= res[f"{a} high95"])
+                                      for k, a in enumerate(LABELS)])
             if count == "before":
-                before += hit
+                before += int(inside.sum())
             else:
-                after += hit
+                after += int(inside.sum())
+                top_hit += int(inside[conc > 0.7].sum())
+                top_total += int((conc > 0.7).sum())
         total += conc.size
     assert before / total < 0.8
     assert 0.90 <= after / total <= 0.98, after / total
+    # The gain is an error proportional to the level: with its part κ the top of the range is
+    # covered too (an additive model error alone, averaged over the levels, gave 0.85 there).
+    assert top_hit / top_total >= 0.90, top_hit / top_total
 
 
 def test_effective_dof_balanced_runs_match_the_anova_intra_class_correlation():
@@ -206,7 +250,7 @@ def test_run_aware_dof_keeps_coverage_when_errors_are_shared_within_days():
     for _ in range(2000):
         e = rng.normal(0, 1, 5)[runs] + rng.normal(0, 0.3, 30)
         s = np.full(30, 0.3)
-        tau2 = additive_model_error(e, s)
+        tau2 = model_error(e, s)[0]
         sd = np.sqrt(0.09 + tau2)
         new = rng.normal(0, 1, 20) + rng.normal(0, 0.3, 20)
         z = e / sd

@@ -23,7 +23,8 @@ mixtures per calibration (``cls-standards-M``: M analytes, 5 pure standards each
 Then the same under day-to-day effects calibration cannot see — each day has its own gain
 (SD 2 %), wavelength shift (SD 0.2 nm), baseline offset (SD 0.002 AU) and slope; calibration is
 measured on one day, 30 validation mixtures on 5 other days, the new samples on 10 further days
-— before and after ``assess --out-model`` on the 30 validation mixtures.
+— before and after ``assess --out-model`` on the 30 validation mixtures, pooled and by third
+of each analyte's range (low, middle, top).
 
 The real section uses ``../shared/datasets``: intervals on the 54 real blank replicates (truth
 0; before, and after validation on one half, scored on the other half), leave-one-standard-out
@@ -135,6 +136,7 @@ def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng,
              runs: bool = True) -> dict[str, float]:
     """Figures of one model kind; ``runs``: tell assess the day of each validation sample."""
     pooled, bad, flags, detect, after, bad_after, over = [], 0, [], [], [], 0, []
+    thirds = np.zeros((2, 3))  # covered and counted after validation, by third of the range
     for _ in range(n_cal):
         cal = build(kind, rng, m, new_day(rng, effects))
         days = [new_day(rng, effects) for _ in range(10)]
@@ -165,6 +167,8 @@ def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng,
             val = validated_model(cal, assess(cal, spectra(Av, "v"), table(Cv, "v")), [],
                                   day_of if runs else None)
         cov2 = covered(val.predict(spectra(At, "t")), Ct)
+        third = np.clip(((Ct - low) / (np.minimum(high, 1.0) - low) * 3).astype(int), 0, 2)
+        thirds += [np.bincount(third[cov2], minlength=3), np.bincount(third.ravel(), minlength=3)]
         after.append(cov2.mean())
         bad_after += int((cov2.mean(axis=0) < 0.90).any())
     out = {"coverage": float(np.mean(pooled)), "any_below_090": bad / n_cal,
@@ -174,6 +178,7 @@ def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng,
     if after:
         out["coverage_after"] = float(np.mean(after))
         out["any_below_090_after"] = bad_after / n_cal
+        out["thirds_after"] = thirds[0] / thirds[1]
     return out
 
 
@@ -188,7 +193,7 @@ KINDS = {
 def simulated(n_cal: int, only: list[str] | None, runs: bool = True) -> None:
     print(f"Simulated: {n_cal} calibrations per kind, {N_NEW} new samples each")
     print(f"{'kind':<20}{'effects':<9}{'coverage':>9}{'<0.90':>7}{'flag':>7}{'absorber':>9}"
-          f"{'cov after':>10}{'<0.90 after':>12}{'>2 AU':>7}{'s':>6}")
+          f"{'cov after':>10}{'<0.90 after':>12}{'by third after':>20}{'>2 AU':>7}{'s':>6}")
     for kind, m in KINDS.items():
         if only and kind not in only:
             continue
@@ -202,6 +207,7 @@ def simulated(n_cal: int, only: list[str] | None, runs: bool = True) -> None:
                   f"{r.get('absorber_flagged', float('nan')):>9.3f}"
                   f"{r.get('coverage_after', float('nan')):>10.3f}"
                   f"{r.get('any_below_090_after', float('nan')):>12.2f}"
+                  f"{' '.join(f'{v:.3f}' for v in r.get('thirds_after', [])):>20}"
                   f"{r['over_ceiling']:>7.3f}"
                   f"{time.perf_counter() - t0:>6.0f}", flush=True)
 

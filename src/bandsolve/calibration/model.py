@@ -333,18 +333,20 @@ class Calibration:
         return self._with_model_error(dataclasses.replace(detail, max_absorbance=top))
 
     def _with_model_error(self, d: Detail) -> Detail:
-        """Add the validated model-error variance τ² to every SE (``√(s² + τ²)``).
+        """Add the validated model error to every SE: ``√(s² + τ² + κ²ĉ²)``.
 
         The t quantile then uses the smaller of the calibration degrees of freedom and the
-        validation's effective degrees of freedom where τ > 0 (τ² is estimated from the
-        validation samples; ``IntervalBasis.t_dof``).
+        validation's effective degrees of freedom where τ or κ > 0 (both are estimated from
+        the validation samples; ``IntervalBasis.t_dof``).
         """
         if self.interval is None:
             return d
         tau = np.asarray(self.interval.model_error_sd, dtype=float)
+        kappa = np.asarray(self.interval.kappa, dtype=float)
         dof = np.minimum(d.dof, self.interval.t_dof)
-        return dataclasses.replace(d, standard_errors=np.sqrt(d.standard_errors**2 + tau**2),
-                                   dof=np.where(tau > 0, dof, d.dof))
+        var = d.standard_errors**2 + tau**2 + (kappa * d.concentrations) ** 2
+        return dataclasses.replace(d, standard_errors=np.sqrt(var),
+                                   dof=np.where((tau > 0) | (kappa > 0), dof, d.dof))
 
     # ------------------------------------------------------------------ description
     @property

@@ -4,8 +4,9 @@ Loading never executes code from the file: there is no pickle anywhere. Arrays a
 ``numpy.load(allow_pickle=False)``, estimator classes come from a fixed list, and every
 member's SHA-256 is checked against the manifest before anything is used.
 
-Layout (schema 5; schema 4 files and schema 3 files, without the ``interval`` record, read the
-same way; a limit's recorded method says whether it is set on Q or on Q/(1 + h))::
+Layout (schema 6; schema 5 files, whose validated intervals have no proportional part, schema 4
+files and schema 3 files, without the ``interval`` record, read the same way; a limit's
+recorded method says whether it is set on Q or on Q/(1 + h))::
 
     manifest.json   format name, schema version, SHA-256 of every other member, content hash
     model.json      the calibration's fields by name (see FIELDS); typed records (limits,
@@ -60,7 +61,9 @@ __all__ = ["FIELDS", "RECORDS", "SCHEMA_VERSION", "save_model", "load_model", "s
 #: then refuse the file instead of ignoring a field that changes the results).
 #: 5: a PLS Q limit may be set on Q/(1 + h) (``detail.Q_PER_LEVERAGE``), which a reader of
 #: schema 4 would compare with Q itself, so such readers must refuse the file.
-SCHEMA_VERSION = 5
+#: 6: a validated ``interval`` may carry a proportional model error (``relative_error``),
+#: which a reader of schema 5 would drop, giving too narrow intervals at high levels.
+SCHEMA_VERSION = 6
 FORMAT_NAME = "bandsolve-model"
 
 #: Plain fields of :class:`Calibration` (numbers, strings, arrays, dictionaries of those).

@@ -9,7 +9,7 @@ lists, None; NaN stays a float) and ``from_dict`` (its inverse, raising
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any, TypeVar
 
@@ -332,6 +332,9 @@ class IntervalBasis:
         How validation enters the intervals, in words.
     model_error_sd : tuple of float
         τ per analyte (concentration units), added in quadrature to every SE.
+    relative_error : tuple of float
+        κ per analyte, a fraction of the result: ``κ·|ĉ|`` is added in quadrature too
+        (``evaluate.validated``). Empty in files written before schema 6: κ = 0.
     n_validation : int
         Independent validation samples τ was estimated from.
     n_runs : int
@@ -352,6 +355,19 @@ class IntervalBasis:
     created: str = ""
     n_runs: int = 0
     dof: float = 0.0
+    relative_error: tuple[float, ...] = ()
+
+    @property
+    def kappa(self) -> tuple[float, ...]:
+        """κ per analyte (zeros for a model validated before the proportional part)."""
+        return self.relative_error or (0.0,) * len(self.model_error_sd)
+
+    def model_error_text(self, analytes: Sequence[str]) -> str:
+        """The model error added per analyte, in words: ``"a: 0.003 and 1.8 % of the
+        result"``."""
+        return ", ".join(f"{a}: {t:.3g}" + (f" and {100 * k:.2g} % of the result" if k else "")
+                         for a, t, k in zip(analytes, self.model_error_sd, self.kappa,
+                                            strict=True))
 
     @property
     def t_dof(self) -> float:
@@ -368,7 +384,8 @@ class IntervalBasis:
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary (inverse of :meth:`from_dict`)."""
         return {"basis": "validated", "method": self.method,
-                "model_error_sd": list(self.model_error_sd), "n_validation": self.n_validation,
+                "model_error_sd": list(self.model_error_sd),
+                "relative_error": list(self.relative_error), "n_validation": self.n_validation,
                 "n_runs": self.n_runs, "dof": self.dof,
                 "validation_files": [dict(f) for f in self.validation_files],
                 "created": self.created}
@@ -382,4 +399,5 @@ class IntervalBasis:
             validation_files=tuple({str(k): str(v) for k, v in dict(f).items()}
                                    for f in data.get("validation_files") or ()),
             created=str(data.get("created") or ""), n_runs=int(data.get("n_runs") or 0),
-            dof=float(data.get("dof") or 0.0)))
+            dof=float(data.get("dof") or 0.0),
+            relative_error=_floats(data.get("relative_error") or ())))

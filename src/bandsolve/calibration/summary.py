@@ -99,13 +99,12 @@ def format_summary(description: dict[str, Any], limits: Limits, selection: Selec
               for f in prov.get("training_files") or []]
     interval = d.get("interval") or {}
     if interval.get("basis") == "validated":
-        runs = f" from {interval['n_runs']} runs" if interval.get("n_runs") else ""
-        dof = IntervalBasis.from_dict(interval).t_dof
-        notes.append(f"Intervals validated on {interval['n_validation']} independent samples"
-                     f"{runs} (t quantile on {dof:.3g} effective degrees of freedom): "
-                     "model error SD added to every SE: " + ", ".join(
-                         f"{a['label']} {t:.4g}" for a, t in zip(
-                             d["analytes"], interval["model_error_sd"], strict=True)))
+        basis = IntervalBasis.from_dict(interval)
+        runs = f" from {basis.n_runs} runs" if basis.n_runs else ""
+        notes.append(f"Intervals validated on {basis.n_validation} independent samples"
+                     f"{runs} (t quantile on {basis.t_dof:.3g} effective degrees of freedom): "
+                     "model error added to every SE: "
+                     + basis.model_error_text([a["label"] for a in d["analytes"]]))
     else:
         notes.append("Intervals: calibration only (no independent validation carried into "
                      "the model; see bandsolve assess --out-model)")

@@ -110,10 +110,10 @@ class AnalyteAssessment:
         with an interval.
     coverage_ci : (float, float)
         Clopper–Pearson interval of the coverage at the assessment's level.
-    model_error_sd : float
-        τ̂, the model-error SD this test set reveals beyond the calibration-only SE
-        (:func:`bandsolve.evaluate.validated.additive_model_error`); what ``--out-model``
-        stores.
+    model_error_sd, model_error_relative : float
+        τ̂ and κ̂, the model error this test set reveals beyond the calibration-only SE: an
+        additive SD (concentration units) and a part proportional to the level (a fraction)
+        (:func:`bandsolve.evaluate.validated.model_error`); what ``--out-model`` stores.
     """
 
     analyte: str
@@ -126,6 +126,7 @@ class AnalyteAssessment:
     n_intervals: int = 0
     coverage_ci: tuple[float, float] = (float("nan"), float("nan"))
     model_error_sd: float = float("nan")
+    model_error_relative: float = float("nan")
 
     @property
     def coverage(self) -> float:
@@ -204,6 +205,7 @@ class Assessment:
                 "RMSEP/RMSECV": a.rmsep_ratio, "consistency p": a.consistency_p,
                 "coverage": a.coverage, "coverage low": a.coverage_ci[0],
                 "coverage high": a.coverage_ci[1], "model error SD": a.model_error_sd,
+                "model error relative": a.model_error_relative,
             })
         return pd.DataFrame(rows).set_index("analyte")
 
@@ -234,7 +236,8 @@ class Assessment:
                     f"  95 % intervals cover {a.covered} of {a.n_intervals} references "
                     f"({100 * a.coverage:.0f} %, {pct} % CI {100 * a.coverage_ci[0]:.0f}–"
                     f"{100 * a.coverage_ci[1]:.0f} %); model error beyond the calibration SE: "
-                    f"{a.model_error_sd:.3g} {u}")
+                    f"SD {a.model_error_sd:.3g} {u} and {100 * a.model_error_relative:.2g} % "
+                    "of the level")
         flagged = ", ".join(f"{k} {v}" for k, v in sorted(self.flag_counts.items()))
         lines.append(f"flagged results: {self.n_flagged} of {self.n_samples} "
                      f"({100 * self.fraction_flagged:.0f} %)" + (f": {flagged}" if flagged else ""))
@@ -262,7 +265,8 @@ class Assessment:
                           "rmsep_ratio": a.rmsep_ratio, "consistency_p": a.consistency_p,
                           "covered": a.covered, "n_intervals": a.n_intervals,
                           "coverage": a.coverage, "coverage_ci": list(a.coverage_ci),
-                          "model_error_sd": a.model_error_sd}
+                          "model_error_sd": a.model_error_sd,
+                          "model_error_relative": a.model_error_relative}
                          for a in self.analytes],
             "interval_basis": self.interval_basis,
             "reference_outliers": [o.to_dict() for o in self.outliers],
@@ -305,7 +309,7 @@ def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
     calibration. Pure Appl. Chem. 78, 633-661.
     ICH Q2(R2) (2023). Validation of analytical procedures (accuracy on an independent set).
     """
-    from bandsolve.evaluate.validated import additive_model_error, coverage_interval
+    from bandsolve.evaluate.validated import coverage_interval, model_error
 
     reference = cal.align(spectra, table).reference
     predicted = cal.predict(spectra)
@@ -329,9 +333,9 @@ def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
         has = np.isfinite(low) & np.isfinite(high)
         covered = int(np.sum(has & (low <= reference[:, k]) & (reference[:, k] <= high)))
         try:
-            tau = float(np.sqrt(additive_model_error(y_hat - reference[:, k], se_cal)))
+            tau, kappa = np.sqrt(model_error(y_hat - reference[:, k], se_cal, reference[:, k]))
         except DataError:  # no standard errors to compare with
-            tau = float("nan")
+            tau = kappa = float("nan")
         s = regression_statistics(reference[:, k], y_hat, alpha=alpha)
         ratio = p_value = None
         if cv is not None and cv > 0:
@@ -340,7 +344,8 @@ def assess(cal: Calibration, spectra: SpectralSet, table: ConcentrationTable,
         name, unit = split_unit(label)
         results.append(AnalyteAssessment(name, unit or "unit", s, cv, ratio, p_value, covered,
                                          int(has.sum()), coverage_interval(
-                                             covered, int(has.sum()), alpha), tau))
+                                             covered, int(has.sum()), alpha),
+                                         float(tau), float(kappa)))
     samples[FLAG_COLUMN] = predicted[FLAG_COLUMN].tolist()
     counts: dict[str, int] = {}
     for text in samples[FLAG_COLUMN]:
@@ -394,4 +399,5 @@ def validated_model(cal: Calibration, result: Assessment, files: Sequence[str],
               if os.path.isfile(f)]
     labels = (None if runs is None
               else groups_in_order(runs, [str(s) for s in frame["sample"]]))
-    return validated_calibration(cal, errors, ses, prints, labels)
+    levels = np.column_stack([frame[f"{a} reference"] for a in cal.analytes])
+    return validated_calibration(cal, errors, ses, prints, labels, levels)

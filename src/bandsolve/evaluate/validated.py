@@ -6,30 +6,35 @@ day-to-day baseline and wavelength shifts, a gain change between the day K was m
 the day samples are, matrix effects — show only on independent samples of known composition.
 
 The validation residuals ``e_i = ĉ_i − c_i`` with calibration standard errors ``s_i`` are
-modelled per analyte as ``e_i ~ N(0, s_i² + τ²)``: an additive model-error variance τ² on top
-of what calibration predicts. τ² is the moment estimator with the mean held at zero, the
-DerSimonian–Laird estimator of random-effects meta-analysis without a location parameter:
-with weights ``w_i = 1/s_i²``, ``E[Σw_ie_i²] = n + τ²Σw_i``, so
-``τ̂² = max(0, (Σw_ie_i² − n)/Σw_i)``. A systematic bias is not removed: it is part of the
-error later samples will have, so it enters τ² (and ``assess`` reports it with its t-test).
-Later intervals are ``ĉ ± t_{ν}·√(s² + τ̂²)`` with ν the smaller of the calibration degrees of
-freedom and the validation's effective degrees of freedom.
+modelled per analyte as ``e_i ~ N(0, s_i² + τ² + κ²c_i²)``: on top of what calibration
+predicts, a model error with an additive part τ (concentration units) and a part κ proportional
+to the level (a fraction of the result), the two-component error model of analytical chemistry
+(Rocke & Lorenzato 1995). A gain change, a path-length or dilution error, a wrong slope all
+grow with the concentration; a baseline shift does not. With an additive τ alone, its estimate
+is an average over the validation levels: intervals are then too wide near zero and too narrow
+at the top of the range, where release decisions are made.
+
+τ² and κ² are maximum-likelihood estimates under the constraint τ², κ² ≥ 0, with the mean held
+at zero: a systematic bias is not removed, it is part of the error later samples will have
+(``assess`` reports it with its t-test). κ is estimated only when the validation references of
+the analyte take at least :data:`MIN_LEVELS` distinct values; otherwise κ = 0 and τ² alone is
+estimated (with equal ``s_i`` it is ``max(0, mean(e²) − s²)``). Later intervals are
+``ĉ ± t_{ν}·√(s² + τ̂² + κ̂²ĉ²)`` with ν the smaller of the calibration degrees of freedom and
+the validation's effective degrees of freedom.
 
 Errors that come from the day (a gain, a wavelength or baseline shift) are shared by every
 sample measured that day, so 30 samples from 5 days carry far less than 29 degrees of freedom
-about τ². When the runs (days) of the validation samples are given, the effective degrees of
-freedom are ``(n − 1)/deff`` with Kish's design effect ``deff = 1 + (n̄ − 1)ρ``, ρ the
-intra-class correlation of the standardized errors ``e_i/√(s_i² + τ̂²)`` (one-way ANOVA
-moment estimator, truncated to [0, 1]) and n̄ the mean run size; never fewer than
+about the model error. When the runs (days) of the validation samples are given, the effective
+degrees of freedom are ``(n − 1)/deff`` with Kish's design effect ``deff = 1 + (n̄ − 1)ρ``, ρ
+the intra-class correlation of the standardized errors ``e_i/√(s_i² + τ̂² + κ̂²c_i²)`` (one-way
+ANOVA moment estimator, truncated to [0, 1]) and n̄ the mean run size; never fewer than
 ``runs − 1``. Without runs each sample counts as its own run (ν = n − 1), which is right only
 when the samples were measured on independent occasions.
 
 References
 ----------
-DerSimonian, R. & Laird, N. (1986). Meta-analysis in clinical trials. Control. Clin. Trials 7,
-177-188.
-Viechtbauer, W. (2005). Bias and efficiency of meta-analytic variance estimators in the
-random-effects model. J. Educ. Behav. Stat. 30, 261-293.
+Rocke, D. M. & Lorenzato, S. (1995). A two-component model for measurement error in analytical
+chemistry. Technometrics 37, 176-184.
 Kish, L. (1965). Survey Sampling. Wiley, New York (design effect of cluster samples, §5.4).
 Searle, S. R., Casella, G. & McCulloch, C. E. (1992). Variance Components. Wiley (one-way
 ANOVA estimators of the intra-class correlation).
@@ -44,17 +49,21 @@ from datetime import datetime, timezone
 from typing import Any
 
 import numpy as np
-from scipy import stats
+from scipy import optimize, stats
 
 from bandsolve.calibration.model import Calibration
 from bandsolve.calibration.records import IntervalBasis
 from bandsolve.errors import DataError
 
-__all__ = ["additive_model_error", "coverage_interval", "effective_dof",
+__all__ = ["MIN_LEVELS", "model_error", "coverage_interval", "effective_dof",
            "validated_calibration", "VALIDATED_METHOD"]
 
 #: How the validated intervals are formed (stored in the model and shown with results).
-VALIDATED_METHOD = "additive model-error variance from validation residuals (moment estimator)"
+VALIDATED_METHOD = ("two-component model error (additive + proportional to the result) from "
+                    "validation residuals, maximum likelihood")
+
+#: Distinct reference levels needed before the proportional part κ is estimated.
+MIN_LEVELS = 3
 
 
 def _usable(errors: np.ndarray, standard_errors: np.ndarray) -> np.ndarray:
@@ -62,8 +71,17 @@ def _usable(errors: np.ndarray, standard_errors: np.ndarray) -> np.ndarray:
     return np.isfinite(errors) & np.isfinite(standard_errors) & (standard_errors > 0)
 
 
-def additive_model_error(errors: np.ndarray, standard_errors: np.ndarray) -> float:
-    """Moment estimate of the additive model-error variance τ² (module docstring).
+def _neg_log_likelihood(theta: np.ndarray, e2: np.ndarray, s2: np.ndarray,
+                        c2: np.ndarray) -> tuple[float, np.ndarray]:
+    """½Σ(log v + e²/v) with ``v = s² + θ₀ + θ₁c²`` (scaled units) and its gradient."""
+    v = s2 + theta[0] + theta[1] * c2
+    g = 0.5 * (1.0 / v - e2 / v**2)
+    return float(0.5 * np.sum(np.log(v) + e2 / v)), np.array([g.sum(), np.sum(g * c2)])
+
+
+def model_error(errors: np.ndarray, standard_errors: np.ndarray,
+                levels: np.ndarray | None = None) -> tuple[float, float]:
+    """Maximum-likelihood model-error variances τ² and κ² (module docstring).
 
     Parameters
     ----------
@@ -71,20 +89,39 @@ def additive_model_error(errors: np.ndarray, standard_errors: np.ndarray) -> flo
         Validation errors ``ĉ − c`` of one analyte (concentration units).
     standard_errors : ndarray, shape (n,)
         Their calibration-only standard errors (same units, positive).
+    levels : ndarray, shape (n,), optional
+        The reference concentrations. Without them, or with fewer than :data:`MIN_LEVELS`
+        distinct values, κ² = 0.
 
     Returns
     -------
-    float
-        τ̂² ≥ 0 (concentration units²).
+    (float, float)
+        τ̂² ≥ 0 (concentration units²) and κ̂² ≥ 0 (dimensionless: κ is a fraction of the
+        result).
     """
     e = np.asarray(errors, dtype=float)
     s = np.asarray(standard_errors, dtype=float)
-    ok = _usable(e, s)
+    c = np.zeros_like(e) if levels is None else np.asarray(levels, dtype=float)
+    ok = _usable(e, s) & np.isfinite(c)
     if ok.sum() < 2:
-        raise DataError("the model-error variance needs at least 2 validation samples with "
-                        "a finite estimate and standard error")
-    w = 1.0 / s[ok] ** 2
-    return float(max(0.0, (np.sum(w * e[ok] ** 2) - ok.sum()) / np.sum(w)))
+        raise DataError("the model error needs at least 2 validation samples with a finite "
+                        "estimate and standard error")
+    unit = float(np.mean(s[ok] ** 2))  # work in units of the mean calibration variance
+    e2, s2 = e[ok] ** 2 / unit, s[ok] ** 2 / unit
+    c2 = c[ok] ** 2
+    proportional = np.unique(c[ok]).size >= MIN_LEVELS and np.mean(c2) > 0
+    c2 = c2 / np.mean(c2) if proportional else np.zeros_like(c2)
+    excess = e2 - s2
+    starts = [[max(0.0, excess.mean()), 0.0]]
+    if proportional:
+        starts += [[0.0, max(0.0, np.sum(excess * c2) / np.sum(c2**2))],
+                   [max(0.0, excess.mean()) / 2, max(0.0, excess.mean()) / 2]]
+    bounds = [(0.0, None), (0.0, None if proportional else 0.0)]
+    best = min((optimize.minimize(_neg_log_likelihood, np.array(x0), args=(e2, s2, c2),
+                                  jac=True, method="L-BFGS-B", bounds=bounds)
+                for x0 in starts), key=lambda r: r.fun)
+    tau2, k2 = (max(0.0, float(v)) for v in best.x)
+    return tau2 * unit, (k2 * unit / float(np.mean(c[ok] ** 2)) if proportional else 0.0)
 
 
 def effective_dof(standardized: np.ndarray, runs: np.ndarray | None) -> float:
@@ -133,7 +170,8 @@ def coverage_interval(covered: int, total: int, alpha: float = 0.05) -> tuple[fl
 
 def validated_calibration(cal: Calibration, errors: np.ndarray, standard_errors: np.ndarray,
                           fingerprints: list[dict[str, Any]],
-                          runs: np.ndarray | None = None) -> Calibration:
+                          runs: np.ndarray | None = None,
+                          levels: np.ndarray | None = None) -> Calibration:
     """A new calibration whose intervals include the model error validation revealed.
 
     Parameters
@@ -146,23 +184,29 @@ def validated_calibration(cal: Calibration, errors: np.ndarray, standard_errors:
         Name and SHA-256 of the validation files, recorded in the model.
     runs : ndarray, shape (n,), optional
         Run (day) of each validation sample; sets the effective degrees of freedom.
+    levels : ndarray, shape (n, m), optional
+        Reference concentrations of the validation samples; without them only the additive
+        part τ is estimated.
 
     Returns
     -------
     Calibration
-        A copy whose ``interval`` record holds the method, τ per analyte, n, the runs, the
-        effective degrees of freedom (the smallest over analytes) and the files.
+        A copy whose ``interval`` record holds the method, τ and κ per analyte, n, the runs,
+        the effective degrees of freedom (the smallest over analytes) and the files.
     """
     e = np.asarray(errors, dtype=float)
     s = np.asarray(standard_errors, dtype=float)
-    tau2 = [additive_model_error(e[:, k], s[:, k]) for k in range(e.shape[1])]
+    c = np.zeros_like(e) if levels is None else np.asarray(levels, dtype=float)
+    parts = [model_error(e[:, k], s[:, k], None if levels is None else c[:, k])
+             for k in range(e.shape[1])]
     dofs = []
-    for k in range(e.shape[1]):
-        ok = _usable(e[:, k], s[:, k])
-        z = e[ok, k] / np.sqrt(s[ok, k] ** 2 + tau2[k])
+    for k, (tau2, kappa2) in enumerate(parts):
+        ok = _usable(e[:, k], s[:, k]) & np.isfinite(c[:, k])
+        z = e[ok, k] / np.sqrt(s[ok, k] ** 2 + tau2 + kappa2 * c[ok, k] ** 2)
         dofs.append(effective_dof(z, None if runs is None else np.asarray(runs)[ok]))
     record = IntervalBasis(
-        method=VALIDATED_METHOD, model_error_sd=tuple(float(np.sqrt(t)) for t in tau2),
+        method=VALIDATED_METHOD, model_error_sd=tuple(float(np.sqrt(t)) for t, _ in parts),
+        relative_error=tuple(float(np.sqrt(k2)) for _, k2 in parts),
         n_validation=int(e.shape[0]),
         n_runs=0 if runs is None else int(np.unique(np.asarray(runs)).size),
         dof=float(min(dofs)),

@@ -188,9 +188,8 @@ def model_section(cal: Calibration) -> str:
         ("prediction intervals rest on", cal.interval_basis),
     ]
     if cal.interval is not None:
-        rows.append(("model error SD added (validation)", ", ".join(
-            f"{a}: {t:.3g}" for a, t in zip(cal.analytes, cal.interval.model_error_sd,
-                                              strict=True))))
+        rows.append(("model error added (validation)",
+                     cal.interval.model_error_text(cal.analytes)))
         rows.append(("validation degrees of freedom", f"{cal.interval.t_dof:.3g}" + (
             f" ({cal.interval.n_runs} runs)" if cal.interval.n_runs else "")))
     if cal.shared_error:
