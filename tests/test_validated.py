@@ -17,7 +17,12 @@ from bandsolve.cli import main
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.errors import DataError
 from bandsolve.evaluate.assess import assess, validated_model
-from bandsolve.evaluate.validated import coverage_interval, effective_dof, model_error
+from bandsolve.evaluate.validated import (
+    coverage_interval,
+    effective_dof,
+    model_error,
+    validated_calibration,
+)
 from bandsolve.io import write_concentrations_csv, write_spectra_csv
 from bandsolve.spectra import SpectralSet
 from tests.conftest import gaussian_bands
@@ -163,7 +168,7 @@ def test_assess_out_model_from_the_command_line(tmp_path, capsys):
     # effective degrees of freedom stay between runs − 1 and n − 1 (Kish design effect).
     assert main([*args, "--out-model", str(tmp_path / "runs.bsm"), "--runs", "~v(\\d)"]) == 0
     basis = load_model(tmp_path / "runs.bsm").interval
-    assert basis.n_runs == 10 and 9 <= basis.t_dof <= 29
+    assert basis.n_runs == 10 and all(9 <= v <= 29 for v in basis.t_dof)
     capsys.readouterr()
     assert main(["inspect", str(tmp_path / "new.bsm")]) == 0
     shown = capsys.readouterr().out
@@ -263,3 +268,30 @@ def test_run_aware_dof_keeps_coverage_when_errors_are_shared_within_days():
         total += 20
     assert hit_runs / total >= 0.925, hit_runs / total
     assert hit_plain / total < hit_runs / total - 0.02
+
+
+def test_each_analyte_uses_its_own_effective_degrees_of_freedom():
+    # Analyte A's validation errors share a day effect, B's do not: A's model error rests on
+    # about 5 day effects, B's on 30 samples (Kish 1965 design effect), and each interval uses
+    # the t quantile of its own analyte (Student 1908), not the smallest over the analytes.
+    rng = np.random.default_rng(30)
+    cal = build_cls(*_day(rng, rng.uniform(0.1, 1, (20, 3)), "c"))
+    runs = np.repeat(np.arange(5), 6)
+    s = np.full((30, 3), 0.002)
+    e = np.column_stack([rng.normal(0, 0.01, 5)[runs], rng.normal(0, 0.01, 30),
+                         rng.normal(0, 0.01, 30)]) + rng.normal(0, 0.002, (30, 3))
+    new = validated_calibration(cal, e, s, [], runs)
+    dofs = []
+    for k in range(3):
+        tau2, _ = model_error(e[:, k], s[:, k])
+        dofs.append(effective_dof(e[:, k] / np.sqrt(s[:, k] ** 2 + tau2), runs))
+    np.testing.assert_allclose(new.interval.t_dof, dofs, rtol=1e-12)
+    assert dofs[0] < 10 < dofs[1] and new.interval.dof == min(dofs)
+    later, _ = _day(rng, rng.uniform(0.1, 1, (4, 3)), "u")
+    res = new.predict(later)
+    lim = cal.limits.models[0]
+    for k, label in enumerate(LABELS):
+        cal_dof = lim.error_scale_dof if lim.error_scale[k] > 1 else AXIS.size - 3
+        t = stats.t.ppf(0.975, min(cal_dof, dofs[k]))
+        np.testing.assert_allclose(res[f"{label} high95"] - res[label], t * res[f"{label} SE"],
+                                   rtol=1e-12)

@@ -343,7 +343,7 @@ class Calibration:
             return d
         tau = np.asarray(self.interval.model_error_sd, dtype=float)
         kappa = np.asarray(self.interval.kappa, dtype=float)
-        dof = np.minimum(d.dof, self.interval.t_dof)
+        dof = np.minimum(d.dof, np.asarray(self.interval.t_dof, dtype=float))
         var = d.standard_errors**2 + tau**2 + (kappa * d.concentrations) ** 2
         return dataclasses.replace(d, standard_errors=np.sqrt(var),
                                    dof=np.where((tau > 0) | (kappa > 0), dof, d.dof))

@@ -98,6 +98,7 @@ class EstimatorLimits:
     error_scale: tuple[float, ...] = ()
     error_scale_dof: int = 0
     relative_error: tuple[float, ...] = ()
+    analyte_dof: tuple[float, ...] = ()
     noise_floor: tuple[float, ...] = ()
     noise_floor_dof: int = 0
 
@@ -111,6 +112,7 @@ class EstimatorLimits:
                 "reference_variance": list(self.reference_variance),
                 "error_scale": list(self.error_scale), "error_scale_dof": self.error_scale_dof,
                 "relative_error": list(self.relative_error),
+                "analyte_dof": list(self.analyte_dof),
                 "noise_floor": list(self.noise_floor), "noise_floor_dof": self.noise_floor_dof}
 
     @classmethod
@@ -335,13 +337,16 @@ class IntervalBasis:
     relative_error : tuple of float
         κ per analyte, a fraction of the result: ``κ·|ĉ|`` is added in quadrature too
         (``evaluate.validated``). Empty in files written before schema 6: κ = 0.
+    analyte_dof : tuple of float
+        Effective degrees of freedom of each analyte's model error; the t quantile uses them
+        where τ or κ > 0. Empty in files written before schema 6: ``dof`` for every analyte.
     n_validation : int
         Independent validation samples τ was estimated from.
     n_runs : int
         Runs (days) the validation samples came from; 0 when not given.
     dof : float
-        Effective degrees of freedom of τ (``evaluate.validated.effective_dof``); the t
-        quantile uses them where τ > 0. 0 in older files: ``n_validation − 1``.
+        The smallest effective degrees of freedom over the analytes
+        (``evaluate.validated.effective_dof``). 0 in older files: ``n_validation − 1``.
     validation_files : tuple of dict
         Name and SHA-256 of each validation file.
     created : str
@@ -356,6 +361,7 @@ class IntervalBasis:
     n_runs: int = 0
     dof: float = 0.0
     relative_error: tuple[float, ...] = ()
+    analyte_dof: tuple[float, ...] = ()
 
     @property
     def kappa(self) -> tuple[float, ...]:
@@ -370,9 +376,18 @@ class IntervalBasis:
                                             strict=True))
 
     @property
-    def t_dof(self) -> float:
-        """Degrees of freedom of the t quantile where τ > 0."""
-        return self.dof if self.dof > 0 else float(self.n_validation - 1)
+    def t_dof(self) -> tuple[float, ...]:
+        """Degrees of freedom of each analyte's t quantile where τ or κ > 0."""
+        if self.analyte_dof:
+            return self.analyte_dof
+        return (self.dof if self.dof > 0 else float(self.n_validation - 1),) * len(
+            self.model_error_sd)
+
+    @property
+    def t_dof_text(self) -> str:
+        """The t quantile's degrees of freedom in words: one value, or the span over analytes."""
+        low, high = min(self.t_dof), max(self.t_dof)
+        return f"{low:.3g}" if round(low, 1) == round(high, 1) else f"{low:.3g}–{high:.3g}"
 
     @property
     def label(self) -> str:
@@ -385,7 +400,8 @@ class IntervalBasis:
         """JSON-friendly dictionary (inverse of :meth:`from_dict`)."""
         return {"basis": "validated", "method": self.method,
                 "model_error_sd": list(self.model_error_sd),
-                "relative_error": list(self.relative_error), "n_validation": self.n_validation,
+                "relative_error": list(self.relative_error),
+                "analyte_dof": list(self.analyte_dof), "n_validation": self.n_validation,
                 "n_runs": self.n_runs, "dof": self.dof,
                 "validation_files": [dict(f) for f in self.validation_files],
                 "created": self.created}
@@ -400,4 +416,5 @@ class IntervalBasis:
                                    for f in data.get("validation_files") or ()),
             created=str(data.get("created") or ""), n_runs=int(data.get("n_runs") or 0),
             dof=float(data.get("dof") or 0.0),
-            relative_error=_floats(data.get("relative_error") or ())))
+            relative_error=_floats(data.get("relative_error") or ()),
+            analyte_dof=_floats(data.get("analyte_dof") or ())))

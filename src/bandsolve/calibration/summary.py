@@ -102,7 +102,7 @@ def format_summary(description: dict[str, Any], limits: Limits, selection: Selec
         basis = IntervalBasis.from_dict(interval)
         runs = f" from {basis.n_runs} runs" if basis.n_runs else ""
         notes.append(f"Intervals validated on {basis.n_validation} independent samples"
-                     f"{runs} (t quantile on {basis.t_dof:.3g} effective degrees of freedom): "
+                     f"{runs} (t quantile on {basis.t_dof_text} effective degrees of freedom): "
                      "model error added to every SE: "
                      + basis.model_error_text([a["label"] for a in d["analytes"]]))
     else:

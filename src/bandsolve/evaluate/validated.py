@@ -191,8 +191,8 @@ def validated_calibration(cal: Calibration, errors: np.ndarray, standard_errors:
     Returns
     -------
     Calibration
-        A copy whose ``interval`` record holds the method, τ and κ per analyte, n, the runs,
-        the effective degrees of freedom (the smallest over analytes) and the files.
+        A copy whose ``interval`` record holds the method, τ, κ and the effective degrees of
+        freedom per analyte, n, the runs and the files.
     """
     e = np.asarray(errors, dtype=float)
     s = np.asarray(standard_errors, dtype=float)
@@ -209,7 +209,7 @@ def validated_calibration(cal: Calibration, errors: np.ndarray, standard_errors:
         relative_error=tuple(float(np.sqrt(k2)) for _, k2 in parts),
         n_validation=int(e.shape[0]),
         n_runs=0 if runs is None else int(np.unique(np.asarray(runs)).size),
-        dof=float(min(dofs)),
+        dof=float(min(dofs)), analyte_dof=tuple(float(v) for v in dofs),
         validation_files=tuple(dict(f) for f in fingerprints),
         created=datetime.now(timezone.utc).isoformat(timespec="seconds"))
     return dataclasses.replace(cal, interval=record)

@@ -190,7 +190,7 @@ def model_section(cal: Calibration) -> str:
     if cal.interval is not None:
         rows.append(("model error added (validation)",
                      cal.interval.model_error_text(cal.analytes)))
-        rows.append(("validation degrees of freedom", f"{cal.interval.t_dof:.3g}" + (
+        rows.append(("validation degrees of freedom", cal.interval.t_dof_text + (
             f" ({cal.interval.n_runs} runs)" if cal.interval.n_runs else "")))
     if cal.shared_error:
         rows.append(("error shared by all results", shared_error_note(cal.shared_error)))
