@@ -11,8 +11,8 @@ bands (151 points, 400–700 nm, white noise σ = 0.003 AU) and measures, on 200
 mixtures per calibration (``cls-standards-M``: M analytes, 5 pure standards each;
 ``cls-standards-Mx2``: each of those standards prepared and measured twice):
 
-* pooled coverage of the 95 % intervals, and the share of calibrations in which some analyte
-  covers less than 0.90;
+* coverage of the 95 % intervals, pooled and by third of each analyte's range (low, middle,
+  top), and the share of calibrations in which some analyte covers less than 0.90;
 * the share of clean in-range samples carrying any flag (in range: inside every analyte's
   calibrated range and, as a lab would dilute otherwise, below the 2 AU photometric
   ceiling; the share above it is printed too);
@@ -23,8 +23,7 @@ mixtures per calibration (``cls-standards-M``: M analytes, 5 pure standards each
 Then the same under day-to-day effects calibration cannot see — each day has its own gain
 (SD 2 %), wavelength shift (SD 0.2 nm), baseline offset (SD 0.002 AU) and slope; calibration is
 measured on one day, 30 validation mixtures on 5 other days, the new samples on 10 further days
-— before and after ``assess --out-model`` on the 30 validation mixtures, pooled and by third
-of each analyte's range (low, middle, top).
+— before and after ``assess --out-model`` on the 30 validation mixtures.
 
 The real section uses ``../shared/datasets``: intervals on the 54 real blank replicates (truth
 0; before, and after validation on one half, scored on the other half), leave-one-standard-out
@@ -132,11 +131,17 @@ def covered(res, C: np.ndarray) -> np.ndarray:
     return (low <= C) & (C <= high)
 
 
+def by_third(cov: np.ndarray, C: np.ndarray, low: np.ndarray, high: np.ndarray) -> np.ndarray:
+    """Covered and counted results (2, 3) by third of each analyte's range (low, middle, top)."""
+    third = np.clip(((C - low) / (np.minimum(high, 1.0) - low) * 3).astype(int), 0, 2)
+    return np.array([np.bincount(third[cov], minlength=3), np.bincount(third.ravel(), minlength=3)])
+
+
 def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng,
              runs: bool = True) -> dict[str, float]:
     """Figures of one model kind; ``runs``: tell assess the day of each validation sample."""
     pooled, bad, flags, detect, after, bad_after, over = [], 0, [], [], [], 0, []
-    thirds = np.zeros((2, 3))  # covered and counted after validation, by third of the range
+    thirds = np.zeros((2, 2, 3))  # covered and counted, before and after validation, by third
     for _ in range(n_cal):
         cal = build(kind, rng, m, new_day(rng, effects))
         days = [new_day(rng, effects) for _ in range(10)]
@@ -146,6 +151,7 @@ def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng,
         Ct = np.vstack([Ct[i::10] for i in range(10)])
         res = cal.predict(spectra(At, "t"))
         cov = covered(res, Ct)
+        thirds[0] += by_third(cov, Ct, low, high)
         pooled.append(cov.mean())
         bad += int((cov.mean(axis=0) < 0.90).any())
         # Clean means in range and inside the photometric range: a lab dilutes a sample
@@ -167,18 +173,18 @@ def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng,
             val = validated_model(cal, assess(cal, spectra(Av, "v"), table(Cv, "v")), [],
                                   day_of if runs else None)
         cov2 = covered(val.predict(spectra(At, "t")), Ct)
-        third = np.clip(((Ct - low) / (np.minimum(high, 1.0) - low) * 3).astype(int), 0, 2)
-        thirds += [np.bincount(third[cov2], minlength=3), np.bincount(third.ravel(), minlength=3)]
+        thirds[1] += by_third(cov2, Ct, low, high)
         after.append(cov2.mean())
         bad_after += int((cov2.mean(axis=0) < 0.90).any())
     out = {"coverage": float(np.mean(pooled)), "any_below_090": bad / n_cal,
+           "thirds": thirds[0, 0] / thirds[0, 1],
            "any_flag_clean": float(np.mean(flags)), "over_ceiling": float(np.mean(over))}
     if detect:
         out["absorber_flagged"] = float(np.mean(detect))
     if after:
         out["coverage_after"] = float(np.mean(after))
         out["any_below_090_after"] = bad_after / n_cal
-        out["thirds_after"] = thirds[0] / thirds[1]
+        out["thirds_after"] = thirds[1, 0] / thirds[1, 1]
     return out
 
 
@@ -193,7 +199,8 @@ KINDS = {
 def simulated(n_cal: int, only: list[str] | None, runs: bool = True) -> None:
     print(f"Simulated: {n_cal} calibrations per kind, {N_NEW} new samples each")
     print(f"{'kind':<20}{'effects':<9}{'coverage':>9}{'<0.90':>7}{'flag':>7}{'absorber':>9}"
-          f"{'cov after':>10}{'<0.90 after':>12}{'by third after':>20}{'>2 AU':>7}{'s':>6}")
+          f"{'by third':>20}{'cov after':>10}{'<0.90 after':>12}{'by third after':>20}"
+          f"{'>2 AU':>7}{'s':>6}")
     for kind, m in KINDS.items():
         if only and kind not in only:
             continue
@@ -205,6 +212,7 @@ def simulated(n_cal: int, only: list[str] | None, runs: bool = True) -> None:
             print(f"{kind:<20}{'day' if effects else 'clean':<9}{r['coverage']:>9.3f}"
                   f"{r['any_below_090']:>7.2f}{r['any_flag_clean']:>7.3f}"
                   f"{r.get('absorber_flagged', float('nan')):>9.3f}"
+                  f"{' '.join(f'{v:.3f}' for v in r['thirds']):>20}"
                   f"{r.get('coverage_after', float('nan')):>10.3f}"
                   f"{r.get('any_below_090_after', float('nan')):>12.2f}"
                   f"{' '.join(f'{v:.3f}' for v in r.get('thirds_after', [])):>20}"
