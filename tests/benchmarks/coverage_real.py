@@ -41,17 +41,39 @@ def _codes(res: pd.DataFrame) -> str:
     return ", ".join(f"{k} {v}" for k, v in sorted(counts.items())) or "none"
 
 
-def leave_one_standard_out(spectra, table, build=build_cls, **kw) -> tuple[float, float]:
-    """Coverage of each left-out standard's concentrations, and its flag rate."""
-    hits, flags = [], []
+def loso_errors(spectra, table, build=build_cls, **kw):
+    """Coverage and flag rate of the left-out standards, and their errors, SEs and references
+    (each an (n, m) array)."""
+    hits, flags, errors, ses = [], [], [], []
+    analytes = list(table.analytes)
     for sid in table.sample_ids:
         keep = [s for s in table.sample_ids if s != sid]
         cal = build(spectra.subset(keep), table.subset(keep), **kw)
         res = cal.predict(spectra.subset([sid]))
         truth = np.asarray(table.subset([sid]).values)
-        hits.append(_inside(res, table.analytes, truth).mean())
+        hits.append(_inside(res, analytes, truth).mean())
         flags.append(_flag_rate(res))
-    return float(np.mean(hits)), float(np.mean(flags))
+        errors.append(res[analytes].to_numpy(float)[0] - truth[0])
+        ses.append(res[[f"{a} SE" for a in analytes]].to_numpy(float)[0])
+    return (float(np.mean(hits)), float(np.mean(flags)),
+            (np.array(errors), np.array(ses), np.asarray(table.values, dtype=float)))
+
+
+def model_error_line(cal, loso, mixtures=None) -> str:
+    """The two-component model error the left-out standards show, fed to the estimator as if
+    they were a validation (they are not independent: indicative only), and the replicate
+    spread against the SE with it."""
+    errors, ses, levels = loso
+    new = validated_calibration(cal, errors, ses, [], None, levels)
+    parts = ", ".join(f"{t:.2g} + {100 * k:.1f} %" for t, k in zip(
+        new.interval.model_error_sd, new.interval.kappa, strict=True))
+    text = f"    model error shown by the left-out standards (τ + κ): {parts}"
+    if mixtures is not None:
+        res = new.predict(mixtures)
+        conc = res[list(cal.analytes)].to_numpy(float)
+        se = res[[f"{a} SE" for a in cal.analytes]].median().to_numpy(float)
+        text += f"; replicate SD / median SE with it {np.round(conc.std(axis=0, ddof=1) / se, 2)}"
+    return text
 
 
 def blanks_before_after(cal, blanks, analytes, rng, splits: int = 200):
@@ -85,7 +107,7 @@ def aromatics(folder: Path) -> None:
             cal = build_cls(spectra, table, **kw)
             before, after, new = blanks_before_after(cal, blanks, analytes,
                                                      np.random.default_rng(1))
-            loo_cov, loo_flag = leave_one_standard_out(spectra, table, **kw)
+            loo_cov, loo_flag, loso = loso_errors(spectra, table, **kw)
         res_b = cal.predict(blanks)
         res_m = cal.predict(mixtures)
         conc = res_m[list(analytes)].to_numpy(float)
@@ -96,6 +118,7 @@ def aromatics(folder: Path) -> None:
         print(f"    leave-one-standard-out coverage {loo_cov:.2f}, flagged {loo_flag:.2f}; "
               f"replicate mixtures flagged {_flag_rate(res_m):.2f} ({_codes(res_m)}); "
               f"replicate SD / median SE {np.round(conc.std(axis=0, ddof=1) / se, 2)}")
+        print(model_error_line(cal, loso, mixtures))
 
 
 def styrene(folder: Path) -> None:
@@ -111,13 +134,14 @@ def styrene(folder: Path) -> None:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             cal = build_cls(spectra, table, **kw)
-            loo_cov, loo_flag = leave_one_standard_out(spectra, table, **kw)
+            loo_cov, loo_flag, loso = loso_errors(spectra, table, **kw)
         res = cal.predict(mixtures)
         pub = published.loc[list(res["sample"])].to_numpy(float)
         agree = _inside(res, table.analytes, pub).mean(axis=0)
         print(f"  CLS {name}: leave-one-standard-out coverage {loo_cov:.2f}, flagged "
               f"{loo_flag:.2f}; reaction mixtures flagged {_flag_rate(res):.2f} "
               f"({_codes(res)}); published fit inside our interval {np.round(agree, 2)}")
+        print(model_error_line(cal, loso))
 
 
 def pls_real(folder: Path) -> None:
@@ -132,7 +156,7 @@ def pls_real(folder: Path) -> None:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             cal = build_pls(spectra, table, **kw)
-            loo_cov, loo_flag = leave_one_standard_out(spectra, table, build_pls, **kw)
+            loo_cov, loo_flag, _ = loso_errors(spectra, table, build_pls, **kw)
         res = cal.predict(read_spectra(d / other))
         print(f"  PLS2 {name} ({cal.estimators[0].n_components} components): leave-one-"
               f"standard-out coverage {loo_cov:.2f}, flagged {loo_flag:.2f}; "
