@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import optimize, stats
 
 from bandsolve.calibration.build import build_cls
@@ -295,3 +297,23 @@ def test_each_analyte_uses_its_own_effective_degrees_of_freedom():
         t = stats.t.ppf(0.975, min(cal_dof, dofs[k]))
         np.testing.assert_allclose(res[f"{label} high95"] - res[label], t * res[f"{label} SE"],
                                    rtol=1e-12)
+
+
+@settings(max_examples=60, deadline=None)
+@given(scale=st.floats(1e-6, 1e3), n=st.integers(5, 40), stream=st.integers(0, 2**32 - 1))
+def test_model_error_follows_the_concentration_unit_and_ignores_sample_order(scale, n, stream):
+    # Identities of the likelihood (theory): errors, SEs and levels in another unit (× scale)
+    # scale τ² by scale² and leave κ², a fraction, unchanged; the order of samples is
+    # irrelevant. Both parts are never negative.
+    rng = np.random.default_rng(stream)
+    c = rng.uniform(0.0, 1.0, n)
+    s = rng.uniform(0.01, 0.05, n)
+    e = rng.normal(0, np.sqrt(s**2 + rng.uniform(0, 0.05) ** 2 + (rng.uniform(0, 0.1) * c) ** 2))
+    tau2, kappa2 = model_error(e, s, c)
+    assert tau2 >= 0 and kappa2 >= 0
+    t2, k2 = model_error(scale * e, scale * s, scale * c)
+    assert t2 == pytest.approx(scale**2 * tau2, rel=1e-4, abs=1e-9 * scale**2)
+    assert k2 == pytest.approx(kappa2, rel=1e-4, abs=1e-9)
+    order = rng.permutation(n)
+    assert model_error(e[order], s[order], c[order]) == pytest.approx((tau2, kappa2), rel=1e-6,
+                                                                       abs=1e-12)
