@@ -18,8 +18,9 @@ import pandas as pd
 
 from bandsolve.calibration.blocks import EVAL_ROWS, in_blocks, scan_block
 from bandsolve.calibration.detail import Detail
+from bandsolve.calibration.interval import IntervalBasis
 from bandsolve.calibration.methods import CalibrationMethod, method_named
-from bandsolve.calibration.records import IntervalBasis, Limits, Selection
+from bandsolve.calibration.records import Limits, Selection
 from bandsolve.calibration.results import (
     INTERVAL_LEVEL,
     TEXT_COLUMNS,

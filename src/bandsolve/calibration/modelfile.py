@@ -35,6 +35,7 @@ from typing import Any
 import numpy as np
 
 from bandsolve.calibration.detail import CLS_LEVERAGE_FACTOR, LEVERAGE_FACTOR
+from bandsolve.calibration.interval import IntervalBasis
 from bandsolve.calibration.model import Calibration
 from bandsolve.calibration.modelfile_guard import (
     check_authentic,
@@ -44,7 +45,7 @@ from bandsolve.calibration.modelfile_guard import (
     read_members,
     sign,
 )
-from bandsolve.calibration.records import EstimatorLimits, IntervalBasis, Limits, Selection
+from bandsolve.calibration.records import EstimatorLimits, Limits, Selection
 from bandsolve.cls import CLSRegressor
 from bandsolve.errors import ModelFileError
 from bandsolve.io.atomic import atomic_write

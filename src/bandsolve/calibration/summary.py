@@ -11,7 +11,8 @@ import math
 import textwrap
 from typing import Any
 
-from bandsolve.calibration.records import IntervalBasis, Limits, Selection
+from bandsolve.calibration.interval import IntervalBasis
+from bandsolve.calibration.records import Limits, Selection
 from bandsolve.cautions import SHORT_CAUTION
 from bandsolve.concentrations import range_text
 from bandsolve.merit import FiguresOfMerit

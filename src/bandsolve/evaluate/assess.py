@@ -111,9 +111,8 @@ class AnalyteAssessment:
     coverage_ci : (float, float)
         Clopper–Pearson interval of the coverage at the assessment's level.
     model_error_sd, model_error_relative : float
-        τ̂ and κ̂, the model error this test set reveals beyond the calibration-only SE: an
-        additive SD (concentration units) and a part proportional to the level (a fraction)
-        (:func:`bandsolve.evaluate.validated.model_error`); what ``--out-model`` stores.
+        τ̂ (concentration units) and κ̂ (a fraction of the level), the model error this test
+        set reveals beyond the calibration SE (``evaluate.validated``); ``--out-model`` stores.
     """
 
     analyte: str
@@ -393,11 +392,9 @@ def validated_model(cal: Calibration, result: Assessment, files: Sequence[str],
     if not result.independent:
         raise DataError(f"{result.note}; validate on samples the model was not built from")
     frame = result.samples
-    errors = np.column_stack([frame[f"{a} error"] for a in cal.analytes])
-    ses = np.column_stack([frame[f"{a} SE (calibration)"] for a in cal.analytes])
+    errors, ses, levels = (np.column_stack([frame[f"{a} {column}"] for a in cal.analytes])
+                           for column in ("error", "SE (calibration)", "reference"))
     prints = [{"name": os.path.basename(f), "sha256": sha256_file(f)} for f in files
               if os.path.isfile(f)]
-    labels = (None if runs is None
-              else groups_in_order(runs, [str(s) for s in frame["sample"]]))
-    levels = np.column_stack([frame[f"{a} reference"] for a in cal.analytes])
+    labels = None if runs is None else groups_in_order(runs, [str(s) for s in frame["sample"]])
     return validated_calibration(cal, errors, ses, prints, labels, levels)

@@ -51,8 +51,8 @@ from typing import Any
 import numpy as np
 from scipy import optimize, stats
 
+from bandsolve.calibration.interval import IntervalBasis
 from bandsolve.calibration.model import Calibration
-from bandsolve.calibration.records import IntervalBasis
 from bandsolve.errors import DataError
 
 __all__ = ["MIN_LEVELS", "model_error", "coverage_interval", "effective_dof",
