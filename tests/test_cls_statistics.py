@@ -183,9 +183,9 @@ def test_two_column_nnls_matches_scipy(A, b):
     # scipy.optimize.nnls (Lawson & Hanson 1974): the same minimum of ‖Aθ − b‖.
     from scipy.optimize import nnls
 
-    from bandsolve.cls_loo import _nnls2
+    from bandsolve.variance_function import nnls2
 
-    ours = _nnls2(A, b)
+    ours = nnls2(A, b)
     ref = nnls(A, b)[0]
     assert np.all(ours >= 0)
     scale = 1.0 + np.linalg.norm(b) ** 2 + np.linalg.norm(A) ** 2

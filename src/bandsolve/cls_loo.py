@@ -23,7 +23,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from bandsolve._distributions import chi2_sf
+from bandsolve.variance_function import boundary_lr_p, fit_variance
 
 __all__ = ["LeaveOneOut", "cls_leave_one_out"]
 
@@ -131,45 +131,6 @@ def cls_leave_one_out(X: np.ndarray, design: np.ndarray, coef: np.ndarray, gram_
 RELATIVE_ERROR_ALPHA = 0.05
 
 
-def _nnls2(A: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """``min ‖Aθ − b‖``, θ ≥ 0, for two columns: the best of the four active sets (exact).
-
-    Each column is first divided by its largest magnitude, so that AᵀA neither underflows
-    nor overflows whatever the units (squared concentrations in mol/L are ~1e-8).
-    """
-    scale = np.max(np.abs(A), axis=0)
-    scale = np.where(scale > 0, scale, 1.0)
-    A = A / scale
-    gram, rhs = A.T @ A, A.T @ b
-    candidates = [np.zeros(2)]
-    for k in (0, 1):
-        if gram[k, k] > 0:
-            one = np.zeros(2)
-            one[k] = max(0.0, rhs[k] / gram[k, k])
-            candidates.append(one)
-    if np.linalg.det(gram) > 1e-12 * gram[0, 0] * gram[1, 1]:
-        both = np.linalg.solve(gram, rhs)
-        if np.all(both >= 0):
-            candidates.append(both)
-    return min(candidates, key=lambda t: float(t @ gram @ t - 2.0 * t @ rhs)) / scale
-
-
-def _fit_variance(d: np.ndarray, columns: np.ndarray, iterations: int) -> np.ndarray:
-    """``var = s² + columns @ θ``, θ ≥ 0, by reweighted non-negative least squares on d − s²."""
-    s2 = columns[:, 0]
-    var = s2.copy()
-    theta = np.zeros(columns.shape[1])
-    for _ in range(iterations):
-        w = 1.0 / var
-        theta = _nnls2(columns * w[:, None], (d - s2) * w)
-        var = s2 + columns @ theta
-    return theta
-
-
-def _loglik(d: np.ndarray, var: np.ndarray) -> float:
-    return float(-0.5 * np.sum(np.log(var) + d / var))
-
-
 def error_model(errors: np.ndarray, standard_errors: np.ndarray,
                 concentrations: np.ndarray, iterations: int = 3) -> tuple[float, float]:
     """Variance function ``Var(e) = κ²·SE² + (γ·c)²`` fitted to leave-one-out errors.
@@ -182,9 +143,9 @@ def error_model(errors: np.ndarray, standard_errors: np.ndarray,
     with ``κ² = 1 + a``, ``a ≥ 0``, ``γ² ≥ 0`` (non-negative least squares), reweighting by
     the inverse squared fitted variance a few times: the variance-function estimator of
     Carroll & Ruppert (1988, Transformation and Weighting in Regression, ch. 3) from squared
-    residuals. γ is kept only when the Gaussian likelihood-ratio test of ``γ = 0`` rejects
-    at ``RELATIVE_ERROR_ALPHA`` (γ² = 0 is on the boundary, so the reference is the
-    ½χ²₀ + ½χ²₁ mixture; Self & Liang 1987, J. Am. Stat. Assoc. 82, 605): fitted to white
+    residuals (:mod:`bandsolve.variance_function`). γ is kept only when the Gaussian
+    likelihood-ratio test of ``γ = 0`` rejects at ``RELATIVE_ERROR_ALPHA`` (γ² = 0 is on the
+    boundary, so the reference is the ½χ²₀ + ½χ²₁ mixture; Self & Liang 1987): fitted to white
     noise alone, a free γ is positive half the time and widens intervals for nothing.
     With γ = 0 the fit is the Birge ratio ``κ² = max(1, mean(e²/SE²))``.
 
@@ -203,8 +164,8 @@ def error_model(errors: np.ndarray, standard_errors: np.ndarray,
     """
     d, s2, c2 = errors**2, standard_errors**2, concentrations**2
     a0 = max(0.0, float(np.mean(d / s2)) - 1.0)
-    a, g = _fit_variance(d, np.column_stack([s2, c2]), iterations)
-    lr = 2.0 * (_loglik(d, (1.0 + a) * s2 + g * c2) - _loglik(d, (1.0 + a0) * s2))
-    if g > 0 and lr > 0 and 0.5 * chi2_sf(lr, 1) < RELATIVE_ERROR_ALPHA:
+    a, g = fit_variance(d, s2, np.column_stack([s2, c2]), iterations)
+    if g > 0 and boundary_lr_p(d, (1.0 + a) * s2 + g * c2,
+                               (1.0 + a0) * s2) < RELATIVE_ERROR_ALPHA:
         return float(np.sqrt(1.0 + a)), float(np.sqrt(g))
     return float(np.sqrt(1.0 + a0)), 0.0

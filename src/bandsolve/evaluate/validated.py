@@ -15,12 +15,17 @@ is an average over the validation levels: intervals are then too wide near zero 
 at the top of the range, where release decisions are made.
 
 τ² and κ² are maximum-likelihood estimates under the constraint τ², κ² ≥ 0, with the mean held
-at zero: a systematic bias is not removed, it is part of the error later samples will have
-(``assess`` reports it with its t-test). κ is estimated only when the validation references of
-the analyte take at least :data:`MIN_LEVELS` distinct values; otherwise κ = 0 and τ² alone is
-estimated (with equal ``s_i`` it is ``max(0, mean(e²) − s²)``). Later intervals are
-``ĉ ± t_{ν}·√(s² + τ̂² + κ̂²ĉ²)`` with ν the smaller of the calibration degrees of freedom and
-the validation's effective degrees of freedom.
+at zero (:mod:`bandsolve.variance_function`, the estimator that also fits the leave-one-out
+error model of a CLS calibration): a systematic bias is not removed, it is part of the error
+later samples will have (``assess`` reports it with its t-test). κ is estimated only when the
+validation references of the analyte take at least :data:`MIN_LEVELS` distinct values;
+otherwise κ = 0 and τ² alone is estimated (with equal ``s_i`` it is ``max(0, mean(e²) − s²)``).
+Unlike the calibration's relative term, κ is not gated by a test: here τ and κ share the
+error the validation saw, so a chance κ > 0 moves width towards the top of the range without
+adding any, while a real proportional error missed by a test of 30 samples would leave the
+top of the range under-covered. Later intervals are ``ĉ ± t_{ν}·√(s² + τ̂² + κ̂²ĉ²)`` with ν
+the smaller of the calibration degrees of freedom and the validation's effective degrees of
+freedom.
 
 Errors that come from the day (a gain, a wavelength or baseline shift) are shared by every
 sample measured that day, so 30 samples from 5 days carry far less than 29 degrees of freedom
@@ -49,11 +54,12 @@ from datetime import datetime, timezone
 from typing import Any
 
 import numpy as np
-from scipy import optimize, stats
+from scipy import stats
 
 from bandsolve.calibration.interval import IntervalBasis
 from bandsolve.calibration.model import Calibration
 from bandsolve.errors import DataError
+from bandsolve.variance_function import fit_variance
 
 __all__ = ["MIN_LEVELS", "model_error", "coverage_interval", "effective_dof",
            "validated_calibration", "VALIDATED_METHOD"]
@@ -69,14 +75,6 @@ MIN_LEVELS = 3
 def _usable(errors: np.ndarray, standard_errors: np.ndarray) -> np.ndarray:
     """Validation samples with a finite error and a positive finite standard error."""
     return np.isfinite(errors) & np.isfinite(standard_errors) & (standard_errors > 0)
-
-
-def _neg_log_likelihood(theta: np.ndarray, e2: np.ndarray, s2: np.ndarray,
-                        c2: np.ndarray) -> tuple[float, np.ndarray]:
-    """½Σ(log v + e²/v) with ``v = s² + θ₀ + θ₁c²`` (scaled units) and its gradient."""
-    v = s2 + theta[0] + theta[1] * c2
-    g = 0.5 * (1.0 / v - e2 / v**2)
-    return float(0.5 * np.sum(np.log(v) + e2 / v)), np.array([g.sum(), np.sum(g * c2)])
 
 
 def model_error(errors: np.ndarray, standard_errors: np.ndarray,
@@ -106,22 +104,11 @@ def model_error(errors: np.ndarray, standard_errors: np.ndarray,
     if ok.sum() < 2:
         raise DataError("the model error needs at least 2 validation samples with a finite "
                         "estimate and standard error")
-    unit = float(np.mean(s[ok] ** 2))  # work in units of the mean calibration variance
-    e2, s2 = e[ok] ** 2 / unit, s[ok] ** 2 / unit
-    c2 = c[ok] ** 2
-    proportional = np.unique(c[ok]).size >= MIN_LEVELS and np.mean(c2) > 0
-    c2 = c2 / np.mean(c2) if proportional else np.zeros_like(c2)
-    excess = e2 - s2
-    starts = [[max(0.0, excess.mean()), 0.0]]
-    if proportional:
-        starts += [[0.0, max(0.0, np.sum(excess * c2) / np.sum(c2**2))],
-                   [max(0.0, excess.mean()) / 2, max(0.0, excess.mean()) / 2]]
-    bounds = [(0.0, None), (0.0, None if proportional else 0.0)]
-    best = min((optimize.minimize(_neg_log_likelihood, np.array(x0), args=(e2, s2, c2),
-                                  jac=True, method="L-BFGS-B", bounds=bounds)
-                for x0 in starts), key=lambda r: r.fun)
-    tau2, k2 = (max(0.0, float(v)) for v in best.x)
-    return tau2 * unit, (k2 * unit / float(np.mean(c[ok] ** 2)) if proportional else 0.0)
+    d, s2, c2 = e[ok] ** 2, s[ok] ** 2, c[ok] ** 2
+    if np.unique(c[ok]).size < MIN_LEVELS:
+        c2 = np.zeros_like(c2)
+    tau2, kappa2 = fit_variance(d, s2, np.column_stack([np.ones_like(d), c2]), 200, 1e-10)
+    return float(tau2), float(kappa2)
 
 
 def effective_dof(standardized: np.ndarray, runs: np.ndarray | None) -> float:
