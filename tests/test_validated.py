@@ -19,14 +19,10 @@ from bandsolve.cli import main
 from bandsolve.concentrations import ConcentrationTable
 from bandsolve.errors import DataError
 from bandsolve.evaluate.assess import assess, validated_model
-from bandsolve.evaluate.validated import (
-    coverage_interval,
-    effective_dof,
-    model_error,
-    validated_calibration,
-)
+from bandsolve.evaluate.validated import coverage_interval, model_error, validated_calibration
 from bandsolve.io import write_concentrations_csv, write_spectra_csv
 from bandsolve.spectra import SpectralSet
+from bandsolve.variance_function import effective_dof
 from tests.conftest import gaussian_bands
 
 AXIS = np.linspace(400.0, 700.0, 121)

@@ -17,7 +17,7 @@ from bandsolve._distributions import chi2_quantile, f_quantile
 from bandsolve._estimator import Estimator, Regressor, check_fitted, validated
 from bandsolve._state import RecordedState
 from bandsolve.cls_leverage import CLSLeverage
-from bandsolve.cls_loo import LeaveOneOut, cls_leave_one_out, error_model
+from bandsolve.cls_loo import LeaveOneOut, cls_leave_one_out, cross_validated_error_scale
 from bandsolve.cls_predict import CLSPredicting, CLSPrediction
 from bandsolve.diagnostics import cls_calibration_variance, f_limit_from_values
 from bandsolve.errors import ModelError
@@ -297,14 +297,8 @@ class CLSRegressor(CLSPredicting, CLSLeverage, RecordedState, Regressor, Estimat
         m = self.pure_spectra_.shape[0]
         if getattr(self, "_loo", None) is None:
             return np.ones(m), np.zeros(m), 0
-        err = self._loo.concentrations - self._training_y
-        se = self._loo.standard_errors
-        ok = np.isfinite(err / se).all(axis=1) & (se > 0).all(axis=1)
-        if ok.sum() < 3:
-            return np.ones(m), np.zeros(m), 0
-        fits = [error_model(err[ok, k], se[ok, k], self._training_y[ok, k]) for k in range(m)]
-        return (np.array([f[0] for f in fits]), np.array([f[1] for f in fits]),
-                int(ok.sum()))
+        return cross_validated_error_scale(self._loo.concentrations - self._training_y,
+                                           self._loo.standard_errors, self._training_y)
 
     # ------------------------------------------------------------------ what the model holds
     @property

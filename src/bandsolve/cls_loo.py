@@ -1,4 +1,8 @@
-"""Leave-one-out CLS in closed form: every calibration sample predicted by the model without it.
+"""Cross-validated CLS: every calibration sample predicted by the model without it.
+
+Leave-one-out in closed form, and leaving whole runs (days) out by refitting
+(:func:`leave_runs_out`); both feed the error model that widens the white-noise SE
+(:func:`error_model`).
 
 Removing sample i from ``K̂ = (CᵀC)⁻¹CᵀA`` is a rank-one downdate (Sherman–Morrison):
 ``K̂₍₋ᵢ₎ = K̂ − u_i e_iᵀ`` with ``u_i = G c_i/(1 − h_ii)``, ``G = (CᵀC)⁻¹``, ``h_ii = c_iᵀGc_i``
@@ -20,12 +24,16 @@ Anal. Chem. 60, 1193-1202.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
-from bandsolve.variance_function import boundary_lr_p, fit_variance
+from bandsolve._estimator import clone
+from bandsolve.errors import BandsolveError, DataError
+from bandsolve.variance_function import boundary_lr_p, effective_dof, fit_variance
 
-__all__ = ["LeaveOneOut", "cls_leave_one_out"]
+__all__ = ["LeaveOneOut", "cls_leave_one_out", "cross_validated_error_scale", "error_model",
+           "leave_runs_out"]
 
 #: ``1 − h_ii`` below this: the sample alone determines a model term and cannot be left out.
 _ALONE = 1e-9
@@ -169,3 +177,85 @@ def error_model(errors: np.ndarray, standard_errors: np.ndarray,
                                (1.0 + a0) * s2) < RELATIVE_ERROR_ALPHA:
         return float(np.sqrt(1.0 + a)), float(np.sqrt(g))
     return float(np.sqrt(1.0 + a0)), 0.0
+
+
+def cross_validated_error_scale(errors: np.ndarray, standard_errors: np.ndarray,
+                                concentrations: np.ndarray, runs: np.ndarray | None = None
+                                ) -> tuple[np.ndarray, np.ndarray, int]:
+    """:func:`error_model` per analyte over the samples that could be predicted, and its df.
+
+    Parameters
+    ----------
+    errors, standard_errors, concentrations : ndarray, shape (n, m)
+        Cross-validated errors, their white-noise SEs and the reference concentrations.
+    runs : ndarray, shape (n,), optional
+        Run (day) of each sample when the errors come from leaving whole runs out: errors
+        shared within a run then count as fewer degrees of freedom
+        (:func:`bandsolve.variance_function.effective_dof`, the smallest over analytes,
+        rounded down). Without runs, the number of samples.
+
+    Returns
+    -------
+    kappa, gamma : ndarray, shape (m,)
+        Ones and zeros when fewer than 3 samples could be predicted.
+    dof : int
+        0 when fewer than 3 samples could be predicted.
+    """
+    m = errors.shape[1]
+    ok = np.isfinite(errors / standard_errors).all(axis=1) & (standard_errors > 0).all(axis=1)
+    if ok.sum() < 3:
+        return np.ones(m), np.zeros(m), 0
+    e, s, c = errors[ok], standard_errors[ok], concentrations[ok]
+    fits = np.array([error_model(e[:, k], s[:, k], c[:, k]) for k in range(m)])
+    if runs is None:
+        return fits[:, 0], fits[:, 1], int(ok.sum())
+    sd = np.sqrt((fits[:, 0] * s) ** 2 + (fits[:, 1] * c) ** 2)
+    dof = min(effective_dof(e[:, k] / sd[:, k], np.asarray(runs)[ok]) for k in range(m))
+    return fits[:, 0], fits[:, 1], int(np.floor(dof))
+
+
+def leave_runs_out(estimator: Any, X: np.ndarray, Y: np.ndarray,
+                   runs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Each run's samples predicted by the model refitted without that run.
+
+    Leaving one sample out keeps the rest of its run in the model, so an error the whole run
+    shares (the day's gain, baseline, wavelength shift) partly cancels; leaving the run out
+    shows it as later samples from another day will (leave-one-group-out cross-validation).
+
+    Parameters
+    ----------
+    estimator : CLSRegressor
+        The fitted model; copies with the same parameters are refitted.
+    X : ndarray, shape (n, p)
+        The calibration spectra as the model was fitted to them.
+    Y : ndarray, shape (n, m)
+        Their concentrations.
+    runs : ndarray, shape (n,)
+        Run (day) label of each sample; at least 3 runs.
+
+    Returns
+    -------
+    errors, standard_errors : ndarray, shape (n, m)
+        ``ĉ − c`` and the white-noise SEs the refitted models report.
+
+    Raises
+    ------
+    DataError
+        Fewer than 3 runs, or a run without which the model cannot be fitted.
+    """
+    labels = np.asarray(runs)
+    names = np.unique(labels)
+    if names.size < 3:
+        raise DataError(f"the runs name {names.size} run(s); leaving runs out needs at least 3 "
+                        "(measure the calibration on 3 or more days, or give no runs)")
+    errors, ses = np.full(Y.shape, np.nan), np.full(Y.shape, np.nan)
+    for name in names:
+        held = labels == name
+        try:
+            model = clone(estimator).fit(X[~held], Y[~held])
+        except BandsolveError as exc:
+            raise DataError(f"without run {str(name)!r} the model cannot be fitted ({exc}); spread "
+                            "each analyte's standards over two or more runs") from exc
+        d = model.predict_detail(X[held])
+        errors[held], ses[held] = d.concentrations - Y[held], d.standard_errors
+    return errors, ses

@@ -15,6 +15,12 @@ likelihood θ on the non-negative orthant. A term is kept only when the likeliho
 of its absence rejects: θ_j = 0 lies on the boundary, so the reference distribution is the
 mixture ½χ²₀ + ½χ²₁ (Self & Liang 1987).
 
+Errors shared by the samples of one run (day) carry less information about a variance than
+independent ones: :func:`effective_dof` gives the degrees of freedom of a variance estimated
+from errors clustered in runs, ``(n − 1)/deff`` with Kish's design effect
+``deff = 1 + (n̄ − 1)ρ``, ρ the intra-class correlation of the standardized errors (one-way
+ANOVA moment estimator, truncated to [0, 1]), never fewer than ``runs − 1``.
+
 References
 ----------
 Carroll, R. J. & Ruppert, D. (1988). Transformation and Weighting in Regression. Chapman &
@@ -22,6 +28,9 @@ Hall, ch. 3.
 Self, S. G. & Liang, K.-Y. (1987). Asymptotic properties of maximum likelihood estimators and
 likelihood ratio tests under nonstandard conditions. J. Am. Stat. Assoc. 82, 605-610.
 Lawson, C. L. & Hanson, R. J. (1974). Solving Least Squares Problems. Prentice-Hall (NNLS).
+Kish, L. (1965). Survey Sampling. Wiley, New York (design effect of cluster samples, §5.4).
+Searle, S. R., Casella, G. & McCulloch, C. E. (1992). Variance Components. Wiley (one-way
+ANOVA estimators of the intra-class correlation).
 """
 
 from __future__ import annotations
@@ -30,7 +39,7 @@ import numpy as np
 
 from bandsolve._distributions import chi2_sf
 
-__all__ = ["boundary_lr_p", "fit_variance", "log_likelihood", "nnls2"]
+__all__ = ["boundary_lr_p", "effective_dof", "fit_variance", "log_likelihood", "nnls2"]
 
 
 def nnls2(A: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -101,3 +110,39 @@ def boundary_lr_p(d: np.ndarray, var_with: np.ndarray, var_without: np.ndarray) 
     reference ½χ²₀ + ½χ²₁, Self & Liang 1987); 1 when the term does not improve the fit."""
     lr = 2.0 * (log_likelihood(d, var_with) - log_likelihood(d, var_without))
     return 0.5 * chi2_sf(lr, 1) if lr > 0 else 1.0
+
+
+def effective_dof(standardized: np.ndarray, runs: np.ndarray | None) -> float:
+    """Degrees of freedom of a variance estimated from errors clustered in runs.
+
+    Parameters
+    ----------
+    standardized : ndarray, shape (n,)
+        Errors divided by their total standard deviation (unit variance when the model holds).
+    runs : ndarray, shape (n,) or None
+        Run (day) label of each error; None: every error is its own run.
+
+    Returns
+    -------
+    float
+        ``(n − 1)/deff`` (module docstring), between ``runs − 1`` and ``n − 1``.
+    """
+    z = np.asarray(standardized, dtype=float)
+    n = z.size
+    if runs is None:
+        return float(n - 1)
+    labels, index = np.unique(np.asarray(runs), return_inverse=True)
+    g = labels.size
+    if g == 1:
+        return 1.0  # one run: its errors say almost nothing about another day's
+    if g == n:
+        return float(n - 1)
+    sizes = np.bincount(index).astype(float)
+    means = np.bincount(index, weights=z) / sizes
+    msb = np.sum(sizes * (means - z.mean()) ** 2) / (g - 1)
+    msw = np.sum((z - means[index]) ** 2) / (n - g)
+    n0 = (n - np.sum(sizes**2) / n) / (g - 1)  # unbalanced runs (Searle et al. 1992, §3.6)
+    var_between = max(0.0, (msb - msw) / n0)
+    rho = min(1.0, var_between / (var_between + msw)) if var_between + msw > 0 else 0.0
+    deff = 1.0 + (n / g - 1.0) * rho
+    return float(min(n - 1, max(g - 1, (n - 1) / deff)))

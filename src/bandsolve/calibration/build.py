@@ -9,7 +9,7 @@ import warnings
 from collections.abc import Mapping
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -21,11 +21,15 @@ from bandsolve.calibration.model import Calibration
 from bandsolve.calibration.modelfile import sha256_file
 from bandsolve.calibration.records import EstimatorLimits, Limits
 from bandsolve.cls import CLSRegressor
-from bandsolve.concentrations import ConcentrationTable, align
+from bandsolve.cls_loo import cross_validated_error_scale, leave_runs_out
+from bandsolve.concentrations import ConcentrationTable, align, groups_in_order
 from bandsolve.errors import BandsolveError, BandsolveWarning, DataError, ModelError, where
 from bandsolve.merit.statistics import noise_from_blanks
 from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 __all__ = ["build_cls", "build_cls_from_absorptivities", "check_ceiling", "file_fingerprints",
            "library_versions", "outlier_record", "provenance_record", "training_arrays",
@@ -135,7 +139,8 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
               alpha: float = 0.01, ceiling: float = DEFAULT_CEILING_AU,
               leverage_factor: float = CLS_LEVERAGE_FACTOR,
               provenance: dict[str, Any] | None = None,
-              non_negative: bool = False) -> Calibration:
+              non_negative: bool = False,
+              runs: Mapping[str, object] | pd.Series | None = None) -> Calibration:
     """Build a CLS calibration from standards or calibration mixtures.
 
     Parameters
@@ -168,6 +173,13 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
         Extra provenance (training-file fingerprints, labels) stored with the model.
     non_negative : bool
         Predict concentrations constrained to be ≥ 0 (see :class:`~bandsolve.cls.CLSRegressor`).
+    runs : mapping or pandas.Series, optional
+        Run (day) of each calibration sample keyed by sample id, when the calibration was
+        measured on 3 or more days: the error model that widens the SE
+        (:func:`bandsolve.cls_loo.error_model`) is then fitted to leave-one-run-out errors
+        (:func:`bandsolve.cls_loo.leave_runs_out`) with the runs' effective degrees of
+        freedom, so that intervals include the day-to-day error the calibration itself
+        shows. Without runs, to leave-one-out errors.
     """
     if not (np.isfinite(leverage_factor) and leverage_factor > 0):
         raise ModelError(f"leverage factor must be a positive number, not {leverage_factor}")
@@ -181,13 +193,20 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
                 "alpha": alpha, "blank_subtracted": blank is not None,
                 "non_negative": non_negative}
     calibrated_range = np.column_stack([C.min(axis=0), C.max(axis=0)])
-    scale, relative, scale_dof = est.error_scale()
+    if runs is None:
+        scale, relative, scale_dof = est.error_scale()
+        scale_method = f"leave-one-out errors of {scale_dof} calibration samples"
+    else:
+        labels = groups_in_order(runs, list(spectra.sample_ids))
+        scale, relative, scale_dof = cross_validated_error_scale(
+            *leave_runs_out(est, Z, C, labels), C, labels)
+        scale_method = f"leave-one-run-out errors, {np.unique(labels).size} runs"
     limits = Limits(float(leverage_factor), (EstimatorLimits(
         alpha=alpha, residual=est.residual_limit,
         residual_method="Box scaled chi-squared fitted to leave-one-out calibration F ratios",
         leverage=est.leverage_limit(leverage_factor, calibrated_range),
         error_scale=tuple(scale.tolist()), relative_error=tuple(relative.tolist()),
-        error_scale_dof=scale_dof),))
+        error_scale_dof=scale_dof, error_scale_method=scale_method),))
     cal = Calibration(
         method="cls", analytes=table.analytes, axis=spectra.axis, axis_unit=spectra.axis_unit,
         preprocessor=pre, estimators=[est], calibrated_range=calibrated_range,

@@ -74,8 +74,11 @@ class EstimatorLimits:
         CLS: relative error SD γ per analyte (fraction of the concentration), added in
         quadrature to the SE as ``γ·|ĉ|`` (``CLSRegressor.error_scale``; empty: 0).
     error_scale_dof : int
-        Calibration samples behind ``error_scale`` and ``relative_error`` (degrees of
-        freedom of the t quantile where either departs from the white-noise model).
+        Degrees of freedom behind ``error_scale`` and ``relative_error`` (of the t quantile
+        where either departs from the white-noise model): the calibration samples, or the
+        runs' effective degrees of freedom when whole runs were left out.
+    error_scale_method : str
+        The errors the error model was fitted to, in words (empty in older files: leave-one-out).
     noise_floor : tuple of float
         PLS: variance per analyte of a prediction caused by the spectral noise alone,
         ``Σ_j b_j² σ²_j`` with σ²_j from second differences of the calibration residuals
@@ -98,7 +101,7 @@ class EstimatorLimits:
     error_scale: tuple[float, ...] = ()
     error_scale_dof: int = 0
     relative_error: tuple[float, ...] = ()
-    analyte_dof: tuple[float, ...] = ()
+    error_scale_method: str = ""
     noise_floor: tuple[float, ...] = ()
     noise_floor_dof: int = 0
 
@@ -112,7 +115,7 @@ class EstimatorLimits:
                 "reference_variance": list(self.reference_variance),
                 "error_scale": list(self.error_scale), "error_scale_dof": self.error_scale_dof,
                 "relative_error": list(self.relative_error),
-                "analyte_dof": list(self.analyte_dof),
+                "error_scale_method": self.error_scale_method,
                 "noise_floor": list(self.noise_floor), "noise_floor_dof": self.noise_floor_dof}
 
     @classmethod
@@ -129,6 +132,7 @@ class EstimatorLimits:
             error_scale=_floats(data.get("error_scale") or ()),
             error_scale_dof=int(data.get("error_scale_dof") or 0),
             relative_error=_floats(data.get("relative_error") or ()),
+            error_scale_method=str(data.get("error_scale_method") or ""),
             noise_floor=_floats(data.get("noise_floor") or ()),
             noise_floor_dof=int(data.get("noise_floor_dof") or 0)))
 

@@ -23,7 +23,7 @@ from bandsolve.cli._common import (
     read_with_groups,
 )
 from bandsolve.errors import BandsolveError
-from bandsolve.io import read_absorptivities, read_concentrations, read_spectra
+from bandsolve.io import read_absorptivities, read_spectra
 from bandsolve.labkey import load_lab_key
 from bandsolve.preprocess import parse_window
 from bandsolve.progress import progress_bar
@@ -82,6 +82,11 @@ def register(sub: argparse._SubParsersAction) -> None:
     c.add_argument("--non-negative", action="store_true",
                    help="predict concentrations constrained to be zero or more (analytes "
                         "that are present or absent); one held at zero has no standard error")
+    c.add_argument("--runs", metavar="COLUMN",
+                   help="the text column (or ~REGEX on the sample ids) naming the run or day "
+                        "each calibration sample was measured in (3 or more runs): the SE's "
+                        "error model is then fitted to leave-one-run-out errors, so intervals "
+                        "include the day-to-day error the calibration shows")
     s = p.add_argument_group("PLS options")
     s.add_argument("--components", default="auto", help="auto (by cross-validation) or N")
     s.add_argument("--max-components", type=int, default=15, metavar="N",
@@ -118,7 +123,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 #: Options that belong to one method only; giving them to another is a mistake to report.
 METHOD_OPTIONS = {
     "cls": ("intercept", "baseline", "absorptivity", "validated_range",
-            "non_negative"),
+            "non_negative", "runs"),
     "pls": ("components", "max_components", "cv", "select", "select_alpha", "mode", "scale",
             "savgol_window", "derivative", "offset", "q_limit"),
 }
@@ -138,9 +143,10 @@ def check_options(args: argparse.Namespace) -> None:
 
 
 def _build_cls(args: argparse.Namespace, spectra: SpectralSet, **common: Any) -> Calibration:
-    return build_cls(spectra, read_concentrations(args.concentrations), intercept=args.intercept,
-                     baseline=args.baseline, alpha=args.alpha,
-                     non_negative=args.non_negative, **common)
+    table, runs = read_with_groups(args.concentrations,
+                                   f"groups:{args.runs}" if args.runs else "")
+    return build_cls(spectra, table, intercept=args.intercept, baseline=args.baseline,
+                     alpha=args.alpha, non_negative=args.non_negative, runs=runs, **common)
 
 
 def _build_pls(args: argparse.Namespace, spectra: SpectralSet, **common: Any) -> Calibration:
@@ -172,6 +178,10 @@ def build_from_args(args: argparse.Namespace) -> Calibration:
         raise BandsolveError("--validated-range belongs to models from an absorptivity table "
                              "(--absorptivity); with standards the calibrated range is that of "
                              "their concentrations")
+    if args.absorptivity and args.runs:
+        raise BandsolveError("--runs names the runs of calibration standards; a model from an "
+                             "absorptivity table has none (validate it with bandsolve assess "
+                             "--out-model --runs instead)")
     if args.absorptivity:
         if args.path_length is None:
             raise BandsolveError("--absorptivity needs --path-length CM (the cell path length)")

@@ -59,9 +59,9 @@ from scipy import stats
 from bandsolve.calibration.interval import IntervalBasis
 from bandsolve.calibration.model import Calibration
 from bandsolve.errors import DataError
-from bandsolve.variance_function import fit_variance
+from bandsolve.variance_function import effective_dof, fit_variance
 
-__all__ = ["MIN_LEVELS", "model_error", "coverage_interval", "effective_dof",
+__all__ = ["MIN_LEVELS", "model_error", "coverage_interval",
            "validated_calibration", "VALIDATED_METHOD"]
 
 #: How the validated intervals are formed (stored in the model and shown with results).
@@ -109,42 +109,6 @@ def model_error(errors: np.ndarray, standard_errors: np.ndarray,
         c2 = np.zeros_like(c2)
     tau2, kappa2 = fit_variance(d, s2, np.column_stack([np.ones_like(d), c2]), 200, 1e-10)
     return float(tau2), float(kappa2)
-
-
-def effective_dof(standardized: np.ndarray, runs: np.ndarray | None) -> float:
-    """Degrees of freedom of a variance estimated from errors clustered in runs.
-
-    Parameters
-    ----------
-    standardized : ndarray, shape (n,)
-        Errors divided by their total standard deviation (unit variance when the model holds).
-    runs : ndarray, shape (n,) or None
-        Run (day) label of each error; None: every error is its own run.
-
-    Returns
-    -------
-    float
-        ``(n − 1)/deff`` (module docstring), between ``runs − 1`` and ``n − 1``.
-    """
-    z = np.asarray(standardized, dtype=float)
-    n = z.size
-    if runs is None:
-        return float(n - 1)
-    labels, index = np.unique(np.asarray(runs), return_inverse=True)
-    g = labels.size
-    if g == 1:
-        return 1.0  # one run: its errors say almost nothing about another day's
-    if g == n:
-        return float(n - 1)
-    sizes = np.bincount(index).astype(float)
-    means = np.bincount(index, weights=z) / sizes
-    msb = np.sum(sizes * (means - z.mean()) ** 2) / (g - 1)
-    msw = np.sum((z - means[index]) ** 2) / (n - g)
-    n0 = (n - np.sum(sizes**2) / n) / (g - 1)  # unbalanced runs (Searle et al. 1992, §3.6)
-    var_between = max(0.0, (msb - msw) / n0)
-    rho = min(1.0, var_between / (var_between + msw)) if var_between + msw > 0 else 0.0
-    deff = 1.0 + (n / g - 1.0) * rho
-    return float(min(n - 1, max(g - 1, (n - 1) / deff)))
 
 
 def coverage_interval(covered: int, total: int, alpha: float = 0.05) -> tuple[float, float]:

@@ -1,0 +1,166 @@
+"""CLS calibrated over several runs (days): the error model from leave-one-run-out errors.
+
+Expected values come from numpy (least-squares refits without each run; the CLS standard error
+of Haaland & Thomas 1988), the Kish (1965) design effect (tested in ``test_validated.py``) and
+coverage definitions on simulated day-to-day effects.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pytest
+
+from bandsolve.calibration.build import build_cls
+from bandsolve.cli import main
+from bandsolve.cls import CLSRegressor
+from bandsolve.cls_loo import cross_validated_error_scale, error_model, leave_runs_out
+from bandsolve.concentrations import ConcentrationTable
+from bandsolve.errors import DataError
+from bandsolve.io import write_concentrations_csv, write_spectra_csv
+from bandsolve.spectra import SpectralSet
+from bandsolve.variance_function import effective_dof
+from tests.conftest import gaussian_bands
+
+AXIS = np.linspace(400.0, 700.0, 121)
+K = gaussian_bands(AXIS, (480, 530, 590), (40, 45, 40))
+LABELS = ("A [mg/L]", "B [mg/L]", "C [mg/L]")
+Z = (AXIS - AXIS.mean()) / 150.0
+
+
+def _measure(rng, conc, day):
+    """Spectra of ``conc`` measured on a day with its own gain, offset and slope."""
+    gain, offset, slope = day
+    return (1 + gain) * conc @ K + offset + slope * Z + rng.normal(0, 0.002, (len(conc),
+                                                                           AXIS.size))
+
+
+def _calibration(rng, n_runs=5, per_run=5, effects=True):
+    conc = rng.uniform(0.1, 1.0, (n_runs * per_run, 3))
+    days = [(rng.normal(0, 0.02), rng.normal(0, 0.002), rng.normal(0, 0.002)) if effects
+            else (0.0, 0.0, 0.0) for _ in range(n_runs)]
+    run_of = np.repeat(np.arange(n_runs), per_run)
+    x = np.vstack([_measure(rng, conc[run_of == r], days[r]) for r in range(n_runs)])
+    ids = [f"c{r}-{i}" for i, r in enumerate(run_of)]
+    return (SpectralSet(AXIS, x, ids), ConcentrationTable(ids, LABELS, conc),
+            dict(zip(ids, run_of.astype(str), strict=True)))
+
+
+def test_leave_runs_out_matches_numpy_refits():
+    # Each run predicted by K̂ = lstsq(C, A) fitted without it, ĉ = lstsq(K̂ᵀ, a), and
+    # SE_k = √(s²[(K̂K̂ᵀ)⁻¹]_kk) with s² = ‖a − K̂ᵀĉ‖²/(p − m) (Haaland & Thomas 1988).
+    rng = np.random.default_rng(1)
+    spectra, table, runs = _calibration(rng)
+    X, C = spectra.values, np.asarray(table.values)
+    labels = np.array([runs[s] for s in spectra.sample_ids])
+    est = CLSRegressor().fit(X, C)
+    errors, ses = leave_runs_out(est, X, C, labels)
+    for r in np.unique(labels):
+        held = labels == r
+        k_hat = np.linalg.lstsq(C[~held], X[~held], rcond=None)[0]
+        c_hat = np.linalg.lstsq(k_hat.T, X[held].T, rcond=None)[0].T
+        s2 = np.sum((X[held] - c_hat @ k_hat) ** 2, axis=1) / (AXIS.size - 3)
+        se = np.sqrt(s2[:, None] * np.diag(np.linalg.inv(k_hat @ k_hat.T))[None, :])
+        np.testing.assert_allclose(errors[held], c_hat - C[held], rtol=1e-8, atol=1e-12)
+        np.testing.assert_allclose(ses[held], se, rtol=1e-8)
+
+
+def test_error_scale_from_runs_uses_the_runs_degrees_of_freedom():
+    # κ and γ per analyte are the error model of the leave-one-run-out errors; the degrees of
+    # freedom are the smallest Kish effective degrees of freedom over the analytes.
+    rng = np.random.default_rng(2)
+    spectra, table, runs = _calibration(rng)
+    X, C = spectra.values, np.asarray(table.values)
+    labels = np.array([runs[s] for s in spectra.sample_ids])
+    errors, ses = leave_runs_out(CLSRegressor().fit(X, C), X, C, labels)
+    kappa, gamma, dof = cross_validated_error_scale(errors, ses, C, labels)
+    dofs = []
+    for k in range(3):
+        kap, gam = error_model(errors[:, k], ses[:, k], C[:, k])
+        assert (kappa[k], gamma[k]) == pytest.approx((kap, gam))
+        sd = np.sqrt((kap * ses[:, k]) ** 2 + (gam * C[:, k]) ** 2)
+        dofs.append(effective_dof(errors[:, k] / sd, labels))
+    assert dof == int(np.floor(min(dofs))) and 4 <= dof <= 24
+    assert kappa.max() > 2  # the day effects are far above the white noise
+
+
+def test_runs_restore_coverage_of_day_to_day_effects():
+    # Calibration measured over 5 days (each its gain, SD 2 %; offset and slope, SD 0.002 AU),
+    # new samples on 10 other days. Leave-one-out keeps each sample's day-mates in the model,
+    # so part of the day effect cancels and intervals undercover; leaving whole days out shows
+    # it (coverage definition, pooled over 30 calibrations and 3 analytes).
+    rng = np.random.default_rng(3)
+    hits = {"loo": 0, "runs": 0}
+    total = 0
+    for _ in range(30):
+        spectra, table, runs = _calibration(rng)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            cals = {"loo": build_cls(spectra, table), "runs": build_cls(spectra, table,
+                                                                         runs=runs)}
+        conc = rng.uniform(0.1, 1.0, (100, 3))
+        days = [(rng.normal(0, 0.02), rng.normal(0, 0.002), rng.normal(0, 0.002))
+                for _ in range(10)]
+        x = np.vstack([_measure(rng, c, d) for c, d in zip(np.array_split(conc, 10), days,
+                                                            strict=True)])
+        new = SpectralSet(AXIS, x, [f"u{i}" for i in range(100)])
+        for name, cal in cals.items():
+            res = cal.predict(new)
+            hits[name] += sum(int(((res[f"{a} low95"] <= conc[:, k])
+                                   & (conc[:, k] <= res[f"{a} high95"])).sum())
+                              for k, a in enumerate(LABELS))
+        total += conc.size
+    assert hits["runs"] / total >= 0.88, hits["runs"] / total
+    assert hits["runs"] / total >= hits["loo"] / total + 0.03, hits
+
+
+def test_runs_do_not_widen_intervals_without_day_effects():
+    # Without day effects the leave-one-run-out errors are white noise: coverage stays near
+    # 95 % (at most 0.98 over 20 calibrations), as without runs.
+    rng = np.random.default_rng(4)
+    hit = total = 0
+    for _ in range(20):
+        spectra, table, runs = _calibration(rng, effects=False)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            cal = build_cls(spectra, table, runs=runs)
+        conc = rng.uniform(0.1, 1.0, (100, 3))
+        res = cal.predict(SpectralSet(AXIS, _measure(rng, conc, (0.0, 0.0, 0.0)),
+                                      [f"u{i}" for i in range(100)]))
+        hit += sum(int(((res[f"{a} low95"] <= conc[:, k]) & (conc[:, k] <= res[f"{a} high95"])
+                        ).sum()) for k, a in enumerate(LABELS))
+        total += conc.size
+    assert 0.92 <= hit / total <= 0.98, hit / total
+
+
+def test_too_few_runs_or_a_run_holding_an_analyte_is_refused():
+    rng = np.random.default_rng(5)
+    spectra, table, runs = _calibration(rng, n_runs=2, per_run=10)
+    with pytest.raises(DataError, match="at least 3"):
+        build_cls(spectra, table, runs=runs)
+    # Pure standards whose analyte C was measured on one day only: without that day, C has
+    # no standard left to estimate its spectrum from.
+    conc = np.vstack([np.eye(3)[k] * v for k in range(3) for v in (0.2, 0.5, 0.8, 1.0)])
+    ids = [f"s{i}" for i in range(12)]
+    x = conc @ K + rng.normal(0, 0.002, (12, AXIS.size))
+    days = {s: str(i % 4) if i < 8 else "9" for i, s in enumerate(ids)}
+    with pytest.raises(DataError, match="without run '9'"):
+        build_cls(SpectralSet(AXIS, x, ids), ConcentrationTable(ids, LABELS, conc), runs=days)
+
+
+def test_build_with_runs_from_the_command_line(tmp_path, capsys):
+    rng = np.random.default_rng(6)
+    spectra, table, _ = _calibration(rng)
+    write_spectra_csv(spectra, tmp_path / "s.csv")
+    write_concentrations_csv(table, tmp_path / "c.csv")
+    args = ["build", "--spectra", str(tmp_path / "s.csv"), "--concentrations",
+            str(tmp_path / "c.csv"), "--quiet"]
+    assert main([*args, "--method", "cls", "--runs", "~c(\\d)-", "--out",
+                 str(tmp_path / "m.bsm")]) == 0
+    capsys.readouterr()
+    assert main(["inspect", str(tmp_path / "m.bsm")]) == 0
+    assert "from leave-one-run-out errors, 5 runs" in capsys.readouterr().out.replace("\n    ", " ")
+    assert main([*args, "--method", "pls", "--runs", "~c(\\d)-", "--out",
+                 str(tmp_path / "p.bsm")]) == 2
+    assert "--runs applies only to --method cls" in capsys.readouterr().err
