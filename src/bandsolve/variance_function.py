@@ -11,7 +11,10 @@ The squared errors ``d_i = e_i²`` have mean ``v_i`` and, for Gaussian errors, v
 ``1/v²``, recomputing ``v`` from the fit and repeating, is the variance-function estimator of
 Carroll & Ruppert (1988, ch. 3); run to convergence it solves the Gaussian likelihood
 equations ``Σ(d_i − v_i)x_ij/v_i² = 0`` (Fisher scoring), so the result is the maximum-
-likelihood θ on the non-negative orthant. A term is kept only when the likelihood-ratio test
+likelihood θ on the non-negative orthant. The plain iteration can overshoot and swing
+between two points, so each step is halved until the likelihood does not fall, the usual
+safeguard of Fisher scoring for variance components (e.g. Jennrich & Sampson 1976). A term
+is kept only when the likelihood-ratio test
 of its absence rejects: θ_j = 0 lies on the boundary, so the reference distribution is the
 mixture ½χ²₀ + ½χ²₁ (Self & Liang 1987).
 
@@ -28,6 +31,8 @@ Hall, ch. 3.
 Self, S. G. & Liang, K.-Y. (1987). Asymptotic properties of maximum likelihood estimators and
 likelihood ratio tests under nonstandard conditions. J. Am. Stat. Assoc. 82, 605-610.
 Lawson, C. L. & Hanson, R. J. (1974). Solving Least Squares Problems. Prentice-Hall (NNLS).
+Jennrich, R. I. & Sampson, P. F. (1976). Newton-Raphson and related algorithms for maximum
+likelihood variance component estimation. Technometrics 18, 11-17.
 Kish, L. (1965). Survey Sampling. Wiley, New York (design effect of cluster samples, §5.4).
 Searle, S. R., Casella, G. & McCulloch, C. E. (1992). Variance Components. Wiley (one-way
 ANOVA estimators of the intra-class correlation).
@@ -88,12 +93,20 @@ def fit_variance(d: np.ndarray, offset: np.ndarray, columns: np.ndarray,
     """
     var = offset.copy()
     theta = np.zeros(columns.shape[1])
+    ll = log_likelihood(d, var)
     for _ in range(iterations):
         w = 1.0 / var
         new = nnls2(columns * w[:, None], (d - offset) * w)
-        var = offset + columns @ new
+        for _ in range(60):  # halve the step until the likelihood does not fall
+            new_ll = log_likelihood(d, offset + columns @ new)
+            if new_ll >= ll:
+                break
+            new = 0.5 * (new + theta)
+        else:
+            break  # no ascent left in this direction: θ is the maximum
         done = rtol > 0 and np.all(np.abs(new - theta) <= rtol * np.maximum(np.abs(new), 1e-300))
-        theta = new
+        theta, ll = new, new_ll
+        var = offset + columns @ theta
         if done:
             break
     return theta

@@ -9,7 +9,9 @@ Run on demand (not collected by pytest)::
 For each model kind it builds many independent calibrations on simulated overlapping Gaussian
 bands (151 points, 400–700 nm, white noise σ = 0.003 AU) and measures, on 200 new in-range
 mixtures per calibration (``cls-standards-M``: M analytes, 5 pure standards each;
-``cls-standards-Mx2``: each of those standards prepared and measured twice):
+``cls-standards-Mx2``: each of those standards prepared and measured twice; ``-5days``: the
+calibration measured over 5 days, CLS built with ``runs``, PLS with leave-one-day-out
+cross-validation):
 
 * coverage of the 95 % intervals, pooled and by third of each analyte's range (low, middle,
   top), and the share of calibrations in which some analyte covers less than 0.90;
@@ -102,8 +104,21 @@ def design(kind: str, rng, m: int) -> np.ndarray:
     return rng.uniform(0.1, 1.0, (25, m))
 
 
-def build(kind: str, rng, m: int, day: dict[str, float]):
-    """One calibration of ``kind`` measured on ``day``."""
+def build(kind: str, rng, m: int, effects: bool):
+    """One calibration of ``kind``, measured on one day (``-5days``: over 5 days, the day of
+    each sample given to the build as its run)."""
+    day = new_day(rng, effects)
+    if kind.endswith("-5days"):
+        C = design(kind, rng, m)
+        run_of = np.arange(len(C)) % 5
+        days = [day] + [new_day(rng, effects) for _ in range(4)]
+        A = np.vstack([measure(rng, C[run_of == r], days[r]) for r in range(5)])
+        C = np.vstack([C[run_of == r] for r in range(5)])
+        S, T = spectra(A, "c"), table(C, "c")
+        runs = dict(zip(S.sample_ids, np.sort(run_of).astype(str), strict=True))
+        if kind.startswith("pls"):  # leave-one-day-out cross-validation
+            return build_pls(S, T, mode="pls2", cv="groups", groups=runs)
+        return build_cls(S, T, runs=runs)
     if kind == "cls-absorptivities":
         eps = SpectralSet(AXIS, (1 + day["gain"]) * pure(m, day["shift"]),
                           [f"a{k}" for k in range(m)], quantity="absorptivity")
@@ -143,7 +158,7 @@ def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng,
     pooled, bad, flags, detect, after, bad_after, over = [], 0, [], [], [], 0, []
     thirds = np.zeros((2, 2, 3))  # covered and counted, before and after validation, by third
     for _ in range(n_cal):
-        cal = build(kind, rng, m, new_day(rng, effects))
+        cal = build(kind, rng, m, effects)
         days = [new_day(rng, effects) for _ in range(10)]
         low, high = np.asarray(cal.calibrated_range).T  # in-range: inside every analyte's range
         Ct = rng.uniform(low, np.minimum(high, 1.0), (N_NEW, m))
@@ -191,6 +206,7 @@ def run_kind(kind: str, m: int, n_cal: int, effects: bool, rng,
 KINDS = {
     "cls-mixtures": 3, "cls-standards-2": 2, "cls-standards-3": 3, "cls-standards-4": 4,
     "cls-standards-6": 6, "cls-standards-3x2": 3, "cls-standards-6x2": 6,
+    "cls-mixtures-5days": 3, "cls-standards-3-5days": 3, "pls2-5days": 3,
     "cls-absorptivities": 3, "pls1": 3, "pls2": 3,
     "pls1+1": 3, "pls2+1": 3,
 }
