@@ -35,6 +35,7 @@ from bandsolve.preprocess import SpectralPreprocessor
 from bandsolve.progress import ProgressCallback, step
 from bandsolve.score_diagnostics import leverage_limit, t2_limit
 from bandsolve.spectra import DEFAULT_CEILING_AU, SpectralSet
+from bandsolve.variance_function import effective_dof, fit_variance
 
 __all__ = ["NO_Q_LEFT", "build_pls", "fit_pls_with_limits"]
 
@@ -113,7 +114,8 @@ def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str =
         t2=float(t2_limit(a, n, alpha=limit_alpha, kind="new")),
         leverage=float(leverage_limit(a, n, factor=leverage_factor)),
         msec=tuple(msec.tolist()), rmsecv=tuple(cv_result.rmsecv[a - 1].tolist()),
-        **_noise_floor(model, Z))
+        **_noise_floor(model, Z),
+        **(_run_error_model(cv_result, a, Y, groups) if cv == "groups" else {}))
     evidence = dict(chosen.evidence)
     evidence.update(rule=select if components == "auto" else f"fixed ({select} suggests "
                     f"{chosen.n_components})", alpha=alpha, n_components=a, cv=str(cv))
@@ -121,6 +123,40 @@ def fit_pls_with_limits(Z: np.ndarray, Y: np.ndarray, *, components: int | str =
     studentized = (cv_result.errors[a - 1] * np.sqrt(1.0 - model.leverage(Z))[:, None]
                    / np.where(sigma > 0, sigma, 1.0))
     return model, limits, ComponentChoice.from_dict(evidence), studentized
+
+
+def _run_error_model(cv_result: CVResult, a: int, Y: np.ndarray,
+                     groups: np.ndarray) -> dict[str, Any]:
+    """Error model of a PLS calibration cross-validated by leaving whole runs (days) out.
+
+    Errors a run shares (the day's gain, baseline, wavelength shift) show in the
+    leave-one-run-out errors, but two ways the plain SE ``√((1 + h)σ²_e)`` would misread
+    them: a gain error grows with the level, so a single σ²_e averaged over the levels is too
+    small at the top of the range; and errors shared within runs carry about one degree of
+    freedom per run, not one per sample. So, per analyte, the squared errors are fitted by
+    maximum likelihood (:func:`bandsolve.variance_function.fit_variance`) to
+    ``Var(e_i) = κ²(1 + h_i)σ²_e + γ²c_i²`` (κ, γ ≥ 0; h_i the held-out leverage, σ²_e as in
+    :func:`bandsolve.calibration.detail.pls_detail`; the two-component error model of Rocke &
+    Lorenzato 1995), and the t quantile takes the smallest Kish effective degrees of freedom
+    over the analytes (:func:`bandsolve.variance_function.effective_dof`).
+    """
+    n = len(groups)
+    e = cv_result.errors[a - 1]
+    grow = 1.0 + cv_result.leverage(a - 1)
+    s2e = cv_result.rmsecv[a - 1] ** 2 / (1.0 + (a + 1) / n)
+    c = Y.reshape(n, -1)
+    kappa, gamma, dofs = [], [], []
+    for k in range(e.shape[1]):
+        base = grow * s2e[k]
+        cols = np.column_stack([base, c[:, k] ** 2])
+        theta = fit_variance(e[:, k] ** 2, 1e-9 * base, cols, 200, 1e-10)
+        kappa.append(float(np.sqrt(theta[0])))
+        gamma.append(float(np.sqrt(theta[1])))
+        sd = np.sqrt(cols @ theta + 1e-9 * base)
+        dofs.append(effective_dof(e[:, k] / sd, groups))
+    return {"error_scale": tuple(kappa), "relative_error": tuple(gamma),
+            "error_scale_dof": int(np.floor(min(dofs))),
+            "error_scale_method": f"leave-one-run-out errors, {np.unique(groups).size} runs"}
 
 
 def _noise_floor(model: PLSRegressor, Z: np.ndarray) -> dict[str, Any]:

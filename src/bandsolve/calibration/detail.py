@@ -118,7 +118,10 @@ def pls_detail(models: Sequence[PLSRegressor], limits: Sequence[EstimatorLimits]
     limits are the largest over the per-analyte models for PLS1. The Q ratio is
     ``[Q/(1 + h)]/limit`` for limits set that way (``Q_PER_LEVERAGE``): a new residual carries
     the loadings' estimation error in proportion to ``1 + h``. ``scans`` holds each
-    model's scan products ``(H, ss)`` (:meth:`PLSRegressor.scan_parts`).
+    model's scan products ``(H, ss)`` (:meth:`PLSRegressor.scan_parts`). A model
+    cross-validated by leaving whole runs out carries an error model fitted to those errors
+    (``lim.error_scale`` κ, ``lim.relative_error`` γ; ``build_pls._run_error_model``): the
+    error variance is then ``κ²(1 + h)σ²_e + γ²ĉ²`` on the runs' degrees of freedom.
 
     References
     ----------
@@ -144,11 +147,15 @@ def pls_detail(models: Sequence[PLSRegressor], limits: Sequence[EstimatorLimits]
         floor = (np.asarray(lim.noise_floor, dtype=float) if lim.noise_floor
                  else np.zeros_like(error_var))
         grow = (1 + d.leverage)[:, None]
-        var = np.maximum(grow * error_var[None, :] - s2_ref[None, :], grow * floor[None, :])
+        kappa = np.asarray(lim.error_scale or np.ones_like(error_var), dtype=float)
+        gamma = np.asarray(lim.relative_error or np.zeros_like(error_var), dtype=float)
+        var = np.maximum(grow * kappa**2 * error_var - s2_ref + (gamma * d.concentrations) ** 2,
+                         grow * floor)
         concs.append(d.concentrations)
         ses.append(np.sqrt(np.maximum(var, 0.0)))
+        cv_dof = lim.error_scale_dof if lim.error_scale else d.dof
         dofs.extend(np.where((floor > 0) & (floor >= error_var - s2_ref), lim.noise_floor_dof,
-                             d.dof).tolist())
+                             cv_dof).tolist())
         q = d.q / (1.0 + d.leverage) if lim.residual_method == Q_PER_LEVERAGE else d.q
         q_ratio = np.maximum(q_ratio, q / lim.residual)
         t2_ratio = np.maximum(t2_ratio, d.t2 / lim.t2)
