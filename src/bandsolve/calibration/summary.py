@@ -54,7 +54,7 @@ def _limits(limits: Limits) -> list[str]:
         lines += textwrap.wrap(text, WIDTH, initial_indent="  ", subsequent_indent="    ")
         if m.error_scale:
             gamma = m.relative_error or (0.0,) * len(m.error_scale)
-            text = ("SE error model: white-noise SE × " + ", ".join(
+            text = ("SE error model: SE × " + ", ".join(
                 f"{k:.3g}" for k in m.error_scale) + ", plus " + ", ".join(
                 f"{100 * g:.2g} %" for g in gamma) + " of the result (per analyte; from "
                 f"{m.error_scale_method or 'leave-one-out errors'}, {m.error_scale_dof} "
