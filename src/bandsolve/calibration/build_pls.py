@@ -138,7 +138,11 @@ def _run_error_model(cv_result: CVResult, a: int, Y: np.ndarray,
     ``Var(e_i) = κ²(1 + h_i)σ²_e + γ²c_i²`` (κ, γ ≥ 0; h_i the held-out leverage, σ²_e as in
     :func:`bandsolve.calibration.detail.pls_detail`; the two-component error model of Rocke &
     Lorenzato 1995), and the t quantile takes the smallest Kish effective degrees of freedom
-    over the analytes (:func:`bandsolve.variance_function.effective_dof`).
+    over the analytes (:func:`bandsolve.variance_function.effective_dof`). Unlike the CLS
+    error model (:func:`bandsolve.cls_loo.error_model`), whose base is the white-noise SE and
+    so has a scale ≥ 1 and a relative part kept only when a test finds it, the base here is
+    the cross-validated error itself: the two parts share it, as in a validation
+    (:func:`bandsolve.evaluate.validated.model_error`), and the scale may fall below 1.
     """
     n = len(groups)
     e = cv_result.errors[a - 1]
@@ -148,11 +152,12 @@ def _run_error_model(cv_result: CVResult, a: int, Y: np.ndarray,
     kappa, gamma, dofs = [], [], []
     for k in range(e.shape[1]):
         base = grow * s2e[k]
+        tiny = 1e-9 * base  # keeps every variance positive while the fit starts
         cols = np.column_stack([base, c[:, k] ** 2])
-        theta = fit_variance(e[:, k] ** 2, 1e-9 * base, cols, 200, 1e-10)
+        theta = fit_variance(e[:, k] ** 2, tiny, cols, 200, 1e-10)
         kappa.append(float(np.sqrt(theta[0])))
         gamma.append(float(np.sqrt(theta[1])))
-        sd = np.sqrt(cols @ theta + 1e-9 * base)
+        sd = np.sqrt(tiny + cols @ theta)
         dofs.append(effective_dof(e[:, k] / sd, groups))
     return {"error_scale": tuple(kappa), "relative_error": tuple(gamma),
             "error_scale_dof": int(np.floor(min(dofs))),
