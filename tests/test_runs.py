@@ -242,3 +242,24 @@ def test_pls_by_runs_covers_the_top_of_the_range():
         top_total += int((conc > 0.7).sum())
     assert hit / total >= 0.86, hit / total
     assert top_hit / top_total >= 0.84, top_hit / top_total
+
+
+def test_runs_error_model_of_a_non_negative_model_is_that_of_the_unconstrained_one():
+    # A non-negative solve holds absent analytes at zero without an SE; the error model from
+    # the runs is fitted to the unconstrained predictions, as the leave-one-out one is, so it
+    # is the same with or without the constraint (and not silently empty).
+    rng = np.random.default_rng(9)
+    conc = np.vstack([np.eye(3)[k] * v for k in range(3) for v in (0.2, 0.4, 0.6, 0.8, 1.0)])
+    run_of = np.tile(np.arange(5), 3)  # each day one level of each analyte
+    days = [(rng.normal(0, 0.02), rng.normal(0, 0.002), rng.normal(0, 0.002)) for _ in range(5)]
+    x = np.vstack([_measure(rng, conc[i:i + 1], days[r]) for i, r in enumerate(run_of)])
+    ids = [f"s{i}" for i in range(15)]
+    spectra, table = SpectralSet(AXIS, x, ids), ConcentrationTable(ids, LABELS, conc)
+    runs = dict(zip(ids, run_of.astype(str), strict=True))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        plain = build_cls(spectra, table, runs=runs).limits.models[0]
+        held = build_cls(spectra, table, runs=runs, non_negative=True).limits.models[0]
+    assert held.error_scale == pytest.approx(plain.error_scale)
+    assert held.relative_error == pytest.approx(plain.relative_error)
+    assert held.error_scale_dof == plain.error_scale_dof > 0

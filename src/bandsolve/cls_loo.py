@@ -225,7 +225,8 @@ def leave_runs_out(estimator: Any, X: np.ndarray, Y: np.ndarray,
     Parameters
     ----------
     estimator : CLSRegressor
-        The fitted model; copies with the same parameters are refitted.
+        The fitted model; copies with the same parameters (but without the non-negativity
+        constraint) are refitted.
     X : ndarray, shape (n, p)
         The calibration spectra as the model was fitted to them.
     Y : ndarray, shape (n, m)
@@ -252,7 +253,9 @@ def leave_runs_out(estimator: Any, X: np.ndarray, Y: np.ndarray,
     for name in names:
         held = labels == name
         try:
-            model = clone(estimator).fit(X[~held], Y[~held])
+            # unconstrained, as the closed-form leave-one-out: a concentration held at zero
+            # by a non-negative solve has no SE, and the error model needs every one
+            model = clone(estimator).set_params(non_negative=False).fit(X[~held], Y[~held])
         except BandsolveError as exc:
             raise DataError(f"without run {str(name)!r} the model cannot be fitted ({exc}); spread "
                             "each analyte's standards over two or more runs") from exc
