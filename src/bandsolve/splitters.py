@@ -74,6 +74,11 @@ class _Folds(_Splitter):
             raise ValueError(f"Cannot have number of splits n_splits={self.n_splits} greater "
                              f"than the number of samples: n_samples={n}.")
 
+    def split(self, X, y=None, groups=None) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+        """Yield ``(train, test)`` index arrays, both sorted, after checking K against n."""
+        self._check(len(X))
+        yield from super().split(X, y, groups)
+
     def get_n_splits(self, X=None, y=None, groups=None) -> int:
         """Number of folds."""
         return self.n_splits
@@ -91,7 +96,6 @@ class ContiguousFolds(_Folds):
     """
 
     def _tests(self, n: int, groups) -> Iterator[np.ndarray]:
-        self._check(n)
         yield from np.array_split(np.arange(n), self.n_splits)
 
 
@@ -105,7 +109,6 @@ class InterleavedFolds(_Folds):
     """
 
     def _tests(self, n: int, groups) -> Iterator[np.ndarray]:
-        self._check(n)
         for k in range(self.n_splits):
             yield np.arange(k, n, self.n_splits)
 
@@ -134,7 +137,6 @@ class ShuffledFolds(_Folds):
         self.random_state = random_state
 
     def _tests(self, n: int, groups) -> Iterator[np.ndarray]:
-        self._check(n)
         rng = np.random.RandomState(self.random_state)  # the stream scikit-learn's folds use
         for _ in range(self.n_repeats):
             order = np.arange(n)
