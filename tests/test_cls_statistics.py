@@ -190,3 +190,46 @@ def test_two_column_nnls_matches_scipy(A, b):
     assert np.all(ours >= 0)
     scale = 1.0 + np.linalg.norm(b) ** 2 + np.linalg.norm(A) ** 2
     assert np.linalg.norm(A @ ours - b) ** 2 <= np.linalg.norm(A @ ref - b) ** 2 + 1e-9 * scale
+
+
+def _pure_standards_with_gain(rng, m=4, gain=0.01):
+    """5 pure standards per analyte, each measurement with its own gain (SD ``gain``)."""
+    C = np.vstack([np.eye(m)[k] * v for k in range(m) for v in (0.2, 0.4, 0.6, 0.8, 1.0)])
+    A = (1 + rng.normal(0, gain, (len(C), 1))) * (C @ _bands(m)) + rng.normal(
+        0, 0.003, (len(C), AXIS.size))
+    ids = [f"s{i}" for i in range(len(C))]
+    return SpectralSet(AXIS, A, ids), ConcentrationTable(ids, [f"a{k}" for k in range(m)], C)
+
+
+def test_relative_error_takes_the_degrees_of_freedom_of_the_standards_that_hold_it():
+    # γ² is estimated from the standards that contain the analyte (5 of 20 pure standards:
+    # the others carry no information about it), so the t quantile takes that count, not 20
+    # (a variance from k values has about k degrees of freedom; Student 1908).
+    rng = np.random.default_rng(31)
+    for _ in range(20):
+        cal = build_cls(*_pure_standards_with_gain(rng, gain=0.03))
+        lim = cal.limits.models[0]
+        if any(g > 0 for g in lim.relative_error):
+            assert lim.error_scale_dof == 5
+            return
+    pytest.fail("a 3 % gain scatter never showed as a relative error")
+
+
+def test_pure_standards_with_a_gain_scatter_are_covered():
+    # Each measurement its own gain (SD 1 %), standards and new mixtures alike: the relative
+    # error the standards show, on the degrees of freedom behind it, covers new mixtures
+    # (coverage definition, 40 calibrations × 60 mixtures; with 20 degrees of freedom it was
+    # 0.915).
+    rng = np.random.default_rng(32)
+    hit = total = 0
+    for _ in range(40):
+        cal = build_cls(*_pure_standards_with_gain(rng))
+        conc = rng.uniform(0.1, 1.0, (60, 4))
+        A = (1 + rng.normal(0, 0.01, (60, 1))) * (conc @ _bands(4)) + rng.normal(
+            0, 0.003, (60, AXIS.size))
+        res = cal.predict(SpectralSet(AXIS, A, [f"u{i}" for i in range(60)]))
+        for k in range(4):
+            hit += int(((res[f"a{k} low95"] <= conc[:, k]) & (conc[:, k] <= res[f"a{k} high95"])
+                        ).sum())
+        total += conc.size
+    assert hit / total >= 0.93, hit / total

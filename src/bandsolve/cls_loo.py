@@ -192,7 +192,9 @@ def cross_validated_error_scale(errors: np.ndarray, standard_errors: np.ndarray,
         Run (day) of each sample when the errors come from leaving whole runs out: errors
         shared within a run then count as fewer degrees of freedom
         (:func:`bandsolve.variance_function.effective_dof`, the smallest over analytes,
-        rounded down). Without runs, the number of samples.
+        rounded down). Without runs, the number of samples; where a relative error γ is
+        kept, no more than the samples that hold that analyte, the only ones its γ² rests on
+        (5 of 20 pure standards).
 
     Returns
     -------
@@ -208,7 +210,9 @@ def cross_validated_error_scale(errors: np.ndarray, standard_errors: np.ndarray,
     e, s, c = errors[ok], standard_errors[ok], concentrations[ok]
     fits = np.array([error_model(e[:, k], s[:, k], c[:, k]) for k in range(m)])
     if runs is None:
-        return fits[:, 0], fits[:, 1], int(ok.sum())
+        # γ rests only on the samples that hold the analyte (5 of 20 pure standards)
+        informative = [int(np.count_nonzero(c[:, k])) for k in range(m) if fits[k, 1] > 0]
+        return fits[:, 0], fits[:, 1], int(min([ok.sum(), *informative]))
     sd = np.sqrt((fits[:, 0] * s) ** 2 + (fits[:, 1] * c) ** 2)
     dof = min(effective_dof(e[:, k] / sd[:, k], np.asarray(runs)[ok]) for k in range(m))
     return fits[:, 0], fits[:, 1], int(np.floor(dof))

@@ -75,8 +75,9 @@ class EstimatorLimits:
         quadrature to the SE as ``γ·|ĉ|`` (``CLSRegressor.error_scale``; empty: 0).
     error_scale_dof : int
         Degrees of freedom behind ``error_scale`` and ``relative_error`` (of the t quantile
-        where either departs from the white-noise model): the calibration samples, or the
-        runs' effective degrees of freedom when whole runs were left out.
+        where either departs from the white-noise model): the calibration samples (no more
+        than those holding an analyte whose γ is kept), or the runs' effective degrees of
+        freedom when whole runs were left out.
     error_scale_method : str
         The errors the error model was fitted to, in words (empty in older files: leave-one-out).
     noise_floor : tuple of float
