@@ -153,11 +153,12 @@ def pls_detail(models: Sequence[PLSRegressor], limits: Sequence[EstimatorLimits]
                          grow * floor)
         concs.append(d.concentrations)
         ses.append(np.sqrt(np.maximum(var, 0.0)))
-        if lim.error_scale:  # an error model from leaving runs out: its degrees of freedom
-            dofs.extend([lim.error_scale_dof] * error_var.size)
-        else:
-            dofs.extend(np.where((floor > 0) & (floor >= error_var - s2_ref),
-                                 lim.noise_floor_dof, d.dof).tolist())
+        # The noise floor's degrees of freedom where the floor exceeds the whole
+        # cross-validated error; else those of that error (of its error model, when runs were
+        # left out: how κ and γ share it does not change which of the two is larger).
+        cv_dof = lim.error_scale_dof if lim.error_scale else d.dof
+        dofs.extend(np.where((floor > 0) & (floor >= error_var - s2_ref), lim.noise_floor_dof,
+                             cv_dof).tolist())
         q = d.q / (1.0 + d.leverage) if lim.residual_method == Q_PER_LEVERAGE else d.q
         q_ratio = np.maximum(q_ratio, q / lim.residual)
         t2_ratio = np.maximum(t2_ratio, d.t2 / lim.t2)
