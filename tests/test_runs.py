@@ -164,6 +164,11 @@ def test_build_with_runs_from_the_command_line(tmp_path, capsys):
     assert main([*args, "--method", "cls", "--runs", "~c(\\d)-", "--out",
                  str(tmp_path / "m.bsm")]) == 0
     capsys.readouterr()
+    # Every result row says what its interval rests on, the runs included.
+    assert main(["predict", str(tmp_path / "m.bsm"), str(tmp_path / "s.csv"), "--out",
+                 str(tmp_path / "r.csv"), "--quiet"]) == 0
+    assert "calibration only (leave-one-run-out errors, 5 runs)" in open(tmp_path / "r.csv").read()
+    capsys.readouterr()
     assert main(["inspect", str(tmp_path / "m.bsm")]) == 0
     assert "from leave-one-run-out errors, 5 runs" in capsys.readouterr().out.replace("\n    ", " ")
     assert main([*args, "--method", "pls", "--runs", "~c(\\d)-", "--out",

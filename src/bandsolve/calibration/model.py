@@ -154,8 +154,14 @@ class Calibration:
 
     @property
     def interval_basis(self) -> str:
-        """What the intervals rest on, in words (the ``interval_basis`` column of results)."""
-        return "calibration only" if self.interval is None else self.interval.label
+        """What the intervals rest on, in words (the ``interval_basis`` column of results):
+        ``calibration only``, with the runs when the SE's error model came from leaving runs
+        of the calibration out, or the validation's label."""
+        if self.interval is not None:
+            return self.interval.label
+        runs = [m.error_scale_method for m in self.limits.models
+                if m.error_scale_method.startswith("leave-one-run-out")]
+        return "calibration only" + (f" ({runs[0]})" if runs else "")
 
     @property
     def used_mask(self) -> np.ndarray:
