@@ -171,6 +171,9 @@ def test_build_with_runs_from_the_command_line(tmp_path, capsys):
     capsys.readouterr()
     assert main(["inspect", str(tmp_path / "m.bsm")]) == 0
     assert "from leave-one-run-out errors, 5 runs" in capsys.readouterr().out.replace("\n    ", " ")
+    assert main(["report", str(tmp_path / "m.bsm"), "--out", str(tmp_path / "m.html"),
+                 "--quiet"]) == 0
+    assert "from leave-one-run-out errors, 5 runs" in open(tmp_path / "m.html").read()
     assert main([*args, "--method", "pls", "--runs", "~c(\\d)-", "--out",
                  str(tmp_path / "p.bsm")]) == 2
     assert "--runs applies only to --method cls" in capsys.readouterr().err

@@ -106,6 +106,16 @@ class EstimatorLimits:
     noise_floor: tuple[float, ...] = ()
     noise_floor_dof: int = 0
 
+    def error_model_text(self) -> str:
+        """The SE's error model in words, per analyte ("" when it has none)."""
+        if not self.error_scale:
+            return ""
+        gamma = self.relative_error or (0.0,) * len(self.error_scale)
+        return ("SE × " + ", ".join(f"{k:.3g}" for k in self.error_scale) + ", plus "
+                + ", ".join(f"{100 * g:.2g} %" for g in gamma) + " of the result (per analyte; "
+                f"from {self.error_scale_method or 'leave-one-out errors'}, "
+                f"{self.error_scale_dof} degrees of freedom)")
+
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary (inverse of :meth:`from_dict`)."""
         return {"alpha": self.alpha, "residual": self.residual,

@@ -53,13 +53,8 @@ def _limits(limits: Limits) -> list[str]:
                 f"{_number(m.t2)}; leverage {_number(m.leverage)}; α = {_number(m.alpha)}")
         lines += textwrap.wrap(text, WIDTH, initial_indent="  ", subsequent_indent="    ")
         if m.error_scale:
-            gamma = m.relative_error or (0.0,) * len(m.error_scale)
-            text = ("SE error model: SE × " + ", ".join(
-                f"{k:.3g}" for k in m.error_scale) + ", plus " + ", ".join(
-                f"{100 * g:.2g} %" for g in gamma) + " of the result (per analyte; from "
-                f"{m.error_scale_method or 'leave-one-out errors'}, {m.error_scale_dof} "
-                "degrees of freedom)")
-            lines += textwrap.wrap(text, WIDTH, initial_indent="  ", subsequent_indent="    ")
+            lines += textwrap.wrap(f"SE error model: {m.error_model_text()}", WIDTH,
+                                   initial_indent="  ", subsequent_indent="    ")
     return lines
 
 

@@ -200,8 +200,11 @@ def model_section(cal: Calibration) -> str:
 
 def _limits_html(cal: Calibration) -> str:
     frame = cal.limits.to_frame()
+    models = cal.limits.models
     return "<h3>Diagnostic limits</h3>" + frame_table(frame) + kv_table([
-        ("leverage limit factor", cal.limits.leverage_factor)])
+        ("leverage limit factor", cal.limits.leverage_factor),
+        *((f"SE error model{f' (model {i + 1})' if len(models) > 1 else ''}",
+           m.error_model_text()) for i, m in enumerate(models) if m.error_scale)])
 
 
 def data_section(cal: Calibration, n_given: int | None) -> str:
