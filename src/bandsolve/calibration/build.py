@@ -195,18 +195,18 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
     calibrated_range = np.column_stack([C.min(axis=0), C.max(axis=0)])
     if runs is None:
         scale, relative, scale_dof = est.error_scale()
-        scale_method = f"leave-one-out errors of {scale_dof} calibration samples"
+        n_runs = 0
     else:
         labels = groups_in_order(runs, list(spectra.sample_ids))
         scale, relative, scale_dof = cross_validated_error_scale(
             *leave_runs_out(est, Z, C, labels), C, labels)
-        scale_method = f"leave-one-run-out errors, {np.unique(labels).size} runs"
+        n_runs = int(np.unique(labels).size)
     limits = Limits(float(leverage_factor), (EstimatorLimits(
         alpha=alpha, residual=est.residual_limit,
         residual_method="Box scaled chi-squared fitted to leave-one-out calibration F ratios",
         leverage=est.leverage_limit(leverage_factor, calibrated_range),
         error_scale=tuple(scale.tolist()), relative_error=tuple(relative.tolist()),
-        error_scale_dof=scale_dof, error_scale_method=scale_method),))
+        error_scale_dof=scale_dof, error_scale_runs=n_runs),))
     cal = Calibration(
         method="cls", analytes=table.analytes, axis=spectra.axis, axis_unit=spectra.axis_unit,
         preprocessor=pre, estimators=[est], calibrated_range=calibrated_range,

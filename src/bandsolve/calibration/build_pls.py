@@ -161,7 +161,7 @@ def _run_error_model(cv_result: CVResult, a: int, Y: np.ndarray,
         dofs.append(effective_dof(e[:, k] / sd, groups))
     return {"error_scale": tuple(kappa), "relative_error": tuple(gamma),
             "error_scale_dof": int(np.floor(min(dofs))),
-            "error_scale_method": f"leave-one-run-out errors, {np.unique(groups).size} runs"}
+            "error_scale_runs": int(np.unique(groups).size)}
 
 
 def _noise_floor(model: PLSRegressor, Z: np.ndarray) -> dict[str, Any]:

@@ -159,8 +159,7 @@ class Calibration:
         of the calibration out, or the validation's label."""
         if self.interval is not None:
             return self.interval.label
-        runs = [m.error_scale_method for m in self.limits.models
-                if m.error_scale_method.startswith("leave-one-run-out")]
+        runs = [m.error_scale_method for m in self.limits.models if m.error_scale_runs]
         return "calibration only" + (f" ({runs[0]})" if runs else "")
 
     @property

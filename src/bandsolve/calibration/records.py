@@ -78,8 +78,9 @@ class EstimatorLimits:
         where either departs from the white-noise model): the calibration samples (no more
         than those holding an analyte whose γ is kept), or the runs' effective degrees of
         freedom when whole runs were left out.
-    error_scale_method : str
-        The errors the error model was fitted to, in words (empty in older files: leave-one-out).
+    error_scale_runs : int
+        Runs left out one at a time for the errors the error model was fitted to; 0:
+        leave-one-out (and in files written before schema 6).
     noise_floor : tuple of float
         PLS: variance per analyte of a prediction caused by the spectral noise alone,
         ``Σ_j b_j² σ²_j`` with σ²_j from second differences of the calibration residuals
@@ -102,9 +103,15 @@ class EstimatorLimits:
     error_scale: tuple[float, ...] = ()
     error_scale_dof: int = 0
     relative_error: tuple[float, ...] = ()
-    error_scale_method: str = ""
+    error_scale_runs: int = 0
     noise_floor: tuple[float, ...] = ()
     noise_floor_dof: int = 0
+
+    @property
+    def error_scale_method(self) -> str:
+        """The errors the error model was fitted to, in words."""
+        return (f"leave-one-run-out errors, {self.error_scale_runs} runs"
+                if self.error_scale_runs else "leave-one-out errors")
 
     def error_model_text(self) -> str:
         """The SE's error model in words, per analyte ("" when it has none)."""
@@ -113,7 +120,7 @@ class EstimatorLimits:
         gamma = self.relative_error or (0.0,) * len(self.error_scale)
         return ("SE × " + ", ".join(f"{k:.3g}" for k in self.error_scale) + ", plus "
                 + ", ".join(f"{100 * g:.2g} %" for g in gamma) + " of the result (per analyte; "
-                f"from {self.error_scale_method or 'leave-one-out errors'}, "
+                f"from {self.error_scale_method}, "
                 f"{self.error_scale_dof} degrees of freedom)")
 
     def to_dict(self) -> dict[str, Any]:
@@ -126,7 +133,7 @@ class EstimatorLimits:
                 "reference_variance": list(self.reference_variance),
                 "error_scale": list(self.error_scale), "error_scale_dof": self.error_scale_dof,
                 "relative_error": list(self.relative_error),
-                "error_scale_method": self.error_scale_method,
+                "error_scale_runs": self.error_scale_runs,
                 "noise_floor": list(self.noise_floor), "noise_floor_dof": self.noise_floor_dof}
 
     @classmethod
@@ -143,7 +150,7 @@ class EstimatorLimits:
             error_scale=_floats(data.get("error_scale") or ()),
             error_scale_dof=int(data.get("error_scale_dof") or 0),
             relative_error=_floats(data.get("relative_error") or ()),
-            error_scale_method=str(data.get("error_scale_method") or ""),
+            error_scale_runs=int(data.get("error_scale_runs") or 0),
             noise_floor=_floats(data.get("noise_floor") or ()),
             noise_floor_dof=int(data.get("noise_floor_dof") or 0)))
 
