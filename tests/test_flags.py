@@ -68,3 +68,69 @@ def test_flag_bits_follow_the_flag_codes():
     got = flag_bits(["", "residual", "t2;above_range:dye A;negative:dye B", "no_se"])
     np.testing.assert_array_equal(got, [0, 1, 2 + 16 + 64, 128])
     assert got.dtype == np.uint16 and max(FLAG_BITS.values()) < 2**16
+
+
+def _absent_analyte_model(three_bands, seed):
+    import numpy as np
+
+    from bandsolve.calibration.build import build_cls
+    from bandsolve.concentrations import ConcentrationTable
+    from bandsolve.spectra import SpectralSet
+
+    axis, K = three_bands
+    rng = np.random.default_rng(seed)
+    C = rng.uniform(0.0, 1.0, (8, 3))
+    ids = [f"s{i}" for i in range(8)]
+    model = build_cls(SpectralSet(axis, C @ K + rng.normal(0, 2e-3, (8, axis.size)), ids),
+                      ConcentrationTable(ids, ("a", "b", "c"), C))
+    return model, rng
+
+
+def test_concentration_flags_are_one_sided_t_tests_at_the_model_alpha(three_bands):
+    # negative when ĉ + t_{1−α,ν}·SE < 0, with ν the interval's degrees of freedom; the
+    # reference quantile is scipy.stats.t (Student 1908), not the code's own.
+    import numpy as np
+    from scipy import stats
+
+    from bandsolve.flags import split_flags
+    from bandsolve.spectra import SpectralSet
+
+    model, rng = _absent_analyte_model(three_bands, 3)
+    axis, K = three_bands
+    C = np.column_stack([np.zeros(400), rng.uniform(0.2, 0.8, (400, 2))])  # a is absent
+    spectra = SpectralSet(axis, C @ K + rng.normal(0, 2e-3, (400, axis.size)),
+                          [f"u{i}" for i in range(400)])
+    res = model.predict(spectra)
+    detail = model.detail(model.prepare(spectra)[0])
+    assert model.flag_alpha == 0.01
+    threshold = -stats.t.ppf(1 - 0.01, detail.dof[0]) * res["a SE"].to_numpy()
+    flagged = np.array(["negative:a" in split_flags(t) for t in res["flag_codes"]])
+    assert np.array_equal(flagged, res["a"].to_numpy() < threshold)
+    assert flagged.any() or (res["a"].to_numpy() < 0).sum() > 100  # the test has teeth
+
+
+def test_negative_flag_false_alarm_rate_on_absent_analytes_is_at_most_alpha(three_bands):
+    # An absent analyte is flagged negative in at most a share α of clean samples: pooled over
+    # 40 calibrations (the share varies with each calibration's K̂ error), below the upper end
+    # of the exact binomial 99.9 % range of α = 0.01 (Clopper & Pearson 1934). The former
+    # fixed 2 SE margin fails it on the same results: its one-sided level is P(T_ν < −2),
+    # 0.023 for large ν and 0.051 for ν = 5 (scipy.stats.t).
+    import numpy as np
+    from scipy import stats
+
+    from bandsolve.flags import split_flags
+    from bandsolve.spectra import SpectralSet
+
+    hits = two_se = total = 0
+    for seed in range(40):
+        model, rng = _absent_analyte_model(three_bands, 100 + seed)
+        axis, K = three_bands
+        C = np.column_stack([np.zeros(200), rng.uniform(0.2, 0.8, (200, 2))])
+        res = model.predict(SpectralSet(axis, C @ K + rng.normal(0, 2e-3, (200, axis.size)),
+                                        [f"u{i}" for i in range(200)]))
+        hits += sum("negative:a" in split_flags(t) for t in res["flag_codes"])
+        two_se += int((res["a"] < -2 * res["a SE"]).sum())
+        total += len(res)
+    high = stats.binom.ppf(0.9995, total, 0.01) / total
+    assert hits / total <= high, hits / total
+    assert two_se / total > high  # the test tells the rules apart

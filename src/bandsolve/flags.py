@@ -43,15 +43,17 @@ FLAG_CODES: dict[str, str] = {
     ),
     "above_range": (
         "The concentration is above the highest calibrated value for that analyte by more "
-        "than 2 standard errors (extrapolation)."
+        "than the one-sided t quantile at the model's α times the standard error "
+        "(extrapolation)."
     ),
     "below_range": (
         "The concentration is below the lowest calibrated value (when that is above zero) by "
-        "more than 2 standard errors."
+        "more than the one-sided t quantile at the model's α times the standard error."
     ),
     "negative": (
-        "The concentration is significantly below zero (more than 2 standard errors), "
-        "which no real sample can have: check the blank, baseline or model."
+        "The concentration is significantly below zero (by more than the one-sided t "
+        "quantile at the model's α times the standard error), which no real sample can "
+        "have: check the blank, baseline or model."
     ),
     "no_se": (
         "No standard error could be estimated (no residual degrees of freedom, or a "

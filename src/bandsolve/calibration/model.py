@@ -22,6 +22,7 @@ from bandsolve.calibration.interval import IntervalBasis
 from bandsolve.calibration.methods import CalibrationMethod, method_named
 from bandsolve.calibration.records import Limits, Selection
 from bandsolve.calibration.results import (
+    FLAG_ALPHA,
     INTERVAL_LEVEL,
     TEXT_COLUMNS,
     result_columns,
@@ -163,6 +164,13 @@ class Calibration:
         return "calibration only" + (f" ({runs[0]})" if runs else "")
 
     @property
+    def flag_alpha(self) -> float:
+        """Level of the concentration flags: the model's diagnostic α (of its first estimator
+        that set limits; :data:`~bandsolve.calibration.results.FLAG_ALPHA` when none did)."""
+        alphas = [m.alpha for m in self.limits.models if np.isfinite(m.alpha)]
+        return float(alphas[0]) if alphas else FLAG_ALPHA
+
+    @property
     def used_mask(self) -> np.ndarray:
         """Points of :attr:`axis` the model uses, bool of shape (p,)."""
         return self.preprocessor.used_mask
@@ -301,7 +309,8 @@ class Calibration:
         detail = model.detail(X)
         return results_table(spectra, detail, model.analytes, model.calibrated_range,
                              model.interval_basis, detail.max_absorbance > model.ceiling,
-                             notes + ([scaled] if scaled else []) + detail.notes)
+                             notes + ([scaled] if scaled else []) + detail.notes,
+                             self.flag_alpha)
 
     def detail(self, X: np.ndarray) -> Detail:
         """Per-sample estimates and diagnostics for absorbance on the model grid (n × p).

@@ -17,10 +17,14 @@ from bandsolve.calibration.detail import Detail
 from bandsolve.flags import FLAG_COLUMN, join_flags
 from bandsolve.spectra import SpectralSet
 
-__all__ = ["INTERVAL_LEVEL", "TEXT_COLUMNS", "result_columns", "results_table"]
+__all__ = ["FLAG_ALPHA", "INTERVAL_LEVEL", "TEXT_COLUMNS", "result_columns", "results_table"]
 
 #: Coverage of the prediction intervals in every results table.
 INTERVAL_LEVEL = 0.95
+
+#: Level of the concentration flags (``negative``, ``above_range``, ``below_range``) of a model
+#: that set no diagnostic limit, and so has no α of its own (the build default).
+FLAG_ALPHA = 0.01
 
 #: Columns of a results table that hold text; every other column is a number.
 TEXT_COLUMNS = ("sample", "source", FLAG_COLUMN, "interval_basis", "notes")
@@ -49,7 +53,8 @@ def result_columns(analyte: str) -> tuple[str, str, str, str]:
 
 def results_table(spectra: SpectralSet, d: Detail, analytes: Sequence[str],
                   calibrated_range: np.ndarray, interval_basis: str,
-                  over_ceiling: np.ndarray, notes: list[str]) -> pd.DataFrame:
+                  over_ceiling: np.ndarray, notes: list[str],
+                  alpha: float = FLAG_ALPHA) -> pd.DataFrame:
     """One results row per spectrum (see the module docstring).
 
     Parameters
@@ -68,10 +73,18 @@ def results_table(spectra: SpectralSet, d: Detail, analytes: Sequence[str],
         Spectra above the photometric ceiling.
     notes : list of str
         Model-level remarks for the ``notes`` column.
+    alpha : float
+        Level of the concentration flags, the model's diagnostic α: ``negative`` when
+        ``ĉ + t_{1−α,ν}·SE < 0``, ``above_range``/``below_range`` alike against the calibrated
+        range, with ν the interval's degrees of freedom. Each is a one-sided test at ``α`` of
+        "the true concentration is inside", so an absent analyte is flagged ``negative`` in a
+        share ``α`` of clean samples, as a residual or T² limit is exceeded (a fixed 2 SE would
+        raise 2.3–5 % depending on ν).
     """
     n = d.concentrations.shape[0]
     t = t_quantile(0.5 + INTERVAL_LEVEL / 2, np.maximum(d.dof, 1))
     t = np.where(d.dof > 0, t, np.nan)
+    t_flag = np.where(d.dof > 0, t_quantile(1.0 - alpha, np.maximum(d.dof, 1)), 0.0)
     cols: dict[str, Any] = {"sample": list(spectra.sample_ids),
                             "source": [spectra.source or ""] * n}
     checks = [(d.residual_ratio > 1, "residual"),
@@ -85,7 +98,7 @@ def results_table(spectra: SpectralSet, d: Detail, analytes: Sequence[str],
         cols[name_lo], cols[name_hi] = c - t[k] * se, c + t[k] * se
         lo, hi = calibrated_range[k]
         finite = np.isfinite(se)
-        margin = 2.0 * np.where(finite, se, 0.0)  # significantly outside, not by noise
+        margin = t_flag[k] * np.where(finite, se, 0.0)  # significantly outside, not by noise
         checks += [(c - margin > hi, f"above_range:{label}"),
                    ((c + margin < lo) & (lo > 0), f"below_range:{label}"),
                    (c < -margin, f"negative:{label}")]
