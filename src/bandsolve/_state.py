@@ -24,6 +24,8 @@ class RecordedState:
     #: means "as in STATE_FIELDS"; when you rename an attribute, write the old mapping here
     #: (the test that loads the kept 0.1.0 model files fails until you do).
     SCHEMA1_ATTRIBUTES: ClassVar[dict[str, str]] = {}
+    #: Field name → value for fields that files written before the field existed lack.
+    OPTIONAL_STATE: ClassVar[dict[str, Any]] = {}
 
     def state_record(self) -> dict[str, Any]:
         """The fitted state as ``{field name: value}`` (arrays, numbers, strings, None)."""
@@ -36,6 +38,7 @@ class RecordedState:
     @classmethod
     def from_state_record(cls, params: dict[str, Any], record: dict[str, Any]) -> Any:
         """A fitted estimator from its parameters and :meth:`state_record` output."""
+        record = {**cls.OPTIONAL_STATE, **record}
         missing = sorted(set(cls.STATE_FIELDS) - set(record))
         unknown = sorted(set(record) - set(cls.STATE_FIELDS))
         if missing or unknown:

@@ -9,13 +9,14 @@ is resolved by ``ĉ = (K̂K̂ᵀ)⁻¹K̂a`` (Haaland & Thomas 1988).
 from __future__ import annotations
 
 import copy
-from typing import ClassVar
+from typing import Any, ClassVar
 
 import numpy as np
 
 from bandsolve._distributions import chi2_quantile, f_quantile
 from bandsolve._estimator import Estimator, Regressor, check_fitted, validated
 from bandsolve._state import RecordedState
+from bandsolve.band_test import band_basis, band_limit
 from bandsolve.cls_leverage import CLSLeverage
 from bandsolve.cls_loo import LeaveOneOut, cls_leave_one_out, cross_validated_error_scale
 from bandsolve.cls_predict import CLSPredicting, CLSPrediction
@@ -75,6 +76,12 @@ class CLSRegressor(CLSPredicting, CLSLeverage, RecordedState, Regressor, Estimat
         ``F_{1−α}(p − m − q, ν_blank)``; NaN when there is nothing to compare with.
     cv_f_ratios_ : ndarray, shape (n,)
         Leave-one-out F ratios of the calibration samples that set the limit.
+    band_basis_ : ndarray, shape (p, d) or None
+        Band-shaped directions orthogonal to the augmented K̂ for the second residual test
+        (:mod:`bandsolve.band_test`); None when the model has none (built from absorptivities,
+        too few points or standards). With it, each of the two residual limits is set at α/2.
+    band_limit_ : float
+        Limit of the band ratio ``‖Uᵀr‖²/d / [s²_cal(1 + h_c)]`` (NaN without a band test).
 
     Notes
     -----
@@ -124,7 +131,10 @@ class CLSRegressor(CLSPredicting, CLSLeverage, RecordedState, Regressor, Estimat
         "loo_f_ratios": "cv_f_ratios_", "n_baseline_terms": "n_baseline_terms_",
         "augmented_spectra": "augmented_spectra_", "augmented_gram_inv": "aug_gram_inv_",
         "n_features_in": "n_features_in_", "single_output": "_single_output",
+        "band_basis": "band_basis_", "band_limit": "band_limit_",
     }
+    #: Fields absent from files written before the band test (schema ≤ 6): no band test.
+    OPTIONAL_STATE: ClassVar[dict[str, Any]] = {"band_basis": None, "band_limit": float("nan")}
 
     def __init__(self, fit_intercept: bool = False, baseline: str = "none",
                  wavelengths=None, alpha: float = 0.01, non_negative: bool = False):
@@ -165,8 +175,28 @@ class CLSRegressor(CLSPredicting, CLSLeverage, RecordedState, Regressor, Estimat
         self._loo = self._leave_one_out(X, C, coef)
         self._training_y = Y
         self.cv_f_ratios_ = self._f_ratios(self._loo)
-        self.residual_limit_ = _residual_limit(self.cv_f_ratios_, self.alpha)
+        self._set_band_test(C, resid)
+        both = self.band_basis_ is not None  # two residual tests: α/2 each (Bonferroni)
+        self.residual_limit_ = _residual_limit(self.cv_f_ratios_,
+                                               self.alpha / 2 if both else self.alpha)
         return self
+
+    def _set_band_test(self, C: np.ndarray, resid: np.ndarray) -> None:
+        """Basis and limit of the band-shaped residual test (:mod:`bandsolve.band_test`)
+        from the design C (n × m′) and the fitted calibration residuals (n × p)."""
+        self.band_basis_, self.band_limit_ = None, float("nan")
+        U = band_basis(self._axis(resid.shape[1]), self.augmented_spectra_)
+        d = U.shape[1]
+        if d == 0 or not np.isfinite(self.s2_cal_):
+            return
+        h = np.einsum("ij,jk,ik->i", C, self.gram_inv_, C)
+        values = np.full(len(C), np.nan)
+        keep = 1.0 - h > 1e-9  # a sample that alone carries an analyte has no residual
+        values[keep] = ((resid[keep] @ U) ** 2).sum(axis=1) / d / (
+            self.s2_cal_ * (1.0 - h[keep]))
+        limit = band_limit(values, self.alpha / 2, d)
+        if np.isfinite(limit):
+            self.band_basis_, self.band_limit_ = U, limit
 
     @classmethod
     def from_pure_spectra(cls, pure_spectra, *, baseline: str = "none", wavelengths=None,
@@ -206,6 +236,7 @@ class CLSRegressor(CLSPredicting, CLSLeverage, RecordedState, Regressor, Estimat
         model.n_calibration_ = 0
         model._set_spectra(K)
         model.cv_f_ratios_ = np.array([])
+        model.band_basis_, model.band_limit_ = None, float("nan")
         model.s2_cal_ = float("nan")
         model.residual_limit_ = float("nan")
         dof = K.shape[1] - model.augmented_spectra_.shape[0]
@@ -238,12 +269,17 @@ class CLSRegressor(CLSPredicting, CLSLeverage, RecordedState, Regressor, Estimat
             )
         self.aug_gram_inv_ = _inverse(aug @ aug.T)
 
-    def _baseline_rows(self, p: int) -> np.ndarray:
-        q = BASELINE_TERMS[self.baseline]
+    def _axis(self, p: int) -> np.ndarray:
+        """The model's points: ``wavelengths``, or 0 … p − 1 without them."""
         x = np.arange(p, dtype=float) if self.wavelengths is None else np.asarray(
             self.wavelengths, dtype=float)
         if x.shape != (p,):
             raise ModelError(f"wavelengths has {x.size} points but the spectra have {p}")
+        return x
+
+    def _baseline_rows(self, p: int) -> np.ndarray:
+        q = BASELINE_TERMS[self.baseline]
+        x = self._axis(p)
         span = (x.max() - x.min()) / 2 or 1.0
         z = (x - (x.max() + x.min()) / 2) / span
         return np.vstack([z**k for k in range(q)]) if q else np.empty((0, p))
@@ -312,6 +348,15 @@ class CLSRegressor(CLSPredicting, CLSLeverage, RecordedState, Regressor, Estimat
         """Limit of the residual F ratio (NaN when it could not be set)."""
         check_fitted(self, "pure_spectra_")
         return float(self.residual_limit_)
+
+    def residual_method(self) -> str:
+        """How the residual limits were set, in words (summary, report, inspect)."""
+        text = "Box scaled chi-squared fitted to leave-one-out calibration F ratios"
+        if self.band_basis_ is None:
+            return text
+        return (f"{text}, at α/2; with the band-shaped part of the residual "
+                f"({self.band_basis_.shape[1]} smooth directions) against its own limit "
+                f"{self.band_limit_:.3g}, at α/2 (bandsolve.band_test)")
 
     @property
     def calibration_variance(self) -> float:

@@ -37,7 +37,9 @@ class CLSPrediction:
         ``F_u / limit`` with ``F_u = [rᵀr/(p − m − q)] / [s²_cal(1 + h_c)]``: the sample's
         residual variance relative to what calibration noise plus the error of K̂ explain,
         divided by the limit; above 1 means an unmodelled absorber or baseline change.
-        NaN when the model has nothing to compare residuals with.
+        With a band test (``band_basis_``) the larger of that and the band ratio over its
+        limit (:mod:`bandsolve.band_test`). NaN when the model has nothing to compare
+        residuals with.
     leverage : ndarray, shape (n,)
         ``h_c = c̃ᵀ(CᵀC)⁻¹c̃``, the concentration leverage (0 for a model built from
         absorptivities).
@@ -81,23 +83,30 @@ class CLSPredicting:
         return self.detail_from_scan(H, ss)
 
     def scan_parts(self) -> ScanParts:
-        """The product matrix ``[Kᵀ, bg]`` and unit weights that :meth:`detail_from_scan` needs."""
+        """The product matrix ``[Kᵀ, bg, U]`` (U the band basis, when the model has one) and
+        unit weights that :meth:`detail_from_scan` needs."""
         K, bg = self.augmented_spectra_, self.background_
-        return ScanParts(np.column_stack([K.T, bg]), np.ones(K.shape[1]))
+        U = self._band_basis()
+        return ScanParts(np.ascontiguousarray(np.column_stack([K.T, bg, U])), np.ones(K.shape[1]))
+
+    def _band_basis(self) -> np.ndarray:
+        U = getattr(self, "band_basis_", None)
+        return np.empty((self.augmented_spectra_.shape[1], 0)) if U is None else U
 
     def detail_from_scan(self, H: np.ndarray, ss: np.ndarray) -> CLSPrediction:
-        """Estimates from ``H = X @ [Kᵀ, bg]`` and ``ss = Σx²`` of each spectrum.
+        """Estimates from ``H = X @ [Kᵀ, bg, U]`` and ``ss = Σx²`` of each spectrum.
 
         With ``h = K(x − bg)`` and ``ĉ = (KKᵀ)⁻¹h``, the residual is
         ``‖x − bg − Kᵀĉ‖² = ‖x − bg‖² − ĉᵀh``, so no spectrum is read twice. In float64 this
         is exact to ~1e-10 relative for absorbance data (the cancellation factor
-        ``‖x‖²/rᵀr`` is ~1e5).
+        ``‖x‖²/rᵀr`` is ~1e5). U is orthogonal to K, so ``Uᵀr = Uᵀ(x − bg)``.
         """
         m, q = self.pure_spectra_.shape[0], self.n_baseline_terms_
         K, bg = self.augmented_spectra_, self.background_
-        h = H[:, :-1] - bg @ K.T
+        k = K.shape[0]
+        h = H[:, :k] - bg @ K.T
         coef, fit_ss, at_bound = self._solve(h)
-        total = ss - 2.0 * H[:, -1] + bg @ bg
+        total = ss - 2.0 * H[:, k] + bg @ bg
         rss = np.maximum(total + fit_ss, 0.0)
         n = len(H)
         dof = K.shape[1] - m - q
@@ -108,6 +117,10 @@ class CLSPredicting:
             s2 = rss / dof
             se = np.sqrt(s2[:, None] * np.diag(self.aug_gram_inv_)[:m])
             ratio = (s2 / (self.s2_cal_ * (1.0 + lev))) / self.residual_limit_
+            U = self._band_basis()
+            if U.shape[1]:
+                band = ((H[:, k + 1:] - bg @ U) ** 2).sum(axis=1) / U.shape[1]
+                ratio = np.fmax(ratio, band / (self.s2_cal_ * (1.0 + lev)) / self.band_limit_)
         else:
             se = np.full_like(conc, np.nan)
             ratio = np.full(n, np.nan)

@@ -203,7 +203,7 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
         n_runs = int(np.unique(labels).size)
     limits = Limits(float(leverage_factor), (EstimatorLimits(
         alpha=alpha, residual=est.residual_limit,
-        residual_method="Box scaled chi-squared fitted to leave-one-out calibration F ratios",
+        residual_method=est.residual_method(),
         leverage=est.leverage_limit(leverage_factor, calibrated_range),
         error_scale=tuple(scale.tolist()), relative_error=tuple(relative.tolist()),
         error_scale_dof=scale_dof, error_scale_runs=n_runs),))
@@ -329,3 +329,4 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
         provenance=provenance_record(provenance, 0),
     )
     return cal if blank_x is None else with_merit(cal, None, None, blank_x)
+

@@ -64,7 +64,9 @@ __all__ = ["FIELDS", "RECORDS", "SCHEMA_VERSION", "save_model", "load_model", "s
 #: schema 4 would compare with Q itself, so such readers must refuse the file.
 #: 6: a validated ``interval`` may carry a proportional model error (``relative_error``),
 #: which a reader of schema 5 would drop, giving too narrow intervals at high levels.
-SCHEMA_VERSION = 6
+#: 7: a CLS model may carry a band-shaped residual test (``band_basis``, ``band_limit``) with
+#: its omnibus residual limit at α/2; a reader of schema 6 would drop the band test.
+SCHEMA_VERSION = 7
 FORMAT_NAME = "bandsolve-model"
 
 #: Plain fields of :class:`Calibration` (numbers, strings, arrays, dictionaries of those).
