@@ -356,7 +356,7 @@ class CLSRegressor(CLSPredicting, CLSLeverage, RecordedState, Regressor, Estimat
             return text
         return (f"{text}, at α/2; with the band-shaped part of the residual "
                 f"({self.band_basis_.shape[1]} smooth directions) against its own limit "
-                f"{self.band_limit_:.3g}, at α/2 (bandsolve.band_test)")
+                f"{self.band_limit_:.3g}, at α/2")
 
     @property
     def calibration_variance(self) -> float:
