@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -59,3 +60,21 @@ def two_analyte_model(axis: np.ndarray, pure: np.ndarray, rng: np.random.Generat
     cal = SpectralSet(axis=axis, values=conc @ pure + 1e-3 * rng.standard_normal((n, axis.size)),
                       sample_ids=[f"c{i}" for i in range(n)])
     return build_cls(cal, ConcentrationTable(cal.sample_ids, ("A [mg/L]", "B [mg/L]"), conc))
+
+
+def left_out_standards_covered(spectra, table) -> np.ndarray:
+    """Whether each left-out standard's 95 % interval holds its stated concentration (one
+    value per standard and analyte)."""
+    inside = []
+    for sid in table.sample_ids:
+        keep = [s for s in table.sample_ids if s != sid]
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # the reduced set's own build warnings
+            from bandsolve.calibration.build import build_cls
+
+            cal = build_cls(spectra.subset(keep), table.subset(keep))
+        res = cal.predict(spectra.subset([sid]))
+        truth = np.asarray(table.subset([sid]).values, dtype=float)[0]
+        inside += [res[f"{a} low95"][0] <= truth[k] <= res[f"{a} high95"][0]
+                   for k, a in enumerate(table.analytes)]
+    return np.array(inside)

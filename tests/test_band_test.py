@@ -42,7 +42,9 @@ def test_basis_is_orthonormal_smooth_and_orthogonal_to_the_model_spectra(m, seed
 
 
 def test_too_short_an_axis_has_no_band_test():
-    assert band_basis(AXIS[:30], _pure(2)[:, :30]).shape == (30, 0)
+    p = 2 * BAND_TERMS + 1  # fewer than k + 2·terms points with k = 2 spectra
+    assert band_basis(AXIS[:p], _pure(2)[:, :p]).shape == (p, 0)
+    assert band_basis(AXIS[:p + 1], _pure(2)[:, :p + 1]).shape[1] >= 3
 
 
 def _fit(m: int, rng) -> tuple[CLSRegressor, np.ndarray]:

@@ -20,6 +20,12 @@ __all__ = ["ScanParts", "scan"]
 #: Rows per slice: 256 × 300 float64 is 0.6 MB, inside a core's L2 cache.
 SLICE_ROWS = 256
 
+#: Widest product computed in one matrix multiplication; a wider one is computed in groups of
+#: this many columns on the slice already in cache. Measured here (OpenBLAS, one thread,
+#: 2·10⁵ × 300): 12 columns cost 1.3× the 4-column pass, 16 columns 2.5×, two groups of 8
+#: 1.4×; CLS prediction with its band test (15 columns) about 20 % faster in groups.
+WIDEST_PRODUCT = 12
+
 
 @dataclass(frozen=True)
 class ScanParts:
@@ -60,7 +66,12 @@ def scan(X: np.ndarray, parts: ScanParts, mask: np.ndarray | None = None
         Points over which the maximum is taken (all when None).
     """
     n = X.shape[0]
-    H = np.empty((n, parts.matrix.shape[1]))
+    width = parts.matrix.shape[1]
+    H = np.empty((n, width))
+    step = min(width, WIDEST_PRODUCT)
+    groups = [(a, min(a + step, width), np.ascontiguousarray(parts.matrix[:, a:a + step]))
+              for a in range(0, width, step)]
+    part = np.empty((SLICE_ROWS, step))
     ss = np.empty((n, *parts.weights.shape[1:]))
     top = np.empty(n)
     several = parts.weights.ndim == 2
@@ -68,7 +79,13 @@ def scan(X: np.ndarray, parts: ScanParts, mask: np.ndarray | None = None
     where = None if mask is None or mask.all() else mask
     for i in range(0, n, SLICE_ROWS):
         block = X[i:i + SLICE_ROWS]
-        np.matmul(block, parts.matrix, out=H[i:i + SLICE_ROWS])
+        if len(groups) == 1:
+            np.matmul(block, parts.matrix, out=H[i:i + SLICE_ROWS])
+        else:
+            for a, b, sub in groups:
+                out = part[:len(block), :b - a]
+                np.matmul(block, sub, out=out)
+                H[i:i + SLICE_ROWS, a:b] = out
         if several:
             np.matmul(np.square(block), parts.weights, out=ss[i:i + SLICE_ROWS])
         elif unit:
