@@ -271,3 +271,82 @@ def test_runs_error_model_of_a_non_negative_model_is_that_of_the_unconstrained_o
     assert held.error_scale == pytest.approx(plain.error_scale)
     assert held.relative_error == pytest.approx(plain.relative_error)
     assert held.error_scale_dof == plain.error_scale_dof > 0
+
+
+def _validated_after_runs(rng, runs_model=True):
+    """A CLS calibration over 5 days (with or without its runs), validated on 30 mixtures
+    from 5 further days (the days named)."""
+    from bandsolve.evaluate.assess import assess, validated_model
+
+    spectra, table, runs = _calibration(rng)
+    conc, _ = _new_days(rng, 30)
+    days = [(rng.normal(0, 0.02), rng.normal(0, 0.002), rng.normal(0, 0.002)) for _ in range(5)]
+    x = np.vstack([_measure(rng, c, d) for c, d in zip(np.array_split(conc, 5), days,
+                                                        strict=True)])
+    ids = [f"v{i}" for i in range(30)]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        cal = build_cls(spectra, table, runs=runs if runs_model else None)
+        result = assess(cal, SpectralSet(AXIS, x, ids), ConcentrationTable(ids, LABELS, conc))
+        val = validated_model(cal, result, [], {v: str(i // 6) for i, v in enumerate(ids)})
+    return cal, val, result
+
+
+def test_validation_of_a_runs_model_is_pooled_with_its_own_error_model():
+    # Two independent variance estimates of the same day-to-day error, with ν_c and ν_v
+    # degrees of freedom, pooled as in a pooled variance (Satterthwaite 1946; the pooled
+    # two-sample t): SE² = s² + ν_v/(ν_c + ν_v)·(τ̂² + κ̂²ĉ²) and t on ν_c + ν_v. Reference:
+    # τ̂, κ̂ re-estimated with scipy's Nelder–Mead on the normal likelihood of the validation
+    # errors, ν_v as the unpooled validation reports it, t from scipy.stats.t.
+    from bandsolve.evaluate.validated import validated_calibration
+
+    rng = np.random.default_rng(8)
+    cal, val, result = _validated_after_runs(rng)
+    basis = val.interval
+    nu_c = min(m.error_scale_dof for m in cal.limits.models)
+    assert basis.pooled and basis.calibration_dof == nu_c > 0
+    frame = result.samples
+    e, s, c = (np.column_stack([frame[f"{a} {col}"] for a in LABELS])
+               for col in ("error", "SE (calibration)", "reference"))
+    alone = validated_calibration(_without_runs(cal), e, s, [],
+                                  np.repeat(np.arange(5), 6), c).interval
+    new = _new_days(rng, 40)[1]
+    before, after = cal.predict(new), val.predict(new)
+    for k, a in enumerate(LABELS):
+        def nll(v, k=k):
+            var = s[:, k] ** 2 + v[0] ** 2 + (v[1] * c[:, k]) ** 2
+            return -stats.norm.logpdf(e[:, k], scale=np.sqrt(var)).sum()
+        tau, kappa = np.abs(optimize.minimize(nll, [1e-3, 1e-2], method="Nelder-Mead",
+                                              options={"xatol": 1e-9, "fatol": 1e-12}).x)
+        nu_v = alone.analyte_dof[k]
+        w = nu_v / (nu_c + nu_v)
+        se2 = before[f"{a} SE"] ** 2 + w * (tau**2 + (kappa * after[a]) ** 2)
+        np.testing.assert_allclose(after[f"{a} SE"], np.sqrt(se2), rtol=2e-3, atol=1e-6)
+        half = (after[f"{a} high95"] - after[f"{a} low95"]) / 2
+        np.testing.assert_allclose(half, stats.t.ppf(0.975, nu_c + nu_v) * after[f"{a} SE"],
+                                   rtol=1e-9)
+
+
+def _without_runs(cal):
+    """The same calibration with its error model of runs forgotten (the unpooled reference)."""
+    import dataclasses
+
+    models = tuple(dataclasses.replace(m, error_scale_runs=0) for m in cal.limits.models)
+    return dataclasses.replace(cal, limits=dataclasses.replace(cal.limits, models=models))
+
+
+@pytest.mark.slow
+def test_validating_a_runs_model_does_not_count_the_day_effects_twice():
+    # A calibration over 5 days with --runs already covers new days' samples; adding a
+    # validation's model error in full on top of it gave 0.986 (README). Pooled: inside
+    # 0.93–0.975, pooled over 30 calibrations and 3 analytes (coverage definition).
+    rng = np.random.default_rng(11)
+    hits = total = 0
+    for _ in range(30):
+        _, val, _ = _validated_after_runs(rng)
+        conc, new = _new_days(rng)
+        res = val.predict(new)
+        hits += sum(int(((res[f"{a} low95"] <= conc[:, k]) & (conc[:, k] <= res[f"{a} high95"]))
+                        .sum()) for k, a in enumerate(LABELS))
+        total += conc.size
+    assert 0.93 <= hits / total <= 0.975, hits / total

@@ -46,6 +46,11 @@ class IntervalBasis:
         Name and SHA-256 of each validation file.
     created : str
         When the validated model was written (ISO 8601, UTC).
+    calibration_dof : float
+        Degrees of freedom of the calibration's own error model of runs when it was pooled
+        with the validation (``evaluate.validated``): τ², κ² are then the validation's
+        estimates times ``ν_v/(ν_c + ν_v)`` and :attr:`t_dof` is ``ν_c + ν_v``. 0: not
+        pooled (a calibration measured on one occasion).
     """
 
     method: str
@@ -57,6 +62,12 @@ class IntervalBasis:
     dof: float = 0.0
     relative_error: tuple[float, ...] = ()
     analyte_dof: tuple[float, ...] = ()
+    calibration_dof: float = 0.0
+
+    @property
+    def pooled(self) -> bool:
+        """True when the validation was pooled with the calibration's error model of runs."""
+        return self.calibration_dof > 0
 
     @property
     def kappa(self) -> tuple[float, ...]:
@@ -88,8 +99,9 @@ class IntervalBasis:
     def label(self) -> str:
         """The basis in words, for every result row."""
         runs = f" from {self.n_runs} runs" if self.n_runs else ""
+        pooled = (", pooled with the calibration's own runs" if self.pooled else "")
         return (f"validated on {self.n_validation} independent samples{runs} (calibration SE "
-                "plus model error)")
+                f"plus model error{pooled})")
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary (inverse of :meth:`from_dict`)."""
@@ -98,6 +110,7 @@ class IntervalBasis:
                 "relative_error": list(self.relative_error),
                 "analyte_dof": list(self.analyte_dof), "n_validation": self.n_validation,
                 "n_runs": self.n_runs, "dof": self.dof,
+                "calibration_dof": self.calibration_dof,
                 "validation_files": [dict(f) for f in self.validation_files],
                 "created": self.created}
 
@@ -112,4 +125,5 @@ class IntervalBasis:
             created=str(data.get("created") or ""), n_runs=int(data.get("n_runs") or 0),
             dof=float(data.get("dof") or 0.0),
             relative_error=_floats(data.get("relative_error") or ()),
-            analyte_dof=_floats(data.get("analyte_dof") or ())))
+            analyte_dof=_floats(data.get("analyte_dof") or ()),
+            calibration_dof=float(data.get("calibration_dof") or 0.0)))

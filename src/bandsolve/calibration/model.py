@@ -350,18 +350,21 @@ class Calibration:
     def _with_model_error(self, d: Detail) -> Detail:
         """Add the validated model error to every SE: ``√(s² + τ² + κ²ĉ²)``.
 
-        The t quantile then uses the smaller of the calibration degrees of freedom and the
-        validation's effective degrees of freedom where τ or κ > 0 (both are estimated from
-        the validation samples; ``IntervalBasis.t_dof``).
+        The t quantile then uses, where τ or κ > 0, the smaller of the calibration degrees of
+        freedom and the validation's effective degrees of freedom (both are estimated from
+        the validation samples; ``IntervalBasis.t_dof``); for a validation pooled with the
+        calibration's error model of runs, the pooled ``ν_c + ν_v`` for every analyte (the
+        validation adds its degrees of freedom even where it found nothing to add).
         """
         if self.interval is None:
             return d
         tau = np.asarray(self.interval.model_error_sd, dtype=float)
         kappa = np.asarray(self.interval.kappa, dtype=float)
-        dof = np.minimum(d.dof, np.asarray(self.interval.t_dof, dtype=float))
+        t_dof = np.asarray(self.interval.t_dof, dtype=float)
+        added = (tau > 0) | (kappa > 0)
+        dof = t_dof if self.interval.pooled else np.where(added, np.minimum(d.dof, t_dof), d.dof)
         var = d.standard_errors**2 + tau**2 + (kappa * d.concentrations) ** 2
-        return dataclasses.replace(d, standard_errors=np.sqrt(var),
-                                   dof=np.where((tau > 0) | (kappa > 0), dof, d.dof))
+        return dataclasses.replace(d, standard_errors=np.sqrt(var), dof=dof)
 
     # ------------------------------------------------------------------ description
     @property

@@ -65,7 +65,9 @@ __all__ = ["FIELDS", "RECORDS", "SCHEMA_VERSION", "save_model", "load_model", "s
 #: 6: a validated ``interval`` may carry a proportional model error (``relative_error``),
 #: which a reader of schema 5 would drop, giving too narrow intervals at high levels.
 #: 7: a CLS model may carry a band-shaped residual test (``band_basis``, ``band_limit``) with
-#: its omnibus residual limit at α/2; a reader of schema 6 would drop the band test.
+#: its omnibus residual limit at α/2, and a validated ``interval`` may be pooled with the
+#: calibration's error model of runs (``calibration_dof``, t on ν_c + ν_v); a reader of
+#: schema 6 would drop the band test and use the wrong t.
 SCHEMA_VERSION = 7
 FORMAT_NAME = "bandsolve-model"
 

@@ -27,6 +27,16 @@ top of the range under-covered. Later intervals are ``ĉ ± t_{ν}·√(s² + τ
 the smaller of the calibration degrees of freedom and the validation's effective degrees of
 freedom.
 
+A calibration measured over several runs (``build --runs``, PLS ``--cv groups``) already
+carries an error model of the day-to-day error in its SE, estimated with ν_c degrees of
+freedom from its own runs. The validation is then a second, independent estimate of the same
+error with ν_v degrees of freedom, not an error on top of it; adding its τ̂², κ̂² in full and
+using ν_v alone would count the day-to-day error twice over (measured: coverage 0.986 instead
+of 0.95). The two are pooled as in a pooled variance: later intervals are
+``ĉ ± t_{ν_c+ν_v}·√(s² + w(τ̂² + κ̂²ĉ²))`` with ``w = ν_v/(ν_c + ν_v)``, the validation's
+weight — exactly the pooled estimate ``[ν_c·s² + ν_v(s² + τ̂² + κ̂²ĉ²)]/(ν_c + ν_v)`` (a
+validation that finds the SE too large cannot lower it: τ², κ² ≥ 0).
+
 Errors that come from the day (a gain, a wavelength or baseline shift) are shared by every
 sample measured that day, so 30 samples from 5 days carry far less than 29 degrees of freedom
 about the model error. When the runs (days) of the validation samples are given, the effective
@@ -61,7 +71,7 @@ from bandsolve.calibration.model import Calibration
 from bandsolve.errors import DataError
 from bandsolve.variance_function import effective_dof, fit_variance
 
-__all__ = ["MIN_LEVELS", "model_error", "coverage_interval",
+__all__ = ["MIN_LEVELS", "calibration_runs_dof", "model_error", "coverage_interval",
            "validated_calibration", "VALIDATED_METHOD"]
 
 #: How the validated intervals are formed (stored in the model and shown with results).
@@ -111,6 +121,13 @@ def model_error(errors: np.ndarray, standard_errors: np.ndarray,
     return float(tau2), float(kappa2)
 
 
+def calibration_runs_dof(cal: Calibration) -> float:
+    """Degrees of freedom of the calibration's own error model of runs (the smallest over its
+    estimators); 0 when it was not built with runs (``build --runs`` or ``--cv groups``)."""
+    dofs = [m.error_scale_dof for m in cal.limits.models if m.error_scale_runs]
+    return float(min(dofs)) if dofs else 0.0
+
+
 def coverage_interval(covered: int, total: int, alpha: float = 0.05) -> tuple[float, float]:
     """Clopper–Pearson (exact binomial) ``1 − alpha`` interval of a coverage proportion."""
     if total < 1:
@@ -155,6 +172,11 @@ def validated_calibration(cal: Calibration, errors: np.ndarray, standard_errors:
         ok = _usable(e[:, k], s[:, k]) & np.isfinite(c[:, k])
         z = e[ok, k] / np.sqrt(s[ok, k] ** 2 + tau2 + kappa2 * c[ok, k] ** 2)
         dofs.append(effective_dof(z, None if runs is None else np.asarray(runs)[ok]))
+    nu_c = calibration_runs_dof(cal)
+    if nu_c > 0:  # two estimates of the same day-to-day error: pool them
+        parts = [(tau2 * v / (nu_c + v), kappa2 * v / (nu_c + v))
+                 for (tau2, kappa2), v in zip(parts, dofs, strict=True)]
+        dofs = [nu_c + v for v in dofs]
     record = IntervalBasis(
         method=VALIDATED_METHOD, model_error_sd=tuple(float(np.sqrt(t)) for t, _ in parts),
         relative_error=tuple(float(np.sqrt(k2)) for _, k2 in parts),
@@ -162,5 +184,6 @@ def validated_calibration(cal: Calibration, errors: np.ndarray, standard_errors:
         n_runs=0 if runs is None else int(np.unique(np.asarray(runs)).size),
         dof=float(min(dofs)), analyte_dof=tuple(float(v) for v in dofs),
         validation_files=tuple(dict(f) for f in fingerprints),
-        created=datetime.now(timezone.utc).isoformat(timespec="seconds"))
+        created=datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        calibration_dof=nu_c)
     return dataclasses.replace(cal, interval=record)
