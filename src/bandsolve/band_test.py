@@ -23,9 +23,12 @@ stray light, a slightly non-linear band) raises the limit instead of flagging ev
 Each of the two tests is run at α/2 (Bonferroni), so an in-model spectrum exceeds either
 with probability at most α.
 
-Measured (``tests/benchmarks/coverage_study.py``, white noise, band at the noise level outside
-the span of K): with 6 analytes from 5 pure standards each, the omnibus test alone catches
-the band in 89–92 % of mixtures, the pair in 99.9 %, at the same 1 % false-alarm rate.
+Measured (``tests/benchmarks/coverage_study.py``, 200 calibrations, white noise, a band whose
+part outside the span of K has the noise RMS): with 6 analytes from 5 pure standards each, the
+omnibus test alone catches it in 92.5 % of mixtures, the pair in 100 %, while clean mixtures
+are flagged as often as before (1–3 % with every flag counted). On the real datasets the
+band limit adapts to the calibration's own smooth residual structure: no more blanks or
+left-out standards flagged than with the omnibus test alone.
 
 References
 ----------

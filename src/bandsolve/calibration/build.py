@@ -329,4 +329,3 @@ def build_cls_from_absorptivities(absorptivities: SpectralSet, path_length_cm: f
         provenance=provenance_record(provenance, 0),
     )
     return cal if blank_x is None else with_merit(cal, None, None, blank_x)
-

@@ -83,7 +83,8 @@ class IntervalBasis:
 
     @property
     def t_dof(self) -> tuple[float, ...]:
-        """Degrees of freedom of each analyte's t quantile where τ or κ > 0."""
+        """Degrees of freedom of each analyte's t quantile: where τ or κ > 0, or everywhere
+        when :attr:`pooled`."""
         if self.analyte_dof:
             return self.analyte_dof
         return (self.dof if self.dof > 0 else float(self.n_validation - 1),) * len(
