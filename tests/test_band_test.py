@@ -106,3 +106,22 @@ def test_absorber_at_the_noise_level_is_caught_with_six_analytes_from_pure_stand
     assert caught / total >= 0.95, caught / total
     assert omnibus / total < 0.93  # the band test is what lifts it
     assert clean / total <= stats.binom.ppf(0.9995, total, 0.01) / total, clean / total
+
+
+def test_the_model_record_names_the_band_limit_and_its_directions():
+    # What a validation report needs to reproduce a flag: both limits and the band dimension,
+    # in the limits record that inspect --json and the model file carry.
+    from bandsolve.calibration.build import build_cls
+    from bandsolve.concentrations import ConcentrationTable
+    from bandsolve.spectra import SpectralSet
+
+    rng = np.random.default_rng(2)
+    C = np.vstack([np.eye(3)[k] * v for k in range(3) for v in LEVELS])
+    ids = [f"s{i}" for i in range(len(C))]
+    A = C @ _pure(3) + rng.normal(0, SIGMA, (len(C), AXIS.size))
+    cal = build_cls(SpectralSet(AXIS, A, ids), ConcentrationTable(ids, ["a", "b", "c"], C))
+    record = cal.describe()["limits"]["models"][0]
+    est = cal.estimators[0]
+    assert record["residual_parameters"] == {"band_limit": est.band_limit_,
+                                             "band_directions": est.band_basis_.shape[1]}
+    assert "band-shaped" in record["residual_method"]

@@ -349,6 +349,14 @@ class CLSRegressor(CLSPredicting, CLSLeverage, RecordedState, Regressor, Estimat
         check_fitted(self, "pure_spectra_")
         return float(self.residual_limit_)
 
+    def residual_parameters(self) -> dict[str, float]:
+        """Numbers behind the residual limits for the model record: the band test's limit and
+        its number of directions (empty without a band test)."""
+        if self.band_basis_ is None:
+            return {}
+        return {"band_limit": float(self.band_limit_),
+                "band_directions": float(self.band_basis_.shape[1])}
+
     def residual_method(self) -> str:
         """How the residual limits were set, in words (summary, report, inspect)."""
         text = "Box scaled chi-squared fitted to leave-one-out calibration F ratios"

@@ -203,7 +203,7 @@ def build_cls(spectra: SpectralSet, table: ConcentrationTable, *, intercept: boo
         n_runs = int(np.unique(labels).size)
     limits = Limits(float(leverage_factor), (EstimatorLimits(
         alpha=alpha, residual=est.residual_limit,
-        residual_method=est.residual_method(),
+        residual_method=est.residual_method(), residual_parameters=est.residual_parameters(),
         leverage=est.leverage_limit(leverage_factor, calibrated_range),
         error_scale=tuple(scale.tolist()), relative_error=tuple(relative.tolist()),
         error_scale_dof=scale_dof, error_scale_runs=n_runs),))
