@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import numpy as np
-import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.polynomial import legendre
@@ -80,7 +79,6 @@ def _absorber(m: int) -> np.ndarray:
     return band * SIGMA / np.sqrt(np.mean(outside**2))
 
 
-@pytest.mark.slow
 def test_absorber_at_the_noise_level_is_caught_with_six_analytes_from_pure_standards():
     # Six analytes from five pure standards each: K̂'s error doubles a mixture's residual
     # variance (h ≈ 1), and the omnibus test alone catches an absorber at the noise level in
