@@ -36,7 +36,10 @@ add the model error this independent test set revealed to every standard error; 
 that model say "validated on N independent samples". Use 30 or more validation mixtures
 measured the way routine samples are (other days, other cells, other analysts), and name
 the day of each with --runs: 30 samples from 5 days tell less about day-to-day error than 30
-from 30 days, and the intervals then use the degrees of freedom the days really carry.
+from 30 days, and the intervals then use the degrees of freedom the days really carry. A
+model built over several days (build --runs, or PLS --cv groups:) already estimates the
+day-to-day error: the validation's estimate is then pooled with it, weighted by their
+degrees of freedom, instead of added on top.
 
 --spectra takes files (each may hold many spectra) and folders, searched like predict's
 inputs; all are stacked into one test set. When a given file is one the model was built
