@@ -123,3 +123,44 @@ def test_the_model_record_names_the_band_limit_and_its_directions():
     assert record["residual_parameters"] == {"band_limit": est.band_limit_,
                                              "band_directions": est.band_basis_.shape[1]}
     assert "band-shaped" in record["residual_method"]
+
+
+def test_a_model_saved_before_the_band_test_loads_without_it():
+    # A CLS state written before schema 7 lacks band_basis and band_limit: it loads with no
+    # band test, and its residual ratio is the F ratio over the stored limit alone (the
+    # CLSRegressor Notes formula, computed here with numpy).
+    rng = np.random.default_rng(9)
+    model, C = _fit(3, rng)
+    record = model.state_record()
+    del record["band_basis"], record["band_limit"]
+    old = CLSRegressor.from_state_record(model.get_params(), record)
+    assert old.band_basis_ is None and np.isnan(old.band_limit_)
+    x = rng.uniform(0.1, 1.0, (20, 3)) @ _pure(3) + rng.normal(0, SIGMA, (20, AXIS.size))
+    Kh = old.pure_spectra_
+    c = np.linalg.lstsq(Kh.T, x.T, rcond=None)[0].T
+    r = x - c @ Kh
+    h = np.einsum("ij,jk,ik->i", c, np.linalg.inv(C.T @ C), c)
+    expected = (r**2).sum(1) / (AXIS.size - 3) / (old.s2_cal_ * (1 + h)) / old.residual_limit_
+    np.testing.assert_allclose(old.predict_detail(x).residual_ratio, expected, rtol=1e-8)
+
+
+def test_band_ratio_with_an_intercept_and_baseline_terms_matches_numpy():
+    # With an intercept (background bg) and a linear baseline, the residual is
+    # r = x − bg − [K̂; 1; z]ᵀ·coef with coef from numpy's lstsq; U is orthogonal to all the
+    # rows, so ‖Uᵀr‖² = ‖Uᵀ(x − bg)‖² (module docstring).
+    rng = np.random.default_rng(12)
+    C = rng.uniform(0.1, 1.0, (25, 3))
+    A = C @ _pure(3) + 0.01 + rng.normal(0, SIGMA, (25, AXIS.size))
+    model = CLSRegressor(fit_intercept=True, baseline="linear", wavelengths=AXIS).fit(A, C)
+    x = rng.uniform(0.1, 1.0, (30, 3)) @ _pure(3) + 0.02 + rng.normal(0, SIGMA, (30, AXIS.size))
+    aug, bg, U = model.augmented_spectra_, model.background_, model.band_basis_
+    coef = np.linalg.lstsq(aug.T, (x - bg).T, rcond=None)[0].T
+    r = x - bg - coef @ aug
+    np.testing.assert_allclose(((r @ U) ** 2).sum(1), (((x - bg) @ U) ** 2).sum(1),
+                               rtol=1e-9)
+    band = ((r @ U) ** 2).sum(1) / U.shape[1]
+    lev = model.predict_detail(x).leverage
+    full = (r**2).sum(1) / (AXIS.size - aug.shape[0]) / (model.s2_cal_ * (1 + lev))
+    expected = np.maximum(full / model.residual_limit_,
+                          band / (model.s2_cal_ * (1 + lev)) / model.band_limit_)
+    np.testing.assert_allclose(model.predict_detail(x).residual_ratio, expected, rtol=1e-7)
