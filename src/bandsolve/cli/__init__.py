@@ -37,7 +37,8 @@ __all__ = ["main", "EXIT_OK", "EXIT_INTERNAL", "EXIT_INPUT", "EXIT_PARTIAL", "EX
 COMMANDS = {"demo": "demo_cmd", "design": "design_cmd", "build": "build_cmd",
             "compare": "compare_cmd", "assess": "assess_cmd", "predict": "predict_cmd",
             "inspect": "inspect_cmd", "report": "report_cmd", "ledger": "ledger_cmd",
-            "drift": "drift_cmd", "transfer": "transfer_cmd"}
+            "repeatability": "repeatability_cmd", "drift": "drift_cmd",
+            "transfer": "transfer_cmd"}
 
 
 def _commands_needed(argv: Sequence[str]) -> list[str]:
