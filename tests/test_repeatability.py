@@ -70,6 +70,10 @@ def test_single_measurements_are_counted_not_tested_and_bad_keys_are_named():
     assert res.single == 1 and list(res.table["sample"]) == ["x"]
     with pytest.raises(DataError, match="y_rep1"):
         repeatability(frame, r"~(x)_rep")
+    with pytest.raises(DataError, match="not a valid regular expression"):
+        repeatability(frame, r"~(.*_rep")
+    assert list(repeatability(frame, {"x_rep1": "x", "x_rep2": "x", "y_rep1": "y"})
+                .table["sample"]) == ["x"]
     with pytest.raises(DataError, match="results table"):
         repeatability(frame.drop(columns=["a SE"]), r"~(.*)_rep")
 

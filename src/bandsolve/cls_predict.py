@@ -90,7 +90,7 @@ class CLSPredicting:
         return ScanParts(np.ascontiguousarray(np.column_stack([K.T, bg, U])), np.ones(K.shape[1]))
 
     def _band_basis(self) -> np.ndarray:
-        U = getattr(self, "band_basis_", None)
+        U = self.band_basis_
         return np.empty((self.augmented_spectra_.shape[1], 0)) if U is None else U
 
     def detail_from_scan(self, H: np.ndarray, ss: np.ndarray) -> CLSPrediction:

@@ -14,7 +14,7 @@ from bandsolve.errors import DataError, where
 from bandsolve.spectra import SpectralSet
 
 __all__ = ["ConcentrationTable", "split_unit", "align", "group_labels", "groups_in_order",
-           "range_text", "reference_matrix"]
+           "labels_from_ids", "range_text", "reference_matrix"]
 
 _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*\[(?P<unit>[^\[\]]*)\]\s*$")
 
@@ -222,15 +222,33 @@ def group_labels(table: ConcentrationTable, key: str) -> pd.Series:
                             f"read the table with label_columns=[{key!r}] or name one of its "
                             "text columns")
         return pd.Series(table.labels[key], index=list(table.sample_ids), name=key)
-    rx = re.compile(key[1:])
+    labels = labels_from_ids(table.sample_ids, key[1:], table.source)
+    return pd.Series(labels, index=list(table.sample_ids), name=key)
+
+
+def labels_from_ids(sample_ids: Sequence[str], pattern: str,
+                    source: str | None = None) -> list[str]:
+    """Group of each sample id: the first capture group (or the whole match) of ``pattern``.
+
+    Raises
+    ------
+    DataError
+        When the pattern is not a valid regular expression or a sample id does not match it
+        (naming the sample, and ``source`` when given).
+    """
+    try:
+        rx = re.compile(pattern)
+    except re.error as exc:
+        raise DataError(f"{where(source)}the group pattern {pattern!r} is not a valid regular "
+                        f"expression ({exc})") from None
     labels = []
-    for s in table.sample_ids:
+    for s in sample_ids:
         m = rx.search(s)
         if m is None:
-            raise DataError(f"{where(table.source, sample=s)}sample id does not match the group "
-                            f"pattern {key[1:]!r}; write a pattern every sample id matches")
+            raise DataError(f"{where(source, sample=s)}sample id does not match the group "
+                            f"pattern {pattern!r}; write a pattern every sample id matches")
         labels.append(m.group(1) if m.groups() else m.group(0))
-    return pd.Series(labels, index=list(table.sample_ids), name=key)
+    return labels
 
 
 def groups_in_order(groups: Mapping[str, object] | pd.Series,

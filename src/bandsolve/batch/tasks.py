@@ -65,7 +65,7 @@ def read_input(item: str, options: dict[str, Any], stdin_text: str | None
 
 
 def cut_tasks(parts: Iterator[SpectralSet | WideRows], chunk_size: int
-           ) -> Iterator[SpectralSet | WideRows]:
+              ) -> Iterator[SpectralSet | WideRows]:
     """Re-cut one input's parts into tasks of whole evaluation blocks."""
     first = next(parts, None)
     if first is None:

@@ -23,8 +23,7 @@ degrees of freedom the test fires somewhat more often than α.
 
 from __future__ import annotations
 
-import re
-from collections.abc import Mapping, Sequence
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -32,6 +31,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from bandsolve.concentrations import groups_in_order, labels_from_ids
 from bandsolve.errors import DataError
 
 __all__ = ["Repeatability", "repeatability", "result_analytes"]
@@ -43,30 +43,15 @@ def result_analytes(results: pd.DataFrame) -> list[str]:
             if isinstance(c, str) and c.endswith(" SE") and c[:-3] in results.columns]
 
 
-def _groups(samples: Sequence[str], key: str | Mapping[str, str]) -> list[str]:
-    """Sample group of each result: ``~REGEX`` (first capture group, or the whole match) on
-    the sample id, or a mapping from sample id to group."""
+def _groups(samples: list[str], key: str | Mapping[str, str]) -> list[str]:
+    """Sample group of each result: ``~REGEX`` on the sample ids, or a mapping from sample id
+    to group (:mod:`bandsolve.concentrations`, as for cross-validation groups)."""
     if isinstance(key, Mapping):
-        missing = [s for s in samples if s not in key]
-        if missing:
-            raise DataError(f"no sample group for {', '.join(missing[:5])}; give every result "
-                            "a group")
-        return [str(key[s]) for s in samples]
+        return [str(g) for g in groups_in_order(key, samples)]
     if not key.startswith("~"):
         raise DataError(f"the sample key {key!r} must be ~REGEX on the sample ids, e.g. "
                         r"'~(.*)_rep\d+' for mixA_rep1, mixA_rep2")
-    try:
-        rx = re.compile(key[1:])
-    except re.error as exc:
-        raise DataError(f"the sample key {key!r} is not a valid pattern ({exc})") from None
-    out = []
-    for s in samples:
-        m = rx.search(s)
-        if m is None:
-            raise DataError(f"sample {s!r} does not match {key[1:]!r}; use a pattern every "
-                            "sample id matches")
-        out.append(m.group(1) if m.groups() else m.group(0))
-    return out
+    return labels_from_ids(samples, key[1:])
 
 
 @dataclass(frozen=True)
@@ -100,11 +85,12 @@ class Repeatability:
         lines = [f"{groups} samples with replicates ({self.single} measured once); "
                  f"{self.n_disagree} sample-analyte pairs scatter more than their SE allows "
                  f"(χ² test, α = {self.alpha:g})"]
-        for row in self.table[self.table["disagree"]].itertuples(index=False):
-            lines.append(f"{row.sample}, {row.analyte}: {row.n} replicates, SD {row[4]:.3g} = "
-                         f"{row[6]:.2f} × SE {row[5]:.3g}, p = {row.p:.2g}: the intervals of "
-                         "this sample are too narrow; look for what changed between its "
-                         "measurements (cell, path length, evaporation, drift)")
+        for row in self.table[self.table["disagree"]].to_dict(orient="records"):
+            lines.append(f"{row['sample']}, {row['analyte']}: {row['n']} replicates, SD "
+                         f"{row['replicate SD']:.3g} = {row['SD/SE']:.2f} × SE {row['SE']:.3g}, "
+                         f"p = {row['p']:.2g}: the intervals of this sample are too narrow; "
+                         "look for what changed between its measurements (cell, path length, "
+                         "evaporation, drift)")
         return lines
 
     def to_dict(self) -> dict[str, Any]:
